@@ -1,0 +1,5 @@
+"""python -m rigloop -> cli.main()."""
+
+from .cli import main
+
+raise SystemExit(main())

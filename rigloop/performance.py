@@ -1,0 +1,438 @@
+"""Response performance: state-space learning curve, learning criteria, d', SPRT.
+
+* :class:`LearningCurve` is the forward filter, and :func:`smooth` the offline
+  forward-backward smoother, of the state-space model of binary responses of
+  Smith, Frank, Wirth et al. (2004, J Neurosci 24:447): a hidden learning state
+  ``x_k = x_{k-1} + eps`` (``eps ~ N(0, sigma2)``) sets the probability correct
+  ``p_k = logistic(mu + x_k)`` with ``mu = logit(chance)``, so ``x = 0`` is chance.
+* :func:`learning_trial` is their ideal-observer learning trial.
+* :func:`binomial_p_above` is the exact one-sided binomial tail for "k of n correct"
+  criteria, :func:`dprime` signal-detection sensitivity, :class:`BernoulliSPRT` Wald's
+  sequential probability ratio test.
+
+Pure: standard library and numpy only (Phi and its inverse from ``statistics.NormalDist``).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+from statistics import NormalDist
+from typing import Any
+
+import numpy as np
+
+from .errors import BadArgument
+
+_NORMAL = NormalDist()
+_NEWTON_MAX = 60  # safeguarded Newton converges in < 10 steps; the cap is a guard only
+_NEWTON_TOL = 1e-12
+
+
+# --------------------------------------------------------------------------- checks
+
+
+def _number(name: str, value: Any) -> float:
+    if isinstance(value, bool) or not isinstance(value, int | float | np.integer | np.floating):
+        raise BadArgument(name, "a finite number", value)
+    value = float(value)
+    if not math.isfinite(value):
+        raise BadArgument(name, "a finite number", value)
+    return value
+
+
+def _open_unit(name: str, value: Any) -> float:
+    value = _number(name, value)
+    if not 0.0 < value < 1.0:
+        raise BadArgument(name, "a probability strictly between 0 and 1", value)
+    return value
+
+
+def _positive(name: str, value: Any) -> float:
+    value = _number(name, value)
+    if value <= 0.0:
+        raise BadArgument(name, "a finite number > 0", value)
+    return value
+
+
+def _count(name: str, value: Any) -> int:
+    if isinstance(value, bool) or not isinstance(value, int | np.integer) or value < 0:
+        raise BadArgument(name, "a whole number >= 0", value)
+    return int(value)
+
+
+def _binary(name: str, value: Any) -> int:
+    if isinstance(value, bool | np.bool_) or (isinstance(value, int | np.integer) and value in (0, 1)):
+        return int(value)
+    raise BadArgument(name, "True/False (or 1/0)", value)
+
+
+def _logistic(a: float) -> float:
+    # 1 / (1 + e^-a), written so that neither branch overflows
+    if a >= 0:
+        return 1.0 / (1.0 + math.exp(-a))
+    e = math.exp(a)
+    return e / (1.0 + e)
+
+
+def _logit(p: float) -> float:
+    return math.log(p / (1.0 - p))
+
+
+def _z_two_sided(level: float) -> float:
+    return _NORMAL.inv_cdf(0.5 + level / 2.0)
+
+
+# --------------------------------------------------------------------------- filter step
+
+
+def _filter_step(x: float, var: float, y: int, mu: float, sigma2: float) -> tuple[float, float, float]:
+    """One trial of the forward filter (Smith et al. 2004). Returns (x_post, var_post, var_pred).
+
+    Predict:  x_{k|k-1} = x_{k-1|k-1};  v_{k|k-1} = v_{k-1|k-1} + sigma2
+    Mode:     x = x_{k|k-1} + v_{k|k-1} (y - logistic(mu + x))   (implicit in x)
+    Variance: v_{k|k} = 1 / (1/v_{k|k-1} + p (1 - p)),  p = logistic(mu + x_{k|k})
+    """
+    var_pred = var + sigma2
+    # The root of f(z) = z - x - v (y - p(z)) lies between x and x + v(y - 0 or 1),
+    # and f' = 1 + v p (1 - p) >= 1: Newton inside that bracket, bisection if it leaves.
+    lo, hi = (x, x + var_pred) if y else (x - var_pred, x)
+    z = x
+    for _ in range(_NEWTON_MAX):
+        p = _logistic(mu + z)
+        f = z - x - var_pred * (y - p)
+        if f > 0:
+            hi = z
+        else:
+            lo = z
+        step = f / (1.0 + var_pred * p * (1.0 - p))
+        z_new = z - step
+        if not lo <= z_new <= hi:
+            z_new = 0.5 * (lo + hi)
+        if abs(z_new - z) <= _NEWTON_TOL * (1.0 + abs(z)):
+            z = z_new
+            break
+        z = z_new
+    p = _logistic(mu + z)
+    var_post = 1.0 / (1.0 / var_pred + p * (1.0 - p))
+    return z, var_post, var_pred
+
+
+# --------------------------------------------------------------------------- learning curve
+
+
+class LearningCurve:
+    """Online estimate of the probability of a correct response (forward filter only).
+
+    chance: probability correct by chance, in (0, 1) (0.5 for two choices).
+    sigma2: variance of the trial-to-trial change in the learning state, > 0.
+    var0: variance of the state before the first trial (default: sigma2).
+    Attributes ``x`` (state at the posterior mode), ``var``, ``n`` (trials seen).
+    """
+
+    __slots__ = ("chance", "sigma2", "var0", "mu", "x", "var", "n")
+
+    def __init__(self, chance: float, sigma2: float, var0: float | None = None):
+        self.chance = _open_unit("chance", chance)
+        self.sigma2 = _positive("sigma2", sigma2)
+        self.var0 = self.sigma2 if var0 is None else _positive("var0", var0)
+        # mu = logit(chance), so that x = 0 means performance at chance
+        self.mu = _logit(self.chance)
+        self.x = 0.0
+        self.var = self.var0
+        self.n = 0
+
+    def __repr__(self) -> str:
+        return f"LearningCurve(chance={self.chance}, n={self.n}, p={self.p():.3f}, x={self.x:.4g}, var={self.var:.4g})"
+
+    def update(self, correct: bool) -> None:
+        """Fold in one trial: ``correct`` True (1) or False (0)."""
+        y = _binary("correct", correct)
+        self.x, self.var, _ = _filter_step(self.x, self.var, y, self.mu, self.sigma2)
+        self.n += 1
+
+    @property
+    def sd(self) -> float:
+        return math.sqrt(self.var)
+
+    def p(self) -> float:
+        """Probability correct at the mode: logistic(mu + x)."""
+        return _logistic(self.mu + self.x)
+
+    def interval(self, level: float = 0.95) -> tuple[float, float]:
+        """Two-sided credible interval of p: logistic(mu + x -/+ z sd), z = Phi^-1((1+level)/2)."""
+        z = _z_two_sided(_open_unit("level", level))
+        return _logistic(self.mu + self.x - z * self.sd), _logistic(self.mu + self.x + z * self.sd)
+
+    def lower(self, level: float = 0.95, one_sided: bool = True) -> float:
+        """Lower credible bound of p. One-sided: z = Phi^-1(level) (1.645 at 0.95);
+        two-sided: the lower end of :meth:`interval` (z = 1.960 at 0.95)."""
+        level = _open_unit("level", level)
+        z = _NORMAL.inv_cdf(level) if one_sided else _z_two_sided(level)
+        return _logistic(self.mu + self.x - z * self.sd)
+
+    def prob_above_chance(self) -> float:
+        """Pr(p > chance) = Pr(x > 0) = Phi(x / sd)."""
+        return _NORMAL.cdf(self.x / self.sd)
+
+    def state(self) -> dict[str, float | int]:
+        """Plain data; ``LearningCurve.from_state(c.state())`` continues exactly as ``c``."""
+        return {
+            "chance": self.chance,
+            "sigma2": self.sigma2,
+            "var0": self.var0,
+            "x": self.x,
+            "var": self.var,
+            "n": self.n,
+        }
+
+    @classmethod
+    def from_state(cls, d: Mapping[str, Any]) -> LearningCurve:
+        keys = {"chance", "sigma2", "var0", "x", "var", "n"}
+        if not isinstance(d, Mapping) or set(d) != keys:
+            got = sorted(d) if isinstance(d, Mapping) else d
+            raise BadArgument("state", f"a map with keys {', '.join(sorted(keys))}", got)
+        curve = cls(d["chance"], d["sigma2"], d["var0"])
+        curve.x = _number("state.x", d["x"])
+        curve.var = _positive("state.var", d["var"])
+        curve.n = _count("state.n", d["n"])
+        return curve
+
+
+# --------------------------------------------------------------------------- smoother
+
+
+@dataclass(frozen=True, slots=True)
+class Smoothed:
+    """Smoothed learning curve; every array has shape (K,), one entry per trial.
+
+    x, var: smoothed state mean and variance; p = logistic(mu + x); lo, hi: two-sided
+    ``level`` credible band of p; prob_above_chance = Phi(x / sqrt(var)).
+    """
+
+    x: np.ndarray
+    var: np.ndarray
+    p: np.ndarray
+    lo: np.ndarray
+    hi: np.ndarray
+    prob_above_chance: np.ndarray
+    level: float
+
+
+def smooth(
+    outcomes: Sequence[bool],
+    chance: float,
+    sigma2: float,
+    var0: float | None = None,
+    *,
+    level: float = 0.95,
+) -> Smoothed:
+    """Forward filter then backward (RTS) smoother over a whole session, offline.
+
+    outcomes: K binary responses (True/1 correct). Backward pass (Smith et al. 2004):
+    A_k = v_{k|k} / v_{k+1|k};  x_{k|K} = x_{k|k} + A_k (x_{k+1|K} - x_{k+1|k});
+    v_{k|K} = v_{k|k} + A_k^2 (v_{k+1|K} - v_{k+1|k}).
+    """
+    curve = LearningCurve(chance, sigma2, var0)  # validates chance, sigma2, var0
+    z = _z_two_sided(_open_unit("level", level))
+    ys = [_binary(f"outcomes[{k}]", y) for k, y in enumerate(outcomes)]
+    K = len(ys)
+    xf = np.empty(K)  # x_{k|k}
+    vf = np.empty(K)  # v_{k|k}
+    vp = np.empty(K)  # v_{k|k-1}; x_{k|k-1} = x_{k-1|k-1}
+    x, var = 0.0, curve.var0
+    for k, y in enumerate(ys):
+        x, var, v_pred = _filter_step(x, var, y, curve.mu, curve.sigma2)
+        xf[k], vf[k], vp[k] = x, var, v_pred
+    xs, vs = xf.copy(), vf.copy()
+    for k in range(K - 2, -1, -1):
+        a = vf[k] / vp[k + 1]
+        # x_{k+1|k} = x_{k|k} under the random walk
+        xs[k] = xf[k] + a * (xs[k + 1] - xf[k])
+        vs[k] = vf[k] + a * a * (vs[k + 1] - vp[k + 1])
+    sd = np.sqrt(vs)
+    eta = curve.mu + xs
+
+    def logistic(a: np.ndarray) -> np.ndarray:
+        return 0.5 * (1.0 + np.tanh(0.5 * a))  # = 1 / (1 + e^-a), overflow-free
+
+    pac = np.array([_NORMAL.cdf(v) for v in (xs / sd).tolist()])
+    return Smoothed(xs, vs, logistic(eta), logistic(eta - z * sd), logistic(eta + z * sd), pac, level)
+
+
+def learning_trial(
+    outcomes: Sequence[bool], chance: float, sigma2: float, level: float = 0.95
+) -> int | None:
+    """Ideal-observer learning trial (1-based): the first trial k such that the smoothed
+    Pr(p_j > chance) > level for every j >= k (Smith et al. 2004); None if never."""
+    level = _open_unit("level", level)
+    s = smooth(outcomes, chance, sigma2)
+    below = np.flatnonzero(~(s.prob_above_chance > level))
+    K = len(s.x)
+    if K == 0:
+        return None
+    if below.size == 0:
+        return 1
+    first = int(below[-1]) + 1  # 0-based index of the first trial of the final run
+    return first + 1 if first < K else None
+
+
+# --------------------------------------------------------------------------- binomial
+
+
+def binomial_p_above(k: int, n: int, p0: float) -> float:
+    """One-sided p-value P(X >= k), X ~ Binomial(n, p0), computed exactly.
+
+    Terms C(n, i) p0^i (1 - p0)^(n - i) are summed in log space: log C(n, k) from
+    ``math.comb`` (n <= 2000) or ``math.lgamma``, then the ratio recurrence
+    t_{i+1} / t_i = (n - i) / (i + 1) * p0 / (1 - p0).
+    """
+    if isinstance(k, bool) or not isinstance(k, int | np.integer):
+        raise BadArgument("k", "a whole number", k)
+    k, n = int(k), _count("n", n)
+    p0 = _number("p0", p0)
+    if not 0.0 <= p0 <= 1.0:
+        raise BadArgument("p0", "a probability in [0, 1]", p0)
+    if k <= 0:
+        return 1.0
+    if k > n:
+        return 0.0
+    if p0 == 0.0:
+        return 0.0
+    if p0 == 1.0:
+        return 1.0
+    if n <= 2000:
+        log_comb = math.log(math.comb(n, k))
+    else:
+        log_comb = math.lgamma(n + 1) - math.lgamma(k + 1) - math.lgamma(n - k + 1)
+    # log t_k = log C(n, k) + k log p0 + (n - k) log(1 - p0)
+    log_tk = log_comb + k * math.log(p0) + (n - k) * math.log1p(-p0)
+    i = np.arange(k, n)
+    # log t_{i+1} - log t_i = log(n - i) - log(i + 1) + logit(p0)
+    steps = np.log(n - i) - np.log(i + 1) + _logit(p0)
+    log_t = log_tk + np.concatenate(([0.0], np.cumsum(steps)))
+    top = log_t.max()
+    total = math.exp(top) * float(np.sum(np.exp(log_t - top)))
+    return min(1.0, total)
+
+
+# --------------------------------------------------------------------------- d prime
+
+
+def dprime(
+    hits: int,
+    misses: int,
+    false_alarms: int,
+    correct_rejections: int,
+    correction: str | None = "loglinear",
+) -> tuple[float, float]:
+    """Sensitivity d' and criterion c from the four counts of a yes/no task.
+
+    d' = Phi^-1(H) - Phi^-1(F);  c = -(Phi^-1(H) + Phi^-1(F)) / 2.
+    correction "loglinear" (Hautus 1995): H = (hits + 0.5) / (hits + misses + 1), and the
+    same for F; None: raw rates, BadArgument if either is 0 or 1 (Phi^-1 is infinite).
+    """
+    h, m = _count("hits", hits), _count("misses", misses)
+    fa, cr = _count("false_alarms", false_alarms), _count("correct_rejections", correct_rejections)
+    if h + m == 0:
+        raise BadArgument("hits + misses", "at least one signal trial", 0)
+    if fa + cr == 0:
+        raise BadArgument("false_alarms + correct_rejections", "at least one noise trial", 0)
+    if correction == "loglinear":
+        H = (h + 0.5) / (h + m + 1.0)
+        F = (fa + 0.5) / (fa + cr + 1.0)
+    elif correction is None:
+        H, F = h / (h + m), fa / (fa + cr)
+        if H in (0.0, 1.0):
+            raise BadArgument("hits", "a hit rate strictly between 0 and 1 without correction", H)
+        if F in (0.0, 1.0):
+            raise BadArgument("false_alarms", "a false-alarm rate strictly between 0 and 1 without correction", F)
+    else:
+        raise BadArgument("correction", "'loglinear' or None", correction)
+    zh, zf = _NORMAL.inv_cdf(H), _NORMAL.inv_cdf(F)
+    return zh - zf, -(zh + zf) / 2.0
+
+
+# --------------------------------------------------------------------------- SPRT
+
+
+def sprt_bounds(alpha: float, beta: float) -> tuple[float, float]:
+    """Wald's (1945) SPRT thresholds ``(ln B, ln A)``: A = (1 - beta)/alpha, B = beta/(1 - alpha).
+
+    alpha: error rate accepting H1 when H0 holds; beta: accepting H0 when H1 holds;
+    both in (0, 1) with alpha + beta < 1 (so that ln B < 0 < ln A).
+    """
+    alpha, beta = _open_unit("alpha", alpha), _open_unit("beta", beta)
+    if alpha + beta >= 1.0:
+        raise BadArgument("alpha + beta", "less than 1", alpha + beta)
+    return math.log(beta / (1.0 - alpha)), math.log((1.0 - beta) / alpha)
+
+
+SPRT_VERDICTS = ("continue", "accept_h1", "accept_h0")
+
+
+class BernoulliSPRT:
+    """Wald's SPRT of H0: p = p0 against H1: p = p1 on a stream of successes/failures.
+
+    The log likelihood ratio ``llr`` gains ln(p1/p0) per success and
+    ln((1 - p1)/(1 - p0)) per failure; the test continues while ln B < llr < ln A.
+    Once decided, the verdict stays: later updates change nothing until :meth:`reset`.
+    """
+
+    __slots__ = ("p0", "p1", "alpha", "beta", "ln_b", "ln_a", "llr", "n", "verdict")
+
+    def __init__(self, p0: float, p1: float, alpha: float = 0.05, beta: float = 0.2):
+        self.p0, self.p1 = _open_unit("p0", p0), _open_unit("p1", p1)
+        if self.p0 == self.p1:
+            raise BadArgument("p1", f"a probability different from p0 = {self.p0:g}", p1)
+        self.alpha, self.beta = float(alpha), float(beta)
+        self.ln_b, self.ln_a = sprt_bounds(alpha, beta)
+        self.reset()
+
+    def __repr__(self) -> str:
+        return f"BernoulliSPRT(p0={self.p0}, p1={self.p1}, n={self.n}, llr={self.llr:.4g}, verdict={self.verdict!r})"
+
+    def reset(self) -> None:
+        self.llr = 0.0
+        self.n = 0
+        self.verdict = "continue"
+
+    def update(self, success: bool) -> str:
+        """Fold in one trial; returns ``"continue"``, ``"accept_h1"`` or ``"accept_h0"``."""
+        y = _binary("success", success)
+        if self.verdict != "continue":
+            return self.verdict
+        # Lambda += ln(p1/p0) on a success, ln((1 - p1)/(1 - p0)) on a failure
+        self.llr += math.log(self.p1 / self.p0) if y else math.log((1.0 - self.p1) / (1.0 - self.p0))
+        self.n += 1
+        if self.llr >= self.ln_a:
+            self.verdict = "accept_h1"
+        elif self.llr <= self.ln_b:
+            self.verdict = "accept_h0"
+        return self.verdict
+
+    def state(self) -> dict[str, float | int | str]:
+        return {
+            "p0": self.p0,
+            "p1": self.p1,
+            "alpha": self.alpha,
+            "beta": self.beta,
+            "llr": self.llr,
+            "n": self.n,
+            "verdict": self.verdict,
+        }
+
+    @classmethod
+    def from_state(cls, d: Mapping[str, Any]) -> BernoulliSPRT:
+        keys = {"p0", "p1", "alpha", "beta", "llr", "n", "verdict"}
+        if not isinstance(d, Mapping) or set(d) != keys:
+            got = sorted(d) if isinstance(d, Mapping) else d
+            raise BadArgument("state", f"a map with keys {', '.join(sorted(keys))}", got)
+        test = cls(d["p0"], d["p1"], d["alpha"], d["beta"])
+        test.llr = _number("state.llr", d["llr"])
+        test.n = _count("state.n", d["n"])
+        if d["verdict"] not in SPRT_VERDICTS:
+            raise BadArgument("state.verdict", f"one of {', '.join(SPRT_VERDICTS)}", d["verdict"])
+        test.verdict = d["verdict"]
+        return test

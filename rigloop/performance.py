@@ -129,6 +129,11 @@ class LearningCurve:
     sigma2: variance of the trial-to-trial change in the learning state, > 0.
     var0: variance of the state before the first trial (default: sigma2).
     Attributes ``x`` (state at the posterior mode), ``var``, ``n`` (trials seen).
+
+    Ceiling caveat (a property of the model, pinned in the tests): near p = 1 a trial
+    carries information p(1 - p) -> 0, so over thousands of all-correct trials ``var``
+    grows like n * sigma2 while ``x`` grows like log n, and ``prob_above_chance`` and
+    ``lower`` drift back down although ``p`` keeps rising. Errors keep it bounded.
     """
 
     __slots__ = ("chance", "sigma2", "var0", "mu", "x", "var", "n")

@@ -1,0 +1,107 @@
+"""Kalman TD: a Gaussian belief over the weights of a discounted-value function.
+
+Geist & Pietquin (2010); Gershman (2015); methods.md §4. The reward on the step from x to
+x' is observed through the row h = x − γx' (this sign: r = hᵀw + ε says
+r = V(x) − γV(x') + ε), with the same diffusion-then-correction as the Kalman filter
+of conditioning. The error δ = r − hᵀŵ = r + γV(x') − V(x) is the TD error.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+
+from . import _shared as sh
+from ._shared import F64, TrialResult
+from .kalman_filter import _Gaussian
+
+
+class KalmanTD(_Gaussian):
+    """Bayesian linear TD.
+
+    n_features: length n of each time-step row x.
+    gamma:      discount per time step, in [0, 1].
+    diffusion:  τ², process variance per observation (≥ 0).
+    noise:      σ_r², observation variance (> 0).
+    prior_var:  c of the prior w_0 ~ N(0, cI) (≥ 0).
+    """
+
+    name = "kalman_td"
+    kind = "value"
+    bayesian = True
+    _param_names = ("gamma", "diffusion", "noise", "prior_var")
+
+    __slots__ = ("_gamma", "_gamma_0d", "_h", "_zero")
+
+    def __init__(self, n_features: int, gamma: Any = 0.95, diffusion: Any = 0.01,
+                 noise: Any = 1.0, prior_var: Any = 1.0):
+        super().__init__(n_features, diffusion, noise, prior_var)
+        self._gamma = sh.unit("gamma", gamma)
+        self._gamma_0d = np.array(self._gamma)  # a 0-d array costs less per ufunc call
+        self._h = np.empty(self._n)
+        self._zero = np.zeros(self._n)
+        self._zero.setflags(write=False)
+
+    @property
+    def gamma(self) -> float:
+        return self._gamma
+
+    def params(self) -> dict[str, Any]:
+        return {"gamma": self._gamma, "diffusion": self._tau2, "noise": self._noise,
+                "prior_var": self._c}
+
+    def update(self, x: Any, x_next: Any, r: Any) -> float:
+        """One time step: x (n,) now, x_next (n,) next (all zero if terminal), r received
+        on the transition. Returns δ = r + γ ŵᵀx_next − ŵᵀx (before the update)."""
+        # the checks inline: a float64 (n,) array and a float pass in a few type tests
+        shape = self._shape
+        if type(x) is not np.ndarray or x.dtype is not F64 or x.shape != shape:
+            x = sh.row("x", x, self._n)
+        if type(x_next) is not np.ndarray or x_next.dtype is not F64 or x_next.shape != shape:
+            x_next = sh.row("x_next", x_next, self._n)
+        if type(r) is not float:
+            r = sh.scalar_reward(r)
+        h = self._h
+        # h = x − γx'
+        np.multiply(x_next, self._gamma_0d, h)
+        np.subtract(x, h, h)
+        delta = self._observe(h, r)
+        if delta != delta:
+            raise sh.nonfinite([("x", x), ("x_next", x_next), ("r", r)])
+        return delta
+
+    def learn_trial(self, X: Any, r: Any) -> TrialResult:
+        """One trial: X (T, n) successive time-step rows, r (T,) with r[t] received on the
+        step from row t to row t+1; the row after the last is terminal (all zero)."""
+        X = sh.rows("X", X, self._n)
+        r = sh.vector("r", r, X.shape[0])
+        T = X.shape[0]
+        values, errors, variances = np.empty(T), np.empty(T), np.empty(T)
+        h = self._h
+        for t in range(T):
+            x = X[t]
+            x_next = X[t + 1] if t + 1 < T else self._zero
+            values[t] = float(x @ self._w)
+            variances[t] = self._variance(x)
+            # h = x − γx'
+            np.multiply(x_next, self._gamma_0d, h)
+            np.subtract(x, h, h)
+            errors[t] = delta = self._observe(h, float(r[t]))
+            if delta != delta:
+                raise sh.nonfinite([("X", X), ("r", r)])
+        return TrialResult(values, errors, variances)
+
+    def state(self) -> dict[str, np.ndarray | float]:
+        """Plain arrays and floats, parameters included; ``from_state`` rebuilds it exactly."""
+        out = self._gaussian_state()
+        out["gamma"] = self._gamma
+        return out
+
+    @classmethod
+    def from_state(cls, state: dict[str, Any]) -> KalmanTD:
+        cls._check_state(state, ("w", "cov", "gamma", "diffusion", "noise", "prior_var"))
+        w = np.asarray(state["w"], dtype=np.float64)
+        learner = cls(w.size, **{k: sh.param(state, k) for k in cls._param_names})
+        learner._restore(state)
+        return learner

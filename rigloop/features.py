@@ -80,7 +80,7 @@ class CueList:
     _index: Mapping[str, int] = field(init=False, repr=False, compare=False)
 
     def __init__(self, cues: Sequence[str]):
-        if isinstance(cues, str) or not isinstance(cues, Sequence | tuple | list):
+        if isinstance(cues, str) or not isinstance(cues, Sequence):
             raise BadArgument("cues", "a sequence of cue ids", cues)
         cues = tuple(cues)
         for cue in cues:
@@ -222,7 +222,8 @@ class Representation:
         else:
             duration = _finite("duration", duration, minimum=0.0)
             if duration < last:
-                raise BadArgument("duration", f"a length covering every event (last at {last:g} s)", duration)
+                expected = f"a length covering every event (last at {last:g} s)"
+                raise BadArgument("duration", expected, duration)
 
         if self.kind == "identity":
             X = np.zeros((1, self.n_features))
@@ -232,7 +233,8 @@ class Representation:
 
         dt = self.dt
         if duration / dt > MAX_STEPS:
-            raise BadArgument("duration", f"at most {MAX_STEPS} bins of dt = {dt:g} s long", duration)
+            expected = f"at most {MAX_STEPS} bins of dt = {dt:g} s long"
+            raise BadArgument("duration", expected, duration)
         on = np.array([_bin(t, dt) for t in onsets], dtype=np.intp)
         end = np.array([_end_bin(t, dt) for t in offsets], dtype=np.intp)
         end = np.maximum(end, on + 1)
@@ -253,7 +255,8 @@ class Representation:
             lengths = end - on
             which = np.repeat(np.arange(len(cols)), lengths)
             since = np.arange(lengths.sum()) - np.repeat(np.cumsum(lengths) - lengths, lengths)
-            X[on[which] + since, cols[which] * self.n_bins + np.minimum(since, self.n_bins - 1)] = 1.0
+            column = cols[which] * self.n_bins + np.minimum(since, self.n_bins - 1)
+            X[on[which] + since, column] = 1.0
 
         # outcome at tau in bin b is received on the transition b-1 -> b: r[clip(b - 1, 0, T - 1)]
         r = np.zeros(T)
@@ -261,7 +264,8 @@ class Representation:
             b = np.floor(np.asarray(times) / dt + _EPS).astype(np.intp)
             np.add.at(r, np.clip(b - 1, 0, T - 1), np.asarray(amounts))
         # in cue-list order, whatever the presentation order
-        onset_steps = {self.cues.cues[c]: int(s) for c, s in sorted(zip(cols.tolist(), on.tolist()))}
+        pairs = sorted(zip(cols.tolist(), on.tolist(), strict=True))
+        onset_steps = {self.cues.cues[c]: s for c, s in pairs}
         return _frozen(X, r, onset_steps)
 
     def event_rows(self, event: Any) -> TrialRows:
@@ -269,7 +273,9 @@ class Representation:
         cues = [(c.cue, c.onset, c.offset) for c in event.cues]
         return self.rows(cues, event.outcome_events(), event.duration)
 
-    def _check_cues(self, cues: Sequence[tuple[str, float, float]]) -> tuple[list[int], list[float], list[float]]:
+    def _check_cues(
+        self, cues: Sequence[tuple[str, float, float]]
+    ) -> tuple[list[int], list[float], list[float]]:
         cols: list[int] = []
         onsets: list[float] = []
         offsets: list[float] = []
@@ -285,7 +291,8 @@ class Representation:
             onset = _finite(f"cues[{cue}].onset", onset, minimum=0.0)
             offset = _finite(f"cues[{cue}].offset", offset, minimum=0.0)
             if offset < onset:
-                raise BadArgument(f"cues[{cue}].offset", f"a time not before its onset {onset:g} s", offset)
+                expected = f"a time not before its onset {onset:g} s"
+                raise BadArgument(f"cues[{cue}].offset", expected, offset)
             cols.append(col)
             onsets.append(onset)
             offsets.append(offset)
@@ -337,7 +344,8 @@ def make_representation(
     elif n_bins is not None:
         raise BadArgument("n_bins", f"None for {kind} (it applies to serial_compound only)", n_bins)
     if kind == "trace":
-        if isinstance(decay, bool) or not isinstance(decay, int | float | np.floating) or not 0 < decay < 1:
+        numeric = isinstance(decay, int | float | np.floating) and not isinstance(decay, bool)
+        if not numeric or not 0 < decay < 1:
             raise BadArgument("decay", "a number in (0, 1) for trace", decay)
         decay = float(decay)
     elif decay is not None:

@@ -63,7 +63,9 @@ def _count(name: str, value: Any) -> int:
 
 
 def _binary(name: str, value: Any) -> int:
-    if isinstance(value, bool | np.bool_) or (isinstance(value, int | np.integer) and value in (0, 1)):
+    if isinstance(value, bool | np.bool_):
+        return int(value)
+    if isinstance(value, int | np.integer) and value in (0, 1):
         return int(value)
     raise BadArgument(name, "True/False (or 1/0)", value)
 
@@ -87,7 +89,9 @@ def _z_two_sided(level: float) -> float:
 # --------------------------------------------------------------------------- filter step
 
 
-def _filter_step(x: float, var: float, y: int, mu: float, sigma2: float) -> tuple[float, float, float]:
+def _filter_step(
+    x: float, var: float, y: int, mu: float, sigma2: float
+) -> tuple[float, float, float]:
     """One trial of the forward filter (Smith et al. 2004). Returns (x_post, var_post, var_pred).
 
     Predict:  x_{k|k-1} = x_{k-1|k-1};  v_{k|k-1} = v_{k-1|k-1} + sigma2
@@ -149,7 +153,10 @@ class LearningCurve:
         self.n = 0
 
     def __repr__(self) -> str:
-        return f"LearningCurve(chance={self.chance}, n={self.n}, p={self.p():.3f}, x={self.x:.4g}, var={self.var:.4g})"
+        return (
+            f"LearningCurve(chance={self.chance}, n={self.n}, p={self.p():.3f}, "
+            f"x={self.x:.4g}, var={self.var:.4g})"
+        )
 
     def update(self, correct: bool) -> None:
         """Fold in one trial: ``correct`` True (1) or False (0)."""
@@ -263,7 +270,8 @@ def smooth(
         return 0.5 * (1.0 + np.tanh(0.5 * a))  # = 1 / (1 + e^-a), overflow-free
 
     pac = np.array([_NORMAL.cdf(v) for v in (xs / sd).tolist()])
-    return Smoothed(xs, vs, logistic(eta), logistic(eta - z * sd), logistic(eta + z * sd), pac, level)
+    lo, hi = logistic(eta - z * sd), logistic(eta + z * sd)
+    return Smoothed(xs, vs, logistic(eta), lo, hi, pac, level)
 
 
 def learning_trial(
@@ -352,7 +360,8 @@ def dprime(
         if H in (0.0, 1.0):
             raise BadArgument("hits", "a hit rate strictly between 0 and 1 without correction", H)
         if F in (0.0, 1.0):
-            raise BadArgument("false_alarms", "a false-alarm rate strictly between 0 and 1 without correction", F)
+            expected = "a false-alarm rate strictly between 0 and 1 without correction"
+            raise BadArgument("false_alarms", expected, F)
     else:
         raise BadArgument("correction", "'loglinear' or None", correction)
     zh, zf = _NORMAL.inv_cdf(H), _NORMAL.inv_cdf(F)
@@ -396,7 +405,10 @@ class BernoulliSPRT:
         self.reset()
 
     def __repr__(self) -> str:
-        return f"BernoulliSPRT(p0={self.p0}, p1={self.p1}, n={self.n}, llr={self.llr:.4g}, verdict={self.verdict!r})"
+        return (
+            f"BernoulliSPRT(p0={self.p0}, p1={self.p1}, n={self.n}, "
+            f"llr={self.llr:.4g}, verdict={self.verdict!r})"
+        )
 
     def reset(self) -> None:
         self.llr = 0.0
@@ -409,7 +421,10 @@ class BernoulliSPRT:
         if self.verdict != "continue":
             return self.verdict
         # Lambda += ln(p1/p0) on a success, ln((1 - p1)/(1 - p0)) on a failure
-        self.llr += math.log(self.p1 / self.p0) if y else math.log((1.0 - self.p1) / (1.0 - self.p0))
+        if y:
+            self.llr += math.log(self.p1 / self.p0)
+        else:
+            self.llr += math.log((1.0 - self.p1) / (1.0 - self.p0))
         self.n += 1
         if self.llr >= self.ln_a:
             self.verdict = "accept_h1"

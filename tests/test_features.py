@@ -34,13 +34,15 @@ def test_cue_list_keeps_given_order_and_answers_membership():
 
 def test_cue_list_rejects_duplicates():
     """A cue named twice would give two columns one meaning."""
-    with pytest.raises(BadArgument, match=r"^'cues' must be a list naming each cue once \(got 'a'\)$"):
+    message = r"^'cues' must be a list naming each cue once \(got 'a'\)$"
+    with pytest.raises(BadArgument, match=message):
         CueList(["a", "b", "a"])
 
 
 def test_unknown_cue_message_lists_allowed_cues():
     """The message names the unknown cue and lists the allowed ones (pinned)."""
-    with pytest.raises(BadArgument, match=r"^'cue' must be one of tone_hi, tone_lo, light \(got 'noise'\)$"):
+    message = r"^'cue' must be one of tone_hi, tone_lo, light \(got 'noise'\)$"
+    with pytest.raises(BadArgument, match=message):
         rep("presence").rows([("noise", 0.0, 1.0)])
 
 
@@ -49,7 +51,8 @@ def test_unknown_cue_message_lists_allowed_cues():
 
 def test_identity_row_is_sum_of_present_cues():
     """light + tone_hi present: [1, 0, 1]; r = 2.0 + 1.5 = 3.5 (total outcome), one row."""
-    rows = rep("identity").rows([("light", 0.5, 1.0), ("tone_hi", 0.0, 1.0)], [(1.0, 2.0), (1.2, 1.5)])
+    cues = [("light", 0.5, 1.0), ("tone_hi", 0.0, 1.0)]
+    rows = rep("identity").rows(cues, [(1.0, 2.0), (1.2, 1.5)])
     np.testing.assert_array_equal(rows.X, [[1.0, 0.0, 1.0]])
     np.testing.assert_array_equal(rows.r, [3.5])
     assert rows.onset_steps == {"tone_hi": 0, "light": 0}
@@ -90,8 +93,10 @@ def test_serial_compound_long_cue_keeps_last_bin_on():
 def test_trace_hand_example():
     """decay = 0.5: tone_hi from row 0: 1, 0.5, 0.25, 0.125; tone_lo from row 1: 0, 1, 0.5, 0.25
     (traces last to the end of the trial, whatever the offset)."""
-    rows = rep("trace", decay=0.5).rows([("tone_lo", 0.25, 0.5), ("tone_hi", 0.0, 0.25)], [(1.0, 1.0)])
-    np.testing.assert_allclose(rows.X[:, :2], [[1, 0], [0.5, 1], [0.25, 0.5], [0.125, 0.25]], rtol=0, atol=0)
+    cues = [("tone_lo", 0.25, 0.5), ("tone_hi", 0.0, 0.25)]
+    rows = rep("trace", decay=0.5).rows(cues, [(1.0, 1.0)])
+    expected = [[1, 0], [0.5, 1], [0.25, 0.5], [0.125, 0.25]]
+    np.testing.assert_array_equal(rows.X[:, :2], expected)
     assert not rows.X[:, 2].any()
 
 
@@ -116,7 +121,8 @@ def test_short_cue_occupies_its_onset_row():
     ],
 )
 def test_reward_lands_on_transition_into_its_bin(time, dt, index):
-    """r[b - 1] gets an outcome in bin b; bin 0 -> r[0]; bin >= T -> r[T - 1]. T = ceil(1.0 / dt)."""
+    """r[b - 1] gets an outcome in bin b; bin 0 -> r[0]; bin >= T -> r[T - 1].
+    T = ceil(1.0 / dt)."""
     rows = rep("presence", dt=dt).rows([("tone_hi", 0.0, 0.5)], [(time, 3.0)], duration=1.0)
     expected = np.zeros(math.ceil(1.0 / dt - 1e-9))
     expected[index] = 3.0
@@ -126,7 +132,8 @@ def test_reward_lands_on_transition_into_its_bin(time, dt, index):
 def test_reward_at_cue_offset_is_received_leaving_the_last_cue_bin():
     """CSC cue on [0.5, 1.5) = rows 2..5; reward at 1.5 s is bin 6, so r[5]: the transition
     out of the row whose cue@3 is on, into row 6 (cue off). The trial has T = 2.0/0.25 = 8 rows."""
-    rows = rep("serial_compound", n_bins=4).rows([("tone_hi", 0.5, 1.5)], [(1.5, 1.0)], duration=2.0)
+    r = rep("serial_compound", n_bins=4)
+    rows = r.rows([("tone_hi", 0.5, 1.5)], [(1.5, 1.0)], duration=2.0)
     assert rows.steps == 8
     assert rows.r.tolist() == [0, 0, 0, 0, 0, 1.0, 0, 0]
     assert rows.X[5, 3] == 1 and not rows.X[6].any()
@@ -229,7 +236,8 @@ def test_csc_has_one_active_feature_per_cue_per_bin_while_on(trial, n_bins):
 
 def test_negative_onset_message_is_pinned():
     """A negative time names the cue's field and the bound."""
-    with pytest.raises(BadArgument, match=r"^'cues\[tone_hi\].onset' must be a finite number >= 0 \(got -0.5\)$"):
+    message = r"^'cues\[tone_hi\].onset' must be a finite number >= 0 \(got -0.5\)$"
+    with pytest.raises(BadArgument, match=message):
         rep("presence").rows([("tone_hi", -0.5, 1.0)])
 
 
@@ -262,5 +270,7 @@ def test_invalid_input_names_the_argument(call, argument):
 
 
 def test_dt_message_is_pinned():
-    with pytest.raises(BadArgument, match=r"^'dt' must be a finite number > 0 \(s per bin\) \(got 0.0\)$"):
+    """A zero bin width names dt and its unit (pinned)."""
+    message = r"^'dt' must be a finite number > 0 \(s per bin\) \(got 0.0\)$"
+    with pytest.raises(BadArgument, match=message):
         rep("presence", dt=0.0)

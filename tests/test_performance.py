@@ -85,17 +85,23 @@ def test_bounds_one_and_two_sided_use_the_stated_z():
     a, sd = curve.mu + curve.x, math.sqrt(curve.var)
     # z values from scipy.stats.norm.ppf as the reference
     assert curve.lower(0.95) == pytest.approx(logistic(a - stats.norm.ppf(0.95) * sd), rel=1e-12)
-    assert curve.lower(0.95, one_sided=False) == pytest.approx(logistic(a - stats.norm.ppf(0.975) * sd), rel=1e-12)
-    assert curve.interval(0.95)[1] == pytest.approx(logistic(a + stats.norm.ppf(0.975) * sd), rel=1e-12)
+    z2 = stats.norm.ppf(0.975)
+    assert curve.lower(0.95, one_sided=False) == pytest.approx(logistic(a - z2 * sd), rel=1e-12)
+    assert curve.interval(0.95)[1] == pytest.approx(logistic(a + z2 * sd), rel=1e-12)
     assert curve.prob_above_chance() == pytest.approx(stats.norm.cdf(curve.x / sd), rel=1e-12)
 
 
 def test_invalid_parameters_name_the_argument():
     """chance must be in (0, 1), sigma2 > 0, outcomes binary."""
-    with pytest.raises(BadArgument, match=r"^'chance' must be a probability strictly between 0 and 1 \(got 1.0\)$"):
+    message = r"^'chance' must be a probability strictly between 0 and 1 \(got 1.0\)$"
+    with pytest.raises(BadArgument, match=message):
         LearningCurve(1.0, 0.1)
-    for kwargs, name in [({"chance": math.nan, "sigma2": 0.1}, "chance"), ({"chance": 0.5, "sigma2": 0.0}, "sigma2"),
-                         ({"chance": 0.5, "sigma2": 0.1, "var0": -1.0}, "var0")]:  # fmt: skip
+    cases = [
+        ({"chance": math.nan, "sigma2": 0.1}, "chance"),
+        ({"chance": 0.5, "sigma2": 0.0}, "sigma2"),
+        ({"chance": 0.5, "sigma2": 0.1, "var0": -1.0}, "var0"),
+    ]
+    for kwargs, name in cases:
         with pytest.raises(BadArgument) as info:
             LearningCurve(**kwargs)
         assert info.value.argument == name
@@ -133,7 +139,8 @@ def test_smoother_equals_the_exact_gaussian_posterior_of_the_filters_pseudo_obse
     s = smooth(ys, chance, sigma2, var0)
     np.testing.assert_allclose(s.x, (cov @ h)[1:], rtol=1e-10, atol=1e-12)
     np.testing.assert_allclose(s.var, np.diag(cov)[1:], rtol=1e-10)
-    assert s.x[-1] == curve.x and s.var[-1] == curve.var  # the last smoothed state is the filtered one
+    # the last smoothed state is the filtered one
+    assert s.x[-1] == curve.x and s.var[-1] == curve.var
 
 
 def _coverage(truth_fn, sigma2, seed, animals=200, K=100):
@@ -166,7 +173,8 @@ def test_smoothed_band_covers_model_generated_truth_near_nominal():
     sigma2 = 0.02
 
     def truth(rng):
-        return logistic(rng.normal(0, math.sqrt(sigma2)) + np.cumsum(rng.normal(0, math.sqrt(sigma2), 100)))
+        sd = math.sqrt(sigma2)
+        return logistic(rng.normal(0, sd) + np.cumsum(rng.normal(0, sd, 100)))
 
     assert 0.90 <= _coverage(truth, sigma2, seed=7) <= 0.98
 
@@ -232,7 +240,8 @@ def test_dprime_uncorrected_matches_norm_ppf():
     d, c = dprime(30, 10, 5, 35, correction=None)
     assert d == pytest.approx(zh - zf, rel=1e-12) and c == pytest.approx(-(zh + zf) / 2, rel=1e-12)
     d, c = dprime(80, 20, 20, 80, correction=None)
-    assert d == pytest.approx(2 * stats.norm.ppf(0.8), rel=1e-12) and c == pytest.approx(0.0, abs=1e-12)
+    assert d == pytest.approx(2 * stats.norm.ppf(0.8), rel=1e-12)
+    assert c == pytest.approx(0.0, abs=1e-12)
 
 
 def test_dprime_loglinear_correction_by_hand():
@@ -358,7 +367,7 @@ def test_state_round_trip_is_exact(before, after, chance, sigma2):
 @settings(max_examples=40, deadline=None)
 @given(outcome_lists.filter(len), chances, sigma2s)
 def test_smoother_never_less_certain_than_the_filter(ys, chance, sigma2):
-    """Using later trials can only shrink the variance: var_{k|K} <= var_{k|k}; bands are ordered."""
+    """Later trials can only shrink the variance: var_{k|K} <= var_{k|k}; bands are ordered."""
     curve = LearningCurve(chance, sigma2)
     filtered = []
     for y in ys:
@@ -367,4 +376,5 @@ def test_smoother_never_less_certain_than_the_filter(ys, chance, sigma2):
     s = smooth(ys, chance, sigma2)
     assert (s.var <= np.array(filtered) * (1 + 1e-12)).all() and (s.var > 0).all()
     assert (s.lo <= s.p).all() and (s.p <= s.hi).all()
-    assert np.isfinite(s.x).all() and ((0 <= s.prob_above_chance) & (s.prob_above_chance <= 1)).all()
+    assert np.isfinite(s.x).all()
+    assert ((0 <= s.prob_above_chance) & (s.prob_above_chance <= 1)).all()

@@ -133,7 +133,7 @@ class _Gaussian(Learner):
         # [Σ; ŵ] ← [Σ⁻; ŵ] − [u; −δ/√s] uᵀ, i.e. Σ ← Σ⁻ − k hᵀΣ⁻ and ŵ ← ŵ + k δ
         # (the outer product through BLAS (n+1, 1)·(1, n) is ~2x cheaper than a broadcast
         # multiply; each entry is one exact product, so Σ stays exactly symmetric)
-        np.dot(self._q_col, self._u_row, self._M)
+        self._q_col.dot(self._u_row, self._M)
         np.subtract(self._A, self._M, self._A)
         return delta
 

@@ -1,0 +1,117 @@
+"""Kalman TD: exact Bayesian regression on h = x − γx', the sign of h, filterpy agreement."""
+
+import numpy as np
+import pytest
+from filterpy.kalman import KalmanFilter as ReferenceFilter
+
+from rigloop.learners import KalmanFilter, KalmanTD
+
+
+def trial_rows(X: np.ndarray, gamma: float) -> np.ndarray:
+    """h_t = x_t − γx_{t+1} for one trial, the row after the last being terminal (zero)."""
+    X_next = np.vstack([X[1:], np.zeros((1, X.shape[1]))])
+    return X - gamma * X_next
+
+
+def test_zero_diffusion_is_bayesian_regression_on_h():
+    """τ² = 0: Σ_N = (I/c + HᵀH/σ²)⁻¹ and μ_N = Σ_N Hᵀr/σ² over all steps, to 1e-10."""
+    # Geist & Pietquin (2010) JAIR 39:483 [S abstract]; batch oracle [C, methods.md §4]
+    rng = np.random.default_rng(4)
+    n, gamma, c, noise = 5, 0.9, 1.5, 0.4
+    ktd = KalmanTD(n, gamma=gamma, diffusion=0.0, noise=noise, prior_var=c)
+    H, R = [], []
+    for _ in range(12):
+        T = int(rng.integers(1, 7))
+        X = (rng.random((T, n)) < 0.4).astype(float)
+        r = np.where(rng.random(T) < 0.3, 1.0, 0.0)
+        ktd.learn_trial(X, r)
+        H.append(trial_rows(X, gamma))
+        R.append(r)
+    H, R = np.vstack(H), np.concatenate(R)
+    cov = np.linalg.inv(np.eye(n) / c + H.T @ H / noise)
+    np.testing.assert_allclose(ktd.cov, cov, rtol=0, atol=1e-10)
+    np.testing.assert_allclose(ktd.w, cov @ H.T @ R / noise, rtol=0, atol=1e-10)
+
+
+def test_cue_followed_by_reward_learns_positive_value():
+    """h = x − γx' (this sign): a cue that leads to reward gets positive value, and an
+    earlier cue in the chain gets γ times the later one."""
+    # methods.md §4: a flipped sign would learn −V
+    ktd = KalmanTD(1, gamma=0.9, diffusion=0.0, noise=0.1, prior_var=10.0)
+    for _ in range(50):
+        ktd.learn_trial(np.ones((1, 1)), np.ones(1))
+    assert ktd.w[0] == pytest.approx(1.0, abs=0.01)
+
+    chain = KalmanTD(2, gamma=0.9, diffusion=0.001, noise=0.1, prior_var=10.0)
+    for _ in range(200):
+        chain.learn_trial(np.eye(2), np.array([0.0, 1.0]))
+    assert chain.w[1] == pytest.approx(1.0, abs=0.01)
+    assert chain.w[0] == pytest.approx(0.9 * chain.w[1], abs=0.01)
+
+
+def test_error_is_td_error():
+    """update returns δ = r + γ ŵᵀx' − ŵᵀx with the weights before the update."""
+    ktd = KalmanTD(2, gamma=0.5)
+    ktd.w = [1.0, 4.0]
+    assert ktd.update(np.array([1.0, 0.0]), np.array([0.0, 1.0]), 0.5) == pytest.approx(1.5)
+
+
+def test_credits_earlier_cue_on_first_trial():
+    """Unlike TD(0), Kalman TD credits the earlier cue already on the first rewarded trial."""
+    # Gershman (2015) [S]; [C, methods.md §4]
+    X, r = np.eye(2), np.array([0.0, 1.0])
+    ktd = KalmanTD(2, gamma=0.9, diffusion=0.01, noise=0.5, prior_var=1.0)
+    ktd.learn_trial(X, r)
+    assert ktd.w[0] > 0 and ktd.w[1] > 0
+
+
+@pytest.mark.parametrize("seed", range(4))
+def test_equals_filterpy_fed_h_rows(seed):
+    """Step for step, ŵ and Σ equal filterpy's predict + update on rows h to 1e-10."""
+    # filterpy.kalman.KalmanFilter as a reference implementation (F = I, Q = τ²I, R = σ_r²)
+    rng = np.random.default_rng(100 + seed)
+    n = int(rng.integers(1, 9))
+    gamma, tau2 = float(rng.uniform(0, 1)), float(rng.uniform(0, 0.1))
+    noise, c = float(rng.uniform(0.1, 2)), float(rng.uniform(0.5, 3))
+    ours = KalmanTD(n, gamma=gamma, diffusion=tau2, noise=noise, prior_var=c)
+    ref = ReferenceFilter(dim_x=n, dim_z=1)
+    ref.x, ref.P, ref.F = np.zeros((n, 1)), np.eye(n) * c, np.eye(n)
+    ref.Q, ref.R = np.eye(n) * tau2, np.array([[noise]])
+    x = (rng.random(n) < 0.4).astype(float)
+    for t in range(300):
+        x_next = np.zeros(n) if t % 7 == 6 else (rng.random(n) < 0.4).astype(float)
+        r = float(rng.random() < 0.3)
+        delta = ours.update(x, x_next, r)
+        ref.predict()
+        ref.update(r, H=(x - gamma * x_next).reshape(1, n))
+        assert delta == pytest.approx(float(ref.y[0, 0]), abs=1e-10)
+        np.testing.assert_allclose(ours.w, ref.x[:, 0], rtol=0, atol=1e-10)
+        np.testing.assert_allclose(ours.cov, ref.P, rtol=0, atol=1e-10)
+        x = x_next if x_next.any() else (rng.random(n) < 0.4).astype(float)
+
+
+def test_gamma_zero_is_the_kalman_filter():
+    """With γ = 0, h = x and Kalman TD is the Kalman filter of immediate reward, exactly."""
+    rng = np.random.default_rng(9)
+    params = dict(diffusion=0.02, noise=0.6, prior_var=1.2)
+    ktd, kf = KalmanTD(3, gamma=0.0, **params), KalmanFilter(3, **params)
+    for _ in range(100):
+        x, x_next, r = rng.normal(size=3), rng.normal(size=3), float(rng.normal())
+        assert ktd.update(x, x_next, r) == kf.update(x, r)
+    assert np.array_equal(ktd.w, kf.w) and np.array_equal(ktd.cov, kf.cov)
+
+
+def test_trial_result_values_and_variances():
+    """values[t], variances[t] equal predict(x_t) just before step t (Σ before diffusion)."""
+    rng = np.random.default_rng(2)
+    X, r = rng.normal(size=(4, 3)), rng.normal(size=4)
+    a = KalmanTD(3, gamma=0.8, diffusion=0.05, noise=0.5, prior_var=1.0)
+    b = KalmanTD.from_state(a.state())
+    out = a.learn_trial(X, r)
+    for t in range(4):
+        mean, var = b.predict(X[t])
+        assert out.values[t] == mean
+        assert out.variances[t] == pytest.approx(var, rel=1e-14)
+        x_next = X[t + 1] if t < 3 else np.zeros(3)
+        assert out.errors[t] == b.update(X[t], x_next, float(r[t]))
+    assert np.array_equal(a.w, b.w) and np.array_equal(a.cov, b.cov)

@@ -76,12 +76,14 @@ class SchemaTooNew(StoreError):
 class WireError(RigloopError, ValueError):
     """A message from a rig could not be decoded or failed its schema.
 
-    ``code`` is a stable machine-readable code sent back in the error reply.
+    ``code`` is a stable machine-readable code sent back in the error reply;
+    ``field`` names the offending field when there is one.
     """
 
-    def __init__(self, code: str, message: str, raw: bytes | None = None):
+    def __init__(self, code: str, message: str, raw: bytes | None = None, *, field: str | None = None):
         self.code = code
         self.raw = raw
+        self.field = field
         super().__init__(message)
 
 

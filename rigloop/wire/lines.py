@@ -1,0 +1,592 @@
+"""The serial line protocol's messages: requests and replies <-> text lines.
+
+See docs/protocol.md for every verb and key. Floats are written with ``repr`` so a
+value read back is the same float (replay equals live); a reply line that would be
+longer than ``max_line`` has its reasons, then warnings, then overrides cut, the last
+kept text ending in ``[...]`` (an error reply's sentence likewise; a state reply drops
+entries from the end and says ``omitted=N``).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from typing import Any
+
+from ..errors import BadArgument, BadEvent
+from ..trial import Decision, TrialEvent
+from .messages import (
+    MAX_LINE,
+    REQUEST_TYPES,
+    Ack,
+    CloseSession,
+    DecisionReply,
+    ErrorReply,
+    MessageError,
+    OpenSession,
+    Ping,
+    Pong,
+    QueryState,
+    Reply,
+    Request,
+    RequestId,
+    StateReply,
+    TrialReport,
+    check_id,
+    show,
+)
+from .text import (
+    KEY_OK,
+    PART_OK,
+    TEXT_OK,
+    FLOAT_RE,
+    Value,
+    esc,
+    fmt_float,
+    fmt_scalar,
+    fmt_str,
+    join_line,
+    read_flag,
+    read_float,
+    read_int,
+    read_scalar,
+    split_line,
+    unesc,
+)
+
+CUT = "[...]"
+REQUEST_VERBS = {"OPEN": "open", "TRIAL": "trial", "CLOSE": "close", "QUERY": "query", "PING": "ping"}
+REPLY_VERBS = {"DECISION": "decision", "ACK": "ack", "STATE": "state", "PONG": "pong", "ERR": "error"}
+
+# TrialEvent field (dotted, as BadEvent names it) -> serial key
+_EVENT_KEYS = {
+    "subject": "subj",
+    "rig": "rig",
+    "session": "sess",
+    "trial": "n",
+    "cues": "cues",
+    "outcome.reward_ul": "rew",
+    "outcome.reward_time": "rew",
+    "outcome.punishment": "pun",
+    "outcome.punishment_time": "pun",
+    "outcome.timeout_s": "to",
+    "response.kind": "resp",
+    "response.value": "resp",
+    "response.result": "res",
+    "response.latency": "lat",
+    "duration": "dur",
+    "wall_time": "wall",
+}
+_DECISION_KEYS = {
+    "subject": "subj",
+    "session": "sess",
+    "trial": "n",
+    "cue": "cue",
+    "reward_prob": "p",
+    "reward_ul": "ul",
+    "reward_armed": "armed",
+    "valve_ms": "valve",
+    "difficulty": "diff",
+    "block": "block",
+    "stage": "stage",
+    "end_session": "end",
+}
+
+
+# --------------------------------------------------------------------------- public
+
+
+def parse_request_line(line: bytes, *, require_checksum: bool = False, max_line: int = MAX_LINE) -> Request:
+    """One line from a rig -> a request value. Raises ``MessageError`` only."""
+    return _parse(line, REQUEST_VERBS, _REQUEST_READERS, require_checksum, max_line)
+
+
+def parse_reply_line(line: bytes, *, require_checksum: bool = False, max_line: int = MAX_LINE) -> Reply:
+    """One line from rigloop -> a reply value (the rig's side). Raises ``MessageError`` only."""
+    return _parse(line, REPLY_VERBS, _REPLY_READERS, require_checksum, max_line)
+
+
+def format_request_line(req: Request, checksum: bool = True, *, max_line: int = MAX_LINE) -> bytes:
+    """A request value -> one line ending in ``\\n``; ``too_large`` if it exceeds ``max_line``."""
+    writer = _REQUEST_WRITERS.get(type(req))
+    if writer is None:
+        raise BadArgument("req", "a request value (OpenSession, TrialReport, ...)", req)
+    fields = [("id", fmt_scalar(req.id))] + writer(req)
+    line = join_line(_verb(REQUEST_VERBS, req.type), fields, checksum=checksum)
+    if len(line) - 1 > max_line:
+        raise MessageError(
+            "too_large", f"{req.type} line would be {len(line) - 1} bytes; the limit is {max_line}", request_id=req.id
+        )
+    return line
+
+
+def format_reply_line(reply: Reply, *, checksum: bool = True, max_line: int = MAX_LINE) -> bytes:
+    """A reply value -> one line ending in ``\\n``, at most ``max_line`` bytes before it.
+
+    Long texts are cut (see the module docstring); if the line still does not fit
+    (very long names), raises ``MessageError('too_large')``.
+    """
+    writer = _REPLY_WRITERS.get(type(reply))
+    if writer is None:
+        raise BadArgument("reply", "a reply value (DecisionReply, Ack, ...)", reply)
+    verb = _verb(REPLY_VERBS, reply.type)
+    head = [("id", fmt_scalar(reply.id))] if reply.id is not None else []
+    fixed, cuttable = writer(reply)
+    overhead = 5 if checksum else 0  # "*XXXX"
+
+    def size(fields: list[tuple[str, str]]) -> int:
+        return len(verb) + sum(len(k) + len(v) + 2 for k, v in fields) + overhead
+
+    fields = head + fixed
+    budget = max_line - size(fields)
+    tail: list[tuple[str, str]] = []
+    if isinstance(reply, StateReply):
+        tail = _fit_state(cuttable, budget)
+    else:
+        # cuttable: [(key, texts, is_list)] in line order; the last one is cut first
+        encoded: list[tuple[str, str | None]] = [(k, _fmt_texts(items, is_list)) for k, items, is_list in cuttable]
+        for i in reversed(range(len(encoded))):
+            over = size(fields + [(k, v) for k, v in encoded if v is not None]) - max_line
+            if over <= 0:
+                break
+            key, items, is_list = cuttable[i]
+            encoded[i] = (key, _fit_texts(items, is_list, len(encoded[i][1]) - over))
+        tail = [(k, v) for k, v in encoded if v is not None]
+    fields = fields + tail
+    line = join_line(verb, fields, checksum=checksum)
+    if len(line) - 1 > max_line:
+        raise MessageError(
+            "too_large", f"{reply.type} line would be {len(line) - 1} bytes; the limit is {max_line}", request_id=reply.id
+        )
+    return line
+
+
+# --------------------------------------------------------------------------- parsing
+
+
+def _verb(table: dict[str, str], kind: str) -> str:
+    return next(v for v, k in table.items() if k == kind)
+
+
+class _Line:
+    """The fields of one parsed line, taken by key with type checks."""
+
+    def __init__(self, verb: str, fields: list[tuple[str, Value]]):
+        self.verb = verb
+        self.values: dict[str, Value] = {}
+        for key, val in fields:
+            if key in self.values:
+                raise MessageError("bad_field", f"{key!r} appears twice in the line", field=key)
+            self.values[key] = val
+        self.rid: RequestId | None = None
+
+    def only(self, keys: tuple[str, ...], prefix: str | None = None) -> None:
+        for key in self.values:
+            if key not in keys and not (prefix and key.startswith(prefix) and len(key) > len(prefix)):
+                extra = f", {prefix}<name>" if prefix else ""
+                raise MessageError(
+                    "bad_field", f"{key!r} is not a key of {self.verb} (keys: {', '.join(keys)}{extra})", field=key
+                )
+
+    def raw(self, key: str, *, optional: bool = False) -> str | None:
+        val = self.values.get(key)
+        if val is None:
+            if optional:
+                return None
+            raise MessageError("bad_field", f"{key!r} is missing", field=key)
+        return val.raw
+
+    def text(self, key: str, *, optional: bool = False) -> str | None:
+        raw = self.raw(key, optional=optional)
+        return None if raw is None else unesc(raw, key)
+
+    def number(self, key: str, *, optional: bool = False) -> float | None:
+        raw = self.raw(key, optional=optional)
+        return None if raw is None else read_float(raw, key)
+
+    def prefixed(self, prefix: str) -> list[tuple[list[str], Any]]:
+        out = []
+        for key, val in self.values.items():
+            if key.startswith(prefix) and len(key) > len(prefix):
+                path = [unesc(seg, key) for seg in key[len(prefix) :].split(".")]
+                out.append((path, read_scalar(val, key)))
+        return out
+
+
+def _parse(line: Any, verbs: dict[str, str], readers: dict[str, Callable], require_checksum: bool, max_line: int):
+    if isinstance(line, str):
+        try:
+            line = line.encode("ascii")
+        except UnicodeEncodeError:
+            raise MessageError("bad_message", "line holds characters outside printable ASCII") from None
+    if not isinstance(line, (bytes, bytearray, memoryview)):
+        raise MessageError("bad_message", f"a line must be bytes (got {type(line).__name__})")
+    verb, fields = split_line(line, require_checksum=require_checksum, max_line=max_line)
+    parsed = _Line(verb, fields)
+    if "id" in parsed.values:
+        try:
+            parsed.rid = check_id(read_scalar(parsed.values["id"], "id"))
+        except (BadArgument, MessageError) as err:
+            raise MessageError("bad_field", str(err), field="id") from None
+    try:
+        if verb not in verbs:
+            raise MessageError("unknown_type", f"unknown verb {show(verb)} (expected one of: {', '.join(verbs)})")
+        if parsed.rid is None and verb != "ERR":
+            raise MessageError("bad_field", "'id' is missing", field="id")
+        return readers[verb](parsed)
+    except MessageError as err:
+        err.request_id = parsed.rid
+        raise
+    except BadEvent as err:
+        table = _EVENT_KEYS if verb == "TRIAL" else _DECISION_KEYS
+        key = _serial_key(err.field, table)
+        raise MessageError(
+            "bad_field", f"{key!r} ({err.field}) {err.rule} (got {show(err.value)})", field=key, request_id=parsed.rid
+        ) from None
+    except BadArgument as err:
+        key = _serial_key(err.argument, _DECISION_KEYS if verb == "DECISION" else _EVENT_KEYS)
+        raise MessageError("bad_field", f"{key!r}: {err}", field=key, request_id=parsed.rid) from None
+
+
+def _serial_key(name: str, table: dict[str, str]) -> str:
+    if name in table:
+        return table[name]
+    if name.startswith("cues"):
+        return "cues"
+    if name.startswith("extra"):
+        rest = name[len("extra") :].lstrip(".")
+        return "x." + esc(rest, KEY_OK) if rest and rest != "key" else "x."
+    if name.startswith("state"):
+        rest = name[len("state") :].lstrip(".")
+        return "s." + rest if rest and rest != "key" else "s."
+    if name.startswith("decision."):
+        return _serial_key(name[len("decision.") :], table)
+    return name
+
+
+def _read_open(f: _Line) -> OpenSession:
+    f.only(("id", "subj", "rig", "sess", "rules", "seed", "profile"))
+    seed = f.raw("seed", optional=True)
+    return OpenSession(
+        f.rid,
+        f.text("subj"),
+        f.text("rig"),
+        f.text("sess"),
+        f.text("rules"),
+        seed=None if seed is None else read_int(seed, "seed"),
+        profile=f.text("profile", optional=True),
+    )
+
+
+_TRIAL_KEYS = ("id", "subj", "rig", "sess", "n", "cues", "rew", "pun", "to", "resp", "res", "lat", "dur", "wall")
+
+
+def _read_trial(f: _Line) -> TrialReport:
+    f.only(_TRIAL_KEYS, "x.")
+    cues = []
+    raw = f.raw("cues", optional=True)
+    if raw:
+        for item in raw.split(","):
+            parts = item.split(":")
+            if len(parts) != 3:
+                raise MessageError("bad_field", f"'cues' entries must be cue:onset:offset (got {show(item)})", field="cues")
+            cues.append([unesc(parts[0], "cues"), read_float(parts[1], "cues"), read_float(parts[2], "cues")])
+    outcome: dict[str, Any] = {}
+    raw = f.raw("rew", optional=True)
+    if raw is not None:
+        parts = raw.split("@")
+        if len(parts) > 2:
+            raise MessageError("bad_field", f"'rew' must be uL or uL@time (got {show(raw)})", field="rew")
+        outcome["reward_ul"] = read_float(parts[0], "rew")
+        if len(parts) == 2:
+            outcome["reward_time"] = read_float(parts[1], "rew")
+    raw = f.raw("pun", optional=True)
+    if raw is not None:
+        parts = raw.split("@")
+        if len(parts) > 2:
+            raise MessageError("bad_field", f"'pun' must be kind, kind@time or @time (got {show(raw)})", field="pun")
+        outcome["punishment"] = unesc(parts[0], "pun") or None
+        if len(parts) == 2:
+            outcome["punishment_time"] = read_float(parts[1], "pun")
+    timeout = f.number("to", optional=True)
+    if timeout is not None:
+        outcome["timeout_s"] = timeout
+    response: dict[str, Any] = {}
+    raw = f.raw("resp", optional=True)
+    if raw is not None:
+        kind, sep, value = raw.partition(":")
+        response["kind"] = unesc(kind, "resp")
+        if sep:
+            response["value"] = read_float(value, "resp") if FLOAT_RE.fullmatch(value) else unesc(value, "resp")
+    result = f.text("res", optional=True)
+    if result is not None:
+        response["result"] = result
+    latency = f.number("lat", optional=True)
+    if latency is not None:
+        response["latency"] = latency
+    extra: dict[str, Any] = {}
+    for path, value in f.prefixed("x."):
+        name = ".".join(path)
+        if name in extra:
+            raise MessageError("bad_field", f"extra field {show(name)} appears twice", field="x." + esc(name, KEY_OK))
+        extra[name] = value
+    data = {
+        "subject": f.text("subj"),
+        "rig": f.text("rig"),
+        "session": f.text("sess"),
+        "trial": read_int(f.raw("n"), "n"),
+        "cues": cues,
+        "outcome": outcome,
+        "response": response,
+        "duration": f.number("dur", optional=True),
+        "wall_time": f.number("wall", optional=True) or 0.0,
+        "extra": extra,
+    }
+    return TrialReport(f.rid, TrialEvent.from_dict(data))
+
+
+def _read_close(f: _Line) -> CloseSession:
+    f.only(("id", "subj", "rig", "sess"))
+    return CloseSession(f.rid, f.text("subj"), f.text("rig"), f.text("sess"))
+
+
+def _read_query(f: _Line) -> QueryState:
+    f.only(("id", "subj"))
+    return QueryState(f.rid, f.text("subj"))
+
+
+def _read_ping(f: _Line) -> Ping:
+    f.only(("id",))
+    return Ping(f.rid)
+
+
+_REQUEST_READERS = {"OPEN": _read_open, "TRIAL": _read_trial, "CLOSE": _read_close, "QUERY": _read_query, "PING": _read_ping}
+
+_DECISION_LINE_KEYS = ("id", "subj", "sess", "n", "cue", "p", "ul", "armed", "valve", "diff", "block", "stage", "end", "dup", "over", "warn", "why")
+
+
+def _texts(f: _Line, key: str) -> tuple[str, ...]:
+    raw = f.raw(key, optional=True)
+    return () if raw is None else tuple(unesc(part, key) for part in raw.split("|"))
+
+
+def _read_decision(f: _Line) -> DecisionReply:
+    f.only(_DECISION_LINE_KEYS)
+    end = f.raw("end", optional=True)
+    dup = f.raw("dup", optional=True)
+    decision = Decision(
+        subject=f.text("subj"),
+        session=f.text("sess"),
+        trial=read_int(f.raw("n"), "n"),
+        cue=f.text("cue", optional=True),
+        reward_prob=f.number("p"),
+        reward_ul=f.number("ul"),
+        reward_armed=read_flag(f.raw("armed"), "armed"),
+        block=f.text("block"),
+        stage=f.text("stage"),
+        end_session=False if end is None else read_flag(end, "end"),
+        difficulty=f.number("diff", optional=True),
+        valve_ms=f.number("valve", optional=True),
+        reasons=_texts(f, "why"),
+        overrides=_texts(f, "over"),
+        warnings=_texts(f, "warn"),
+    )
+    return DecisionReply(f.rid, decision, False if dup is None else read_flag(dup, "dup"))
+
+
+def _read_ack(f: _Line) -> Ack:
+    f.only(("id", "of"))
+    return Ack(f.rid, f.text("of"))
+
+
+def _read_state(f: _Line) -> StateReply:
+    f.only(("id", "subj", "omitted"), "s.")
+    omitted = f.raw("omitted", optional=True)
+    if omitted is not None:
+        read_int(omitted, "omitted")
+    state: dict[str, Any] = {}
+    for path, value in f.prefixed("s."):
+        node = state
+        for seg in path[:-1]:
+            node = node.setdefault(seg, {})
+            if not isinstance(node, dict):
+                raise MessageError("bad_field", f"state entry {show('.'.join(path))} is both a value and a map", field="s.")
+        if path[-1] in node:
+            raise MessageError("bad_field", f"state entry {show('.'.join(path))} appears twice or is both a value and a map", field="s.")
+        node[path[-1]] = value
+    return StateReply(f.rid, f.text("subj"), state)
+
+
+def _read_pong(f: _Line) -> Pong:
+    f.only(("id",))
+    return Pong(f.rid)
+
+
+def _read_error(f: _Line) -> ErrorReply:
+    f.only(("id", "code", "field", "msg"))
+    return ErrorReply(f.rid, f.text("code"), f.text("msg"), f.text("field", optional=True))
+
+
+_REPLY_READERS = {"DECISION": _read_decision, "ACK": _read_ack, "STATE": _read_state, "PONG": _read_pong, "ERR": _read_error}
+
+# --------------------------------------------------------------------------- writing
+
+
+def _write_open(r: OpenSession) -> list[tuple[str, str]]:
+    out = [("subj", fmt_str(r.subject)), ("rig", fmt_str(r.rig)), ("sess", fmt_str(r.session)), ("rules", fmt_str(r.rules))]
+    if r.seed is not None:
+        out.append(("seed", str(r.seed)))
+    if r.profile is not None:
+        out.append(("profile", fmt_str(r.profile)))
+    return out
+
+
+def _part_value(v: float | str) -> str:
+    if isinstance(v, float):
+        return fmt_float(v)
+    text = esc(v, PART_OK)
+    if FLOAT_RE.fullmatch(text):  # a string that reads as a number: escape its first character
+        text = "".join(f"%{b:02X}" for b in v[0].encode()) + text[1:]
+    return text
+
+
+def _write_trial(r: TrialReport) -> list[tuple[str, str]]:
+    e = r.event
+    out = [("subj", fmt_str(e.subject)), ("rig", fmt_str(e.rig)), ("sess", fmt_str(e.session)), ("n", str(e.trial))]
+    if e.cues:
+        out.append(("cues", ",".join(f"{esc(c.cue, PART_OK)}:{fmt_float(c.onset)}:{fmt_float(c.offset)}" for c in e.cues)))
+    o = e.outcome
+    if o.reward_ul != 0 or o.reward_time is not None:
+        out.append(("rew", fmt_float(o.reward_ul) + ("" if o.reward_time is None else "@" + fmt_float(o.reward_time))))
+    if o.punishment is not None or o.punishment_time is not None:
+        kind = "" if o.punishment is None else esc(o.punishment, PART_OK)
+        out.append(("pun", kind + ("" if o.punishment_time is None else "@" + fmt_float(o.punishment_time))))
+    if o.timeout_s != 0:
+        out.append(("to", fmt_float(o.timeout_s)))
+    p = e.response
+    if p.kind != "none" or p.value is not None:
+        out.append(("resp", esc(p.kind, PART_OK) + ("" if p.value is None else ":" + _part_value(p.value))))
+    if p.result is not None:
+        out.append(("res", fmt_str(p.result)))
+    if p.latency is not None:
+        out.append(("lat", fmt_float(p.latency)))
+    out.append(("dur", fmt_float(e.duration)))
+    if e.wall_time != 0:
+        out.append(("wall", fmt_float(e.wall_time)))
+    out.extend(("x." + esc(k, KEY_OK), fmt_scalar(v)) for k, v in e.extra.items())
+    return out
+
+
+def _write_close(r: CloseSession) -> list[tuple[str, str]]:
+    return [("subj", fmt_str(r.subject)), ("rig", fmt_str(r.rig)), ("sess", fmt_str(r.session))]
+
+
+def _write_query(r: QueryState) -> list[tuple[str, str]]:
+    return [("subj", fmt_str(r.subject))]
+
+
+_REQUEST_WRITERS = {
+    OpenSession: _write_open,
+    TrialReport: _write_trial,
+    CloseSession: _write_close,
+    QueryState: _write_query,
+    Ping: lambda r: [],
+}
+assert set(REQUEST_TYPES.values()) == set(_REQUEST_WRITERS)
+
+
+def _write_decision(r: DecisionReply):
+    d = r.decision
+    out = [("subj", fmt_str(d.subject)), ("sess", fmt_str(d.session)), ("n", str(d.trial))]
+    if d.cue is not None:
+        out.append(("cue", fmt_str(d.cue)))
+    out += [("p", fmt_float(d.reward_prob)), ("ul", fmt_float(d.reward_ul)), ("armed", "1" if d.reward_armed else "0")]
+    if d.valve_ms is not None:
+        out.append(("valve", fmt_float(d.valve_ms)))
+    if d.difficulty is not None:
+        out.append(("diff", fmt_float(d.difficulty)))
+    out += [
+        ("block", fmt_str(d.block)),
+        ("stage", fmt_str(d.stage)),
+        ("end", "1" if d.end_session else "0"),
+        ("dup", "1" if r.duplicate else "0"),
+    ]
+    cuttable = [(k, list(items), True) for k, items in (("over", d.overrides), ("warn", d.warnings), ("why", d.reasons)) if items]
+    return out, cuttable
+
+
+def _write_error(r: ErrorReply):
+    out = [("code", r.code)]
+    if r.field is not None:
+        out.append(("field", fmt_str(r.field)))
+    return out, [("msg", [r.message], False)]
+
+
+def _flatten(state: dict[str, Any], prefix: str) -> list[tuple[str, str]]:
+    out = []
+    for key, value in state.items():
+        name = prefix + esc(key, KEY_OK)
+        if isinstance(value, dict):
+            out.extend(_flatten(value, name + "."))
+        else:
+            out.append((name, fmt_scalar(value)))
+    return out
+
+
+_REPLY_WRITERS = {
+    DecisionReply: _write_decision,
+    Ack: lambda r: ([("of", r.of)], []),
+    StateReply: lambda r: ([("subj", fmt_str(r.subject))], _flatten(r.state, "s.")),
+    Pong: lambda r: ([], []),
+    ErrorReply: _write_error,
+}
+
+
+def _fmt_texts(items: list[str], is_list: bool) -> str:
+    ok = TEXT_OK if is_list else TEXT_OK | {"|"}
+    return '"' + "|".join(esc(s, ok) for s in items) + '"'
+
+
+def _fit_texts(items: list[str], is_list: bool, room: int) -> str | None:
+    """The quoted value of at most ``room`` characters: whole items first, the last
+    one cut at a character boundary, ending in ``[...]``; None if nothing fits."""
+    ok = TEXT_OK if is_list else TEXT_OK | {"|"}
+    avail = room - 2 - len(CUT)
+    if avail < 0:
+        return None
+    kept: list[str] = []
+    used = 0
+    for item in items:
+        sep = 1 if kept else 0
+        enc = esc(item, ok)
+        if used + sep + len(enc) <= avail:
+            kept.append(enc)
+            used += sep + len(enc)
+            continue
+        left = avail - used - sep
+        part = []
+        for ch in item:
+            e = esc(ch, ok)
+            if len(e) > left:
+                break
+            part.append(e)
+            left -= len(e)
+        if part:
+            kept.append("".join(part))
+        break
+    return '"' + "|".join(kept) + CUT + '"'
+
+
+def _fit_state(entries: list[tuple[str, str]], budget: int) -> list[tuple[str, str]]:
+    """Entries that fit in ``budget`` characters, dropping from the end; says how many went."""
+    total = sum(len(k) + len(v) + 2 for k, v in entries)
+    if total <= budget:
+        return entries
+    kept = list(entries)
+    while kept:
+        dropped = len(entries) - len(kept)
+        note = 9 + len(str(dropped))  # " omitted=N"
+        if sum(len(k) + len(v) + 2 for k, v in kept) + (note if dropped else 0) <= budget:
+            break
+        kept.pop()
+    return kept + [("omitted", str(len(entries) - len(kept)))]
+

@@ -1,0 +1,391 @@
+"""msgpack codec: one map per ZeroMQ frame, with a ``type`` field.
+
+Decoding never raises anything but ``MessageError`` (a ``WireError``), whatever the
+bytes: msgpack's own exceptions share no base class, so every exception from
+``unpackb`` is caught and named. ``unpackb`` sizes its limits from the frame's length,
+so a tiny frame cannot declare a huge array; our own limits (frame size, nesting,
+string, list and map lengths) and a schema check follow, naming the field.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Mapping
+from typing import Any
+
+import msgpack
+
+from ..errors import BadArgument, BadEvent
+from ..trial import Decision, TrialEvent
+from .messages import (
+    MAX_DEPTH,
+    MAX_FRAME,
+    MAX_KEY,
+    MAX_LIST,
+    MAX_MAP,
+    MAX_MESSAGE,
+    MAX_STR,
+    REPLY_TYPES,
+    REQUEST_TYPES,
+    Ack,
+    CloseSession,
+    DecisionReply,
+    ErrorReply,
+    MessageError,
+    OpenSession,
+    Ping,
+    Pong,
+    QueryState,
+    Reply,
+    Request,
+    RequestId,
+    StateReply,
+    TrialReport,
+    check_id,
+    show,
+)
+
+_CUT = "[...]"
+
+# --------------------------------------------------------------------------- public
+
+
+def decode_request(frame: bytes) -> Request:
+    """One frame from a rig -> a request value. Raises ``MessageError`` only."""
+    return _guard(frame, REQUEST_TYPES, _REQUEST_READERS)
+
+
+def decode_reply(frame: bytes) -> Reply:
+    """One frame from rigloop -> a reply value (the rig's side). Raises ``MessageError`` only."""
+    return _guard(frame, REPLY_TYPES, _REPLY_READERS)
+
+
+def encode_request(req: Request) -> bytes:
+    """A request value -> one msgpack frame (for virtual rigs and tests)."""
+    if type(req) not in REQUEST_TYPES.values():
+        raise BadArgument("req", "a request value (OpenSession, TrialReport, ...)", req)
+    body: dict[str, Any] = {"type": req.type, "id": req.id}
+    if isinstance(req, TrialReport):
+        body["event"] = req.event.to_dict()
+    elif isinstance(req, OpenSession):
+        body.update(subject=req.subject, rig=req.rig, session=req.session, rules=req.rules)
+        if req.seed is not None:
+            body["seed"] = req.seed
+        if req.profile is not None:
+            body["profile"] = req.profile
+    elif isinstance(req, CloseSession):
+        body.update(subject=req.subject, rig=req.rig, session=req.session)
+    elif isinstance(req, QueryState):
+        body["subject"] = req.subject
+    return _pack(body)
+
+
+def encode_reply(reply: Reply) -> bytes:
+    """A reply value -> one msgpack frame. Reasons, overrides and warnings are cut to
+    the decoder's limits (each string ends in ``[...]`` when cut), so every reply this
+    returns decodes on the rig."""
+    if type(reply) not in REPLY_TYPES.values():
+        raise BadArgument("reply", "a reply value (DecisionReply, Ack, ...)", reply)
+    body: dict[str, Any] = {"type": reply.type, "id": reply.id}
+    if isinstance(reply, DecisionReply):
+        d = reply.decision.to_dict()
+        for name in ("reasons", "overrides", "warnings"):
+            d[name] = _cut_list(d[name])
+        body["decision"] = d
+        body["duplicate"] = reply.duplicate
+    elif isinstance(reply, Ack):
+        body["of"] = reply.of
+    elif isinstance(reply, StateReply):
+        body["subject"] = reply.subject
+        body["state"] = reply.state
+    elif isinstance(reply, ErrorReply):
+        body.update(code=reply.code, message=reply.message)
+        if reply.field is not None:
+            body["field"] = reply.field
+    frame = _pack(body)
+    if len(frame) > MAX_FRAME:
+        raise MessageError("too_large", f"reply is {len(frame)} bytes; the limit is {MAX_FRAME}", request_id=reply.id)
+    return frame
+
+
+# --------------------------------------------------------------------------- decoding
+
+
+def _guard(frame: Any, types: Mapping[str, type], readers: Mapping[str, Callable]) -> Any:
+    try:
+        return _decode(frame, types, readers)
+    except MessageError:
+        raise
+    except Exception as err:  # a bug of ours, never the sender's fault: say so
+        raise MessageError("internal", f"rigloop could not decode this message ({type(err).__name__})") from None
+
+
+def _decode(frame: Any, types: Mapping[str, type], readers: Mapping[str, Callable]) -> Any:
+    if not isinstance(frame, (bytes, bytearray, memoryview)):
+        raise MessageError("bad_message", f"a frame must be bytes (got {type(frame).__name__})")
+    frame = bytes(frame)
+    if len(frame) > MAX_FRAME:
+        raise MessageError("too_large", f"frame is {len(frame)} bytes; the limit is {MAX_FRAME}")
+    if not frame:
+        raise MessageError("bad_message", "frame is empty")
+    body = _unpack(frame)
+    if not isinstance(body, dict):
+        raise MessageError("bad_message", f"a message must be a msgpack map with a 'type' field (got {_kind(body)})")
+    _check_tree(body)
+    rid = None
+    if body.get("id") is not None:
+        try:
+            rid = check_id(body["id"])
+        except BadArgument as err:
+            raise MessageError("bad_field", str(err), field="id") from None
+    if "type" not in body:
+        raise MessageError("bad_field", "'type' is missing", field="type", request_id=rid)
+    kind = body["type"]
+    if not isinstance(kind, str):
+        raise MessageError("bad_field", f"'type' must be a string (got {_kind(kind)})", field="type", request_id=rid)
+    if kind not in types:
+        raise MessageError(
+            "unknown_type", f"unknown message type {show(kind)} (expected one of: {', '.join(types)})", request_id=rid
+        )
+    if rid is None and kind != "error":  # an error reply may answer a request whose id was unreadable
+        raise MessageError("bad_field", "'id' is missing", field="id")
+    try:
+        return readers[kind](_Fields(body, kind, rid))
+    except MessageError:
+        raise
+    except BadEvent as err:
+        name = f"event.{err.field}" if kind == "trial" else f"decision.{err.field}"
+        raise MessageError("bad_field", f"{name!r} {err.rule} (got {show(err.value)})", field=name, request_id=rid) from None
+    except BadArgument as err:
+        raise MessageError("bad_field", str(err), field=err.argument, request_id=rid) from None
+
+
+def _unpack(frame: bytes) -> Any:
+    try:
+        return msgpack.unpackb(frame, raw=False, strict_map_key=True, use_list=True, object_pairs_hook=_pairs)
+    except MessageError:
+        raise
+    except msgpack.ExtraData as err:
+        raise MessageError("bad_message", f"frame has {len(err.extra)} bytes after the message") from None
+    except msgpack.StackError:
+        raise MessageError("too_large", f"frame nests containers deeper than {MAX_DEPTH} levels") from None
+    except UnicodeDecodeError:
+        raise MessageError("bad_message", "frame holds a string that is not valid UTF-8") from None
+    except msgpack.FormatError:
+        raise MessageError("bad_message", "frame is not valid msgpack (reserved byte)") from None
+    except ValueError as err:
+        text = str(err)
+        if "incomplete" in text:
+            raise MessageError("bad_message", "frame is truncated (incomplete msgpack)") from None
+        if "exceeds max" in text:
+            raise MessageError("bad_message", "frame declares a string, array or map longer than itself") from None
+        if "map key" in text:
+            raise MessageError("bad_field", "map keys must be strings") from None
+        raise MessageError("bad_message", "frame is not valid msgpack") from None
+    except Exception as err:
+        raise MessageError("bad_message", f"frame is not valid msgpack ({type(err).__name__})") from None
+
+
+def _pairs(pairs: list[tuple[Any, Any]]) -> dict[str, Any]:
+    if len(pairs) > MAX_MAP:
+        raise MessageError("too_large", f"a map holds {len(pairs)} entries; the limit is {MAX_MAP}")
+    out: dict[str, Any] = {}
+    for key, value in pairs:
+        if not isinstance(key, str):
+            raise MessageError("bad_field", f"map keys must be strings (got {_kind(key)})")
+        if len(key) > MAX_KEY:
+            raise MessageError("too_large", f"a map key is {len(key)} characters; the limit is {MAX_KEY}")
+        if key in out:
+            raise MessageError("bad_field", f"{show(key)} appears twice in one map", field=key)
+        out[key] = value
+    return out
+
+
+def _check_tree(body: dict[str, Any]) -> None:
+    """Depth, length and type limits over the whole decoded tree (no recursion)."""
+    stack: list[tuple[Any, str, int]] = [(body, "", 1)]
+    while stack:
+        node, path, depth = stack.pop()
+        if isinstance(node, dict):
+            children = [(v, f"{path}.{k}" if path else k) for k, v in node.items()]
+        elif isinstance(node, list):
+            if len(node) > MAX_LIST:
+                raise MessageError("too_large", f"{path!r} holds {len(node)} entries; the limit is {MAX_LIST}", field=path)
+            children = [(v, f"{path}[{i}]") for i, v in enumerate(node)]
+        else:
+            continue
+        if depth >= MAX_DEPTH and children and any(isinstance(v, (dict, list)) for v, _ in children):
+            raise MessageError("too_large", f"frame nests containers deeper than {MAX_DEPTH} levels", field=path or None)
+        for value, where in children:
+            if isinstance(value, str):
+                if len(value) > MAX_STR:
+                    raise MessageError("too_large", f"{where!r} is {len(value)} characters; the limit is {MAX_STR}", field=where)
+            elif isinstance(value, (bytes, bytearray)):
+                raise MessageError("bad_field", f"{where!r} must not be binary data; send text or numbers", field=where)
+            elif isinstance(value, (dict, list)):
+                stack.append((value, where, depth + 1))
+            elif value is not None and not isinstance(value, (bool, int, float)):
+                raise MessageError("bad_field", f"{where!r} must not be a msgpack extension type", field=where)
+
+
+def _kind(value: Any) -> str:
+    return {dict: "map", list: "array", str: "string", bytes: "binary", bool: "boolean", type(None): "nil"}.get(
+        type(value), type(value).__name__
+    )
+
+
+class _Fields:
+    """The fields of one decoded map, read by name with type checks."""
+
+    def __init__(self, body: dict[str, Any], kind: str, rid: RequestId):
+        self.body, self.kind, self.rid = body, kind, rid
+
+    def only(self, *names: str) -> None:
+        allowed = {"type", "id", *names}
+        for key in self.body:
+            if key not in allowed:
+                raise MessageError(
+                    "bad_field",
+                    f"{key!r} is not a field of a {self.kind!r} message (fields: {', '.join(sorted(allowed))})",
+                    field=key,
+                    request_id=self.rid,
+                )
+
+    def get(self, name: str, expected: str, test: Callable[[Any], bool], *, optional: bool = False) -> Any:
+        if name not in self.body or (optional and self.body[name] is None):
+            if optional:
+                return None
+            raise MessageError("bad_field", f"{name!r} is missing", field=name, request_id=self.rid)
+        value = self.body[name]
+        if not test(value):
+            raise MessageError(
+                "bad_field", f"{name!r} must be {expected} (got {_kind(value)} {show(value)})", field=name, request_id=self.rid
+            )
+        return value
+
+    def text(self, name: str, *, optional: bool = False) -> Any:
+        return self.get(name, "a string", lambda v: isinstance(v, str), optional=optional)
+
+
+def _is_int(v: Any) -> bool:
+    return isinstance(v, int) and not isinstance(v, bool)
+
+
+def _read_open(f: _Fields) -> OpenSession:
+    f.only("subject", "rig", "session", "rules", "seed", "profile")
+    return OpenSession(
+        f.rid,
+        f.text("subject"),
+        f.text("rig"),
+        f.text("session"),
+        f.text("rules"),
+        seed=f.get("seed", "a whole number", _is_int, optional=True),
+        profile=f.text("profile", optional=True),
+    )
+
+
+def _read_trial(f: _Fields) -> TrialReport:
+    f.only("event")
+    event = f.get("event", "a map of trial fields", lambda v: isinstance(v, dict))
+    for name in ("outcome", "response", "extra"):
+        if event.get(name) is not None and not isinstance(event[name], dict):
+            raise BadEvent(name, "must be a map", event[name])
+    return TrialReport(f.rid, TrialEvent.from_dict(event))
+
+
+def _read_close(f: _Fields) -> CloseSession:
+    f.only("subject", "rig", "session")
+    return CloseSession(f.rid, f.text("subject"), f.text("rig"), f.text("session"))
+
+
+def _read_query(f: _Fields) -> QueryState:
+    f.only("subject")
+    return QueryState(f.rid, f.text("subject"))
+
+
+def _read_ping(f: _Fields) -> Ping:
+    f.only()
+    return Ping(f.rid)
+
+
+_REQUEST_READERS = {"open": _read_open, "trial": _read_trial, "close": _read_close, "query": _read_query, "ping": _read_ping}
+
+_DECISION_TYPES: dict[str, tuple[str, Callable[[Any], bool], bool]] = {
+    # name: (expected, test, required)
+    "subject": ("a string", lambda v: isinstance(v, str), True),
+    "session": ("a string", lambda v: isinstance(v, str), True),
+    "trial": ("a whole number", _is_int, True),
+    "cue": ("a string or nil", lambda v: v is None or isinstance(v, str), True),
+    "reward_prob": ("a number", lambda v: _is_int(v) or isinstance(v, float), True),
+    "reward_ul": ("a number", lambda v: _is_int(v) or isinstance(v, float), True),
+    "reward_armed": ("true or false", lambda v: isinstance(v, bool), True),
+    "block": ("a string", lambda v: isinstance(v, str), True),
+    "stage": ("a string", lambda v: isinstance(v, str), True),
+    "end_session": ("true or false", lambda v: isinstance(v, bool), False),
+    "difficulty": ("a number or nil", lambda v: v is None or _is_int(v) or isinstance(v, float), False),
+    "valve_ms": ("a number or nil", lambda v: v is None or _is_int(v) or isinstance(v, float), False),
+    "reasons": ("a list of strings", lambda v: isinstance(v, list) and all(isinstance(s, str) for s in v), False),
+    "overrides": ("a list of strings", lambda v: isinstance(v, list) and all(isinstance(s, str) for s in v), False),
+    "warnings": ("a list of strings", lambda v: isinstance(v, list) and all(isinstance(s, str) for s in v), False),
+}
+
+
+def _read_decision(f: _Fields) -> DecisionReply:
+    f.only("decision", "duplicate")
+    d = f.get("decision", "a map of decision fields", lambda v: isinstance(v, dict))
+    for key in d:
+        if key not in _DECISION_TYPES:
+            raise MessageError("bad_field", f"'decision.{key}' is not a decision field", field=f"decision.{key}", request_id=f.rid)
+    for name, (expected, test, required) in _DECISION_TYPES.items():
+        if name not in d:
+            if required:
+                raise MessageError("bad_field", f"'decision.{name}' is missing", field=f"decision.{name}", request_id=f.rid)
+        elif not test(d[name]):
+            raise MessageError(
+                "bad_field",
+                f"'decision.{name}' must be {expected} (got {_kind(d[name])} {show(d[name])})",
+                field=f"decision.{name}",
+                request_id=f.rid,
+            )
+    duplicate = f.get("duplicate", "true or false", lambda v: isinstance(v, bool), optional=True)
+    return DecisionReply(f.rid, Decision.from_dict(d), bool(duplicate))
+
+
+def _read_ack(f: _Fields) -> Ack:
+    f.only("of")
+    return Ack(f.rid, f.text("of"))
+
+
+def _read_state(f: _Fields) -> StateReply:
+    f.only("subject", "state")
+    return StateReply(f.rid, f.text("subject"), f.get("state", "a map", lambda v: isinstance(v, dict)))
+
+
+def _read_pong(f: _Fields) -> Pong:
+    f.only()
+    return Pong(f.rid)
+
+
+def _read_error(f: _Fields) -> ErrorReply:
+    f.only("code", "message", "field")
+    return ErrorReply(f.rid, f.text("code"), f.text("message"), f.text("field", optional=True))
+
+
+_REPLY_READERS = {"decision": _read_decision, "ack": _read_ack, "state": _read_state, "pong": _read_pong, "error": _read_error}
+
+# --------------------------------------------------------------------------- encoding
+
+
+def _pack(body: dict[str, Any]) -> bytes:
+    try:
+        return msgpack.packb(body, use_bin_type=True)
+    except (OverflowError, ValueError, TypeError) as err:
+        raise MessageError("bad_field", f"value cannot be sent as msgpack ({err})", request_id=body.get("id")) from None
+
+
+def _cut_list(items: list[str]) -> list[str]:
+    if len(items) > MAX_LIST:
+        items = items[: MAX_LIST - 1] + [_CUT]
+    return [s if len(s) <= MAX_STR else s[: MAX_STR - len(_CUT)] + _CUT for s in items]
+
+
+assert MAX_MESSAGE <= MAX_STR

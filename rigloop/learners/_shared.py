@@ -89,13 +89,13 @@ def reward(name: str, value: Any) -> float:
 def rate(name: str, value: Any, n: int) -> float | np.ndarray:
     """A learning rate: a finite number >= 0, or a read-only (n,) array of them."""
     if isinstance(value, (list, tuple, np.ndarray)) and np.ndim(value) > 0:
+        expected = f"a finite number >= 0 or an array of shape ({n},) of them"
         try:
             arr = np.array(value, dtype=np.float64)
         except (TypeError, ValueError):
-            raise BadArgument(name, f"a finite number >= 0 or an array of shape ({n},) of them", value) from None
+            raise BadArgument(name, expected, value) from None
         if arr.shape != (n,):
-            raise BadArgument(name, f"a finite number >= 0 or an array of shape ({n},) of them",
-                              _Shown(f"shape {arr.shape}"))
+            raise BadArgument(name, expected, _Shown(f"shape {arr.shape}"))
         if not np.all(np.isfinite(arr)) or np.any(arr < 0.0):
             raise BadArgument(name, "finite numbers >= 0", value)
         arr.setflags(write=False)
@@ -144,7 +144,8 @@ def rows(name: str, value: Any, n: int) -> np.ndarray:
     if arr.ndim != 2 or arr.shape[1] != n:
         raise BadArgument(name, f"a float array of shape (T, {n})", _Shown(f"shape {arr.shape}"))
     if not np.all(np.isfinite(arr)):
-        raise BadArgument(name, f"a float array of shape (T, {n}) with finite entries", _first_bad(arr))
+        raise BadArgument(name, f"a float array of shape (T, {n}) with finite entries",
+                          _first_bad(arr))
     return np.ascontiguousarray(arr)
 
 
@@ -155,16 +156,15 @@ def vector(name: str, value: Any, t: int) -> np.ndarray:
 
 def square(name: str, value: Any, n: int) -> np.ndarray:
     """A covariance: finite, symmetric (to rounding), non-negative diagonal, (n, n); a copy."""
-    arr = np.array(_array(name, value, (n, n), "a float array"), dtype=np.float64, order="C")
+    arr = _array(name, value, (n, n), "a float array")
     scale = float(np.max(np.abs(arr))) if arr.size else 0.0
     if not np.allclose(arr, arr.T, rtol=1e-9, atol=1e-12 * scale):
         raise BadArgument(name, "a symmetric matrix", _Shown("an asymmetric matrix"))
     if np.any(np.diagonal(arr) < 0.0):
-        raise BadArgument(name, "a covariance with a non-negative diagonal", _Shown("a negative variance"))
+        raise BadArgument(name, "a covariance with a non-negative diagonal",
+                          _Shown("a negative variance"))
     # (P + Pᵀ)/2 leaves an exactly symmetric P unchanged bit for bit
-    arr += arr.T
-    arr *= 0.5
-    return arr
+    return (arr + arr.T) * 0.5
 
 
 def nonfinite(pairs: list[tuple[str, Any]]) -> BadArgument:
@@ -172,8 +172,8 @@ def nonfinite(pairs: list[tuple[str, Any]]) -> BadArgument:
     for name, value in pairs:
         if isinstance(value, np.ndarray):
             if not np.all(np.isfinite(value)):
-                return BadArgument(name, f"a float array of shape {value.shape} with finite entries",
-                                   _first_bad(value))
+                expected = f"a float array of shape {value.shape} with finite entries"
+                return BadArgument(name, expected, _first_bad(value))
         else:
             out = _real(value)
             if out is None or not math.isfinite(out):

@@ -1,0 +1,196 @@
+"""The learners' shared API: registry, parameters, state, trial method, argument errors."""
+
+import math
+
+import numpy as np
+import pytest
+
+from rigloop.errors import BadArgument
+from rigloop.learners import (
+    LEARNERS,
+    TD,
+    KalmanFilter,
+    KalmanTD,
+    RescorlaWagner,
+    TrialResult,
+    make_learner,
+)
+
+KINDS = {
+    "rescorla_wagner": ("reward", False),
+    "kalman_filter": ("reward", True),
+    "td": ("value", False),
+    "kalman_td": ("value", True),
+}
+
+
+def feed(learner, X, r):
+    """Per-row updates in the trial method's order (the terminal row after the last)."""
+    if learner.kind == "reward":
+        return [learner.update(x, float(v)) for x, v in zip(X, r, strict=True)]
+    X_next = np.vstack([X[1:], np.zeros((1, X.shape[1]))])
+    return [learner.update(x, xn, float(v)) for x, xn, v in zip(X, X_next, r, strict=True)]
+
+
+@pytest.mark.parametrize("name", list(KINDS))
+def test_registry_and_class_attributes(name):
+    """LEARNERS maps each name to its class; kind and bayesian say which corner it fills."""
+    cls = LEARNERS[name]
+    assert cls.name == name
+    assert (cls.kind, cls.bayesian) == KINDS[name]
+    learner = make_learner(name, 3)
+    assert isinstance(learner, cls) and learner.w.shape == (3,)
+    assert learner.w.dtype == np.float64 and learner.w.flags.writeable
+    if cls.bayesian:
+        assert learner.cov.shape == (3, 3)
+
+
+@pytest.mark.parametrize("name", list(KINDS))
+def test_params_rebuild_an_equal_fresh_learner(name):
+    """make_learner(l.name, l.n_features, **l.params()) gives the same parameters, fresh."""
+    params = {"rescorla_wagner": {"alpha": [0.1, 0.2, 0.3]},
+              "kalman_filter": {"diffusion": 0.1, "noise": 2.0, "prior_var": 3.0},
+              "td": {"alpha": 0.2, "gamma": 0.8, "lam": 0.5},
+              "kalman_td": {"gamma": 0.7, "diffusion": 0.1, "noise": 2.0, "prior_var": 3.0}}
+    learner = make_learner(name, 3, **params[name])
+    feed(learner, np.eye(3), np.ones(3))
+    again = make_learner(learner.name, learner.n_features, **learner.params())
+    assert again.params() == learner.params() == params[name]
+    assert not again.w.any()
+    for value in learner.params().values():
+        assert type(value) in (float, list)
+
+
+@pytest.mark.parametrize("name", list(KINDS))
+def test_learn_trial_equals_updates(name):
+    """The trial method gives exactly the per-row updates (same errors, same state)."""
+    rng = np.random.default_rng(3)
+    a, b = make_learner(name, 4), make_learner(name, 4)
+    for _ in range(5):
+        X, r = rng.normal(size=(6, 4)), rng.normal(size=6)
+        result = a.learn_trial(X, r)
+        if name == "td":
+            b.reset_trace()
+        errors = feed(b, X, r)
+        assert isinstance(result, TrialResult)
+        assert result.errors.tolist() == errors
+        assert (result.variances is None) == (not a.bayesian)
+        assert np.array_equal(a.w, b.w)
+        if a.bayesian:
+            assert np.array_equal(a.cov, b.cov)
+    with pytest.raises(ValueError):
+        result.values[0] = 1.0  # results are read-only
+
+
+@pytest.mark.parametrize("name", list(KINDS))
+def test_state_round_trip_through_plain_lists(name):
+    """state() → lists (as msgpack would carry them) → from_state() is exact, and the copy
+    then makes identical updates."""
+    rng = np.random.default_rng(7)
+    learner = make_learner(name, 3)
+    learner.learn_trial(rng.normal(size=(4, 3)), rng.normal(size=4))
+    if name == "td":
+        feed(learner, rng.normal(size=(2, 3)), rng.normal(size=2))  # mid-trial trace
+    state = learner.state()
+    assert all(isinstance(v, (float, np.ndarray)) for v in state.values())
+    plain = {k: v.tolist() if isinstance(v, np.ndarray) else v for k, v in state.items()}
+    copy = type(learner).from_state(plain)
+    assert copy.params() == learner.params()
+    for key, value in state.items():
+        assert np.array_equal(copy.state()[key], value)
+    X, r = rng.normal(size=(5, 3)), rng.normal(size=5)
+    assert feed(copy, X, r) == feed(learner, X, r)
+    assert np.array_equal(copy.w, learner.w)
+
+
+def test_writable_weights_and_covariance():
+    """w and cov can be set (copied in) or written in place, and the learner uses them."""
+    kf = KalmanFilter(2, diffusion=0.0, noise=1.0, prior_var=1.0)
+    kf.w = np.array([0.5, 0.5])
+    kf.cov = np.diag([2.0, 3.0])
+    kf.w[1] = 1.0
+    assert kf.predict(np.array([1.0, 1.0])) == (1.5, 5.0)
+    with pytest.raises(BadArgument, match=r"^'cov' must be a symmetric matrix"):
+        kf.cov = np.array([[1.0, 0.5], [0.0, 1.0]])
+
+
+# --------------------------------------------------------------------------- errors
+
+
+def test_gamma_out_of_range_message():
+    with pytest.raises(BadArgument, match=r"^'gamma' must be a number in \[0, 1\] \(got 1\.5\)$"):
+        TD(3, gamma=1.5)
+
+
+def test_negative_alpha_message():
+    with pytest.raises(BadArgument, match=r"^'alpha' must be a finite number >= 0 \(got -1\.0\)$"):
+        RescorlaWagner(3, alpha=-1.0)
+
+
+def test_wrong_shape_message():
+    with pytest.raises(BadArgument,
+                       match=r"^'x' must be a float array of shape \(3,\) \(got shape \(2,\)\)$"):
+        KalmanTD(3).update(np.ones(2), np.zeros(3), 1.0)
+
+
+def test_nan_row_message_and_state_untouched():
+    """A NaN in x_next is named, and the learner's state is left exactly as it was."""
+    ktd = KalmanTD(3, gamma=0.9, diffusion=0.1)
+    ktd.update(np.ones(3), np.zeros(3), 1.0)
+    w, cov = ktd.w.copy(), ktd.cov.copy()
+    bad = np.array([0.0, math.nan, 0.0])
+    with pytest.raises(BadArgument, match=r"^'x_next' must be a float array of shape \(3,\) "
+                                          r"with finite entries \(got nan at index 1\)$"):
+        ktd.update(np.ones(3), bad, 1.0)
+    assert np.array_equal(ktd.w, w) and np.array_equal(ktd.cov, cov)
+
+
+def test_unknown_learner_name_message():
+    with pytest.raises(BadArgument, match=r"^'name' must be one of 'rescorla_wagner', "
+                                          r"'kalman_filter', 'td', 'kalman_td' \(got 'rw'\)$"):
+        make_learner("rw", 2)
+
+
+@pytest.mark.parametrize("make, call, argument", [
+    (lambda: RescorlaWagner(2), lambda l: l.update(np.ones(2), math.inf), "r"),
+    (lambda: RescorlaWagner(2), lambda l: l.update([1.0, "a"], 1.0), "x"),
+    (lambda: RescorlaWagner(2), lambda l: l.update(np.ones(2), "1"), "r"),
+    (lambda: RescorlaWagner(2), lambda l: l.update(np.ones(2), True), "r"),
+    (lambda: KalmanFilter(2), lambda l: l.update(np.array([math.inf, 0.0]), 1.0), "x"),
+    (lambda: KalmanFilter(2), lambda l: l.learn_trial(np.ones((2, 2)), np.ones(3)), "r"),
+    (lambda: KalmanFilter(2), lambda l: l.learn_trial(np.ones(2), np.ones(1)), "X"),
+    (lambda: TD(2), lambda l: l.update(np.ones(2), np.full(2, math.nan), 0.0), "x_next"),
+    (lambda: TD(2), lambda l: l.learn_trial(np.full((1, 2), math.nan), [0.0]), "X"),
+    (lambda: KalmanTD(2), lambda l: l.update(np.ones(2), np.zeros(2), math.nan), "r"),
+    (lambda: KalmanTD(2), lambda l: l.predict(np.ones(3)), "x"),
+])
+@pytest.mark.filterwarnings("ignore:invalid value encountered:RuntimeWarning")  # inf·0 in a dot
+def test_bad_inputs_name_the_argument(make, call, argument):
+    """Wrong shapes, NaN/inf and non-numbers raise BadArgument naming the argument."""
+    learner = make()
+    with pytest.raises(BadArgument) as info:
+        call(learner)
+    assert info.value.argument == argument
+    assert isinstance(info.value, ValueError)
+
+
+@pytest.mark.parametrize("make, argument", [
+    (lambda: RescorlaWagner(0), "n_features"),
+    (lambda: RescorlaWagner(2.5), "n_features"),
+    (lambda: RescorlaWagner(2, alpha=math.nan), "alpha"),
+    (lambda: RescorlaWagner(2, alpha=[0.1, -0.1]), "alpha"),
+    (lambda: RescorlaWagner(2, alpha=[0.1, 0.1, 0.1]), "alpha"),
+    (lambda: TD(2, lam=-0.1), "lam"),
+    (lambda: TD(2, gamma=math.nan), "gamma"),
+    (lambda: KalmanFilter(2, diffusion=-1.0), "diffusion"),
+    (lambda: KalmanFilter(2, noise=0.0), "noise"),
+    (lambda: KalmanTD(2, prior_var=math.inf), "prior_var"),
+    (lambda: KalmanTD(2, gamma=True), "gamma"),
+    (lambda: make_learner("td", 2, beta=1.0), "params"),
+    (lambda: KalmanTD.from_state({"w": [0.0]}), "state"),
+])
+def test_bad_parameters_name_the_argument(make, argument):
+    """Out-of-range or non-finite parameters raise BadArgument naming the parameter."""
+    with pytest.raises(BadArgument) as info:
+        make()
+    assert info.value.argument == argument

@@ -1,0 +1,342 @@
+"""The rule engine: open a session, fold in a finished trial, decide the next one.
+
+All three are pure functions of their arguments and return new values:
+
+* ``open_session`` resets the session counters and rolls the day's water tally;
+* ``observe`` folds one finished trial into counters, runs, choice history,
+  staircase, SPRT and water tallies;
+* ``decide`` checks the session-end criteria, then stage moves, then the block's
+  end; then the next-cue policy draws the cue, one uniform draw arms the reward
+  against the reward policy's probability, and the welfare limits have the last word.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import math
+from dataclasses import dataclass, replace
+from typing import Any
+
+import numpy as np
+
+from ..performance import dprime as _dprime
+from ..performance import sprt_bounds
+from .expr import Env, evaluate, fmt
+from .model import Block, Spec, Stage
+from .policies import choose_cue, reward_prob, staircase_step
+from .state import ScheduleState
+from .welfare import Offer, apply_limits, water_warnings
+
+
+@dataclass(frozen=True, slots=True)
+class Plan:
+    """A decision without its address: the ``rigloop.trial.Decision`` fields other than
+    subject, session, trial and valve_ms."""
+
+    cue: str | None
+    reward_prob: float
+    reward_ul: float
+    reward_armed: bool
+    block: str
+    stage: str
+    end_session: bool = False
+    difficulty: float | None = None
+    reasons: tuple[str, ...] = ()
+    overrides: tuple[str, ...] = ()
+    warnings: tuple[str, ...] = ()
+
+    def as_kwargs(self) -> dict[str, Any]:
+        return {name: getattr(self, name) for name in self.__dataclass_fields__}
+
+
+# --------------------------------------------------------------------------- expression env
+
+
+_COUNTERS = (
+    "trials_in_block", "trials_in_stage", "trials_in_session", "blocks_in_stage", "sessions_in_stage",
+    "correct_in_block", "ul_session", "ul_today", "misses_in_row", "unrewarded_in_row", "hits",
+    "misses", "false_alarms", "correct_rejections", "right_bias", "sprt_llr",
+)
+
+
+def session_minutes(s: ScheduleState) -> float:
+    return max(0.0, s.last_wall - s.session_start) / 60.0
+
+
+class ScheduleEnv(Env):
+    """Answers expression names from the schedule state and functions from the view.
+
+    ``cue`` is what the placeholder ``cue`` means (per-cue policy parameters).
+    """
+
+    def __init__(self, sched: ScheduleState, view, block: Block | None, cue: str | None = None):
+        self.sched, self.view, self.block, self.cue = sched, view, block, cue
+
+    def name(self, name: str) -> float | bool:
+        s = self.sched
+        if name in _COUNTERS:
+            return float(getattr(s, name))
+        if name == "session_min":
+            return session_minutes(s)
+        if name in ("dprime", "bias_c"):
+            if s.hits + s.misses == 0 or s.false_alarms + s.correct_rejections == 0:
+                return math.nan
+            d, c = _dprime(s.hits, s.misses, s.false_alarms, s.correct_rejections, correction="loglinear")
+            return float(d if name == "dprime" else c)
+        if name == "sprt_accept":
+            return s.sprt_verdict == "accept_h1"
+        if name == "sprt_reject":
+            return s.sprt_verdict == "accept_h0"
+        if name == "difficulty":
+            return math.nan if s.stair_level is None else float(s.stair_level)
+        if name == "reversals":
+            return float(s.stair_reversals)
+        raise KeyError(name)  # pragma: no cover - the checker admits only known names
+
+    def call(self, func: str, args) -> float:
+        cue = self.cue if args[0] == "cue" else args[0]
+        v = self.view
+        if func == "value":
+            return float(v.value_mean(cue))
+        if func == "sd":
+            return float(v.value_sd(cue))
+        if func == "p_value_above":
+            return float(v.prob_value_above(cue, float(args[1])))
+        if func == "p_correct":
+            return float(v.p_correct(cue))
+        if func == "p_above_chance":
+            return float(v.prob_above_chance(cue))
+        if func in ("p_lower", "p_upper"):
+            level = float(args[1]) if len(args) > 1 else 0.95
+            if not 0.0 < level < 1.0:
+                return math.nan
+            lo, hi = v.p_interval(cue, level)
+            return float(lo if func == "p_lower" else hi)
+        raise KeyError(func)  # pragma: no cover
+
+
+# --------------------------------------------------------------------------- state moves
+
+
+def _block_reset(block: Block) -> dict[str, Any]:
+    return {
+        "block": block.name, "trials_in_block": 0, "correct_in_block": 0, "hits": 0, "misses": 0,
+        "false_alarms": 0, "correct_rejections": 0,
+        "stair_level": block.staircase.start if block.staircase else None,
+        "stair_correct_run": 0, "stair_wrong_run": 0, "stair_last_dir": 0, "stair_reversals": 0,
+        "sprt_llr": 0.0, "sprt_verdict": "continue", "queue": (),
+    }
+
+
+def enter_block(spec: Spec, sched: ScheduleState, stage: Stage, block: str) -> ScheduleState:
+    return replace(sched, **_block_reset(stage.blocks[block]))
+
+
+def enter_stage(spec: Spec, sched: ScheduleState, stage: str, sessions: int = 1) -> ScheduleState:
+    st = spec.stages[stage]
+    sched = replace(sched, stage=stage, trials_in_stage=0, blocks_in_stage=0, sessions_in_stage=sessions)
+    return enter_block(spec, sched, st, st.first_block)
+
+
+def start_subject(spec: Spec) -> ScheduleState:
+    """The schedule of a subject that has never trained: the first stage's first block."""
+    return enter_stage(spec, ScheduleState(stage=spec.first_stage, block=""), spec.first_stage, sessions=0)
+
+
+def utc_day(wall_time: float) -> str:
+    return _dt.datetime.fromtimestamp(float(wall_time), tz=_dt.timezone.utc).date().isoformat()
+
+
+def open_session(spec: Spec, sched: ScheduleState, session: str, wall_time: float) -> ScheduleState:
+    """A new session: session counters and runs reset; stage and block kept (or the
+    stage's first block, when the stage says ``new_session = "first_block"``); the
+    day's water tally restarts when the UTC date differs from the last session's."""
+    notes: list[str] = list(sched.notes)
+    if sched.stage not in spec.stages:
+        notes.append(f"stage '{sched.stage}' is not in rule file '{spec.name}'; starting at '{spec.first_stage}'")
+        sched = enter_stage(spec, sched, spec.first_stage, sessions=0)
+    stage = spec.stages[sched.stage]
+    if sched.block not in stage.blocks:
+        notes.append(f"block '{sched.block}' is not in stage '{stage.name}'; starting at '{stage.first_block}'")
+        sched = enter_block(spec, sched, stage, stage.first_block)
+    elif stage.new_session == "first_block" and sched.block != stage.first_block:
+        sched = enter_block(spec, sched, stage, stage.first_block)
+    day = utc_day(wall_time)
+    return replace(
+        sched,
+        session=session, session_start=float(wall_time), last_wall=float(wall_time), session_ended=False,
+        trials_in_session=0, ul_session=0.0, misses_in_row=0, unrewarded_in_row=0,
+        sessions_in_stage=sched.sessions_in_stage + 1, queue=(), last_cue=None, run_len=0,
+        last_armed=None, day=day, ul_today=sched.ul_today if day == sched.day else 0.0, notes=tuple(notes),
+    )
+
+
+def trial_cue(spec: Spec, block: Block | None, cue_ids) -> str | None:
+    """The cue a trial is scored under: the first of the block's cues it showed, else
+    the first declared cue it showed."""
+    ids = set(cue_ids)
+    if block is not None:
+        for c in block.cues:
+            if c in ids:
+                return c
+    for c in cue_ids:
+        if c in spec.cues:
+            return c
+    return None
+
+
+def observe(spec: Spec, sched: ScheduleState, event) -> ScheduleState:
+    """Fold one finished trial (a ``TrialEvent``) into the schedule."""
+    stage = spec.stages.get(sched.stage)
+    block = stage.blocks.get(sched.block) if stage else None
+    cue = trial_cue(spec, block, event.cue_ids)
+    role = spec.cues[cue].role if cue else "plain"
+    if role == "go_nogo":
+        role = "go" if block is not None and cue in block.contingency and block.contingency[cue].rewarded else "nogo"
+    result = event.response.result
+    correct, incorrect = result == "correct", result == "incorrect"
+    ch: dict[str, Any] = {
+        "trials_total": sched.trials_total + 1,
+        "trials_in_session": sched.trials_in_session + 1,
+        "trials_in_stage": sched.trials_in_stage + 1,
+        "trials_in_block": sched.trials_in_block + 1,
+        "correct_in_block": sched.correct_in_block + int(correct),
+    }
+    # go/no-go counts, and the no-response run (a correct no-go trial leaves it as it was)
+    misses_in_row = sched.misses_in_row
+    if role == "go":
+        ch["hits" if correct else "misses"] = getattr(sched, "hits" if correct else "misses") + 1
+        misses_in_row = 0 if correct else misses_in_row + 1
+    elif role == "nogo":
+        if incorrect:
+            ch["false_alarms"] = sched.false_alarms + 1
+            misses_in_row = 0
+        else:
+            ch["correct_rejections"] = sched.correct_rejections + 1
+    else:
+        misses_in_row = 0 if (correct or incorrect) else misses_in_row + 1
+    ch["misses_in_row"] = misses_in_row
+    ul = float(event.outcome.reward_ul)
+    ch["unrewarded_in_row"] = 0 if ul > 0 else sched.unrewarded_in_row + 1
+    ch["ul_session"] = sched.ul_session + ul
+    ch["ul_today"] = sched.ul_today + ul
+    ch["last_wall"] = max(sched.last_wall, float(event.wall_time) + float(event.duration or 0.0))
+    if block is not None and block.staircase is not None and (correct or incorrect):
+        ch.update(staircase_step(block.staircase, sched, correct))
+    if block is not None and block.sprt is not None and (correct or incorrect):
+        t = block.sprt
+        if sched.sprt_verdict == "continue" and (t.cond == "all" or t.cond == cue):
+            # Lambda += ln(p1/p0) on a success, ln((1 - p1)/(1 - p0)) on a failure (Wald 1945)
+            llr = sched.sprt_llr + (math.log(t.p1 / t.p0) if correct else math.log((1 - t.p1) / (1 - t.p0)))
+            ln_b, ln_a = sprt_bounds(t.alpha, t.beta)
+            ch["sprt_llr"] = llr
+            ch["sprt_verdict"] = "accept_h1" if llr >= ln_a else "accept_h0" if llr <= ln_b else "continue"
+    side = event.response.value
+    if side in ("left", "right"):
+        window = block.next_cue.window if block is not None and block.next_cue.kind == "anti_bias" else 10
+        # b <- b + (x - b) / window, x = 1 for a right choice
+        ch["right_bias"] = sched.right_bias + ((1.0 if side == "right" else 0.0) - sched.right_bias) / window
+        ch["n_choices"] = sched.n_choices + 1
+    return replace(sched, **ch)
+
+
+# --------------------------------------------------------------------------- decide
+
+
+def decide(spec: Spec, sched: ScheduleState, view, next_trial: int,
+           rng: np.random.Generator) -> tuple[ScheduleState, Plan]:
+    """The next trial's plan, and the schedule after any block/stage move it made."""
+    reasons: list[str] = []
+    warnings: list[str] = list(sched.notes)
+    sched = replace(sched, notes=())
+    if sched.stage not in spec.stages or sched.block not in spec.stages[sched.stage].blocks:
+        warnings.append(f"stage/block '{sched.stage}'/'{sched.block}' not in the rule file; starting over")
+        sched = enter_stage(spec, sched, spec.first_stage, sessions=max(1, sched.sessions_in_stage))
+    if sched.session_ended:
+        return sched, Plan(None, 0.0, 0.0, False, sched.block, sched.stage, True,
+                           reasons=("session already ended",), warnings=tuple(warnings))
+
+    end = False
+    for crit in spec.session_end:
+        block = spec.stages[sched.stage].blocks[sched.block]
+        hit, seen = evaluate(crit.when, ScheduleEnv(sched, view, block))
+        if hit:
+            end = True
+            reasons.append(f"session ends ({crit.name}): {'; '.join(seen)}")
+            break
+
+    if not end:
+        sched = _moves(spec, sched, view, reasons)
+
+    stage = spec.stages[sched.stage]
+    block = stage.blocks[sched.block]
+    cue, p, why_p = None, 0.0, None
+    if not end:
+        cue, changes, why_cue = choose_cue(block, sched, view, rng, spec.cues)
+        sched = replace(sched, **changes)
+        reasons.append(why_cue)
+        p, why_p, pw = reward_prob(block.reward, block, cue, lambda c: ScheduleEnv(sched, view, block, c))
+        reasons.append(why_p)
+        warnings.extend(pw)
+    u = float(rng.random()) if not end else 1.0
+    ul = block.contingency[cue].ul if cue is not None else 0.0
+    rewarded = {c: block.contingency[c].ul for c in block.rewarded_cues()}
+    offer, overrides, wwarn = apply_limits(
+        spec.welfare, Offer(cue, p, ul, False, end), u,
+        session_min=session_minutes(sched), unrewarded_in_row=sched.unrewarded_in_row,
+        ul_session=sched.ul_session, ul_today=sched.ul_today, rewarded=rewarded,
+        rescue_ul=spec.welfare.rescue_ul or _largest_ul(spec),
+    )
+    if offer.end_session and not end:
+        wwarn = water_warnings(spec.welfare, session_minutes(sched), sched.ul_session, sched.ul_today, True)
+    warnings.extend(wwarn)
+    difficulty = None
+    if block.staircase is not None and not offer.end_session:
+        st = block.staircase
+        difficulty = float(sched.stair_level if sched.stair_level is not None else st.start)
+        reasons.append(f"difficulty {st.parameter} = {fmt(difficulty)} (staircase {st.up}-up-{st.down}-down, "
+                       f"{sched.stair_reversals} reversals)")
+    sched = replace(sched, last_armed=offer.reward_armed, session_ended=offer.end_session)
+    plan = Plan(
+        cue=offer.cue, reward_prob=float(offer.reward_prob), reward_ul=float(offer.reward_ul),
+        reward_armed=bool(offer.reward_armed), block=sched.block, stage=sched.stage,
+        end_session=offer.end_session, difficulty=difficulty, reasons=tuple(reasons),
+        overrides=tuple(overrides), warnings=tuple(warnings),
+    )
+    return sched, plan
+
+
+def _moves(spec: Spec, sched: ScheduleState, view, reasons: list[str]) -> ScheduleState:
+    """At most one move per decision: step back, else advance, else the block's end."""
+    stage = spec.stages[sched.stage]
+    block = stage.blocks[sched.block]
+    env = ScheduleEnv(sched, view, block)
+    for move, verb in ((stage.step_back, "steps back"), (stage.advance, "advances")):
+        if move is None:
+            continue
+        hit, seen = evaluate(move.when, env)
+        if hit:
+            reasons.append(f"stage '{stage.name}' {verb} to '{move.to}': {'; '.join(seen)} "
+                           f"after {sched.trials_in_stage} trials in the stage")
+            return enter_stage(spec, sched, move.to)
+    end = block.end
+    n = sched.trials_in_block
+    if end is None or n < end.min_trials or n == 0:
+        return sched
+    why = None
+    if end.max_trials is not None and n >= end.max_trials:
+        why = f"block '{block.name}' ended: {n} trials reached max_trials {end.max_trials}"
+    elif end.when is not None:
+        hit, seen = evaluate(end.when, env)
+        if hit:
+            why = f"block '{block.name}' ended: {'; '.join(seen)} after {n} trials"
+    if why is None:
+        return sched
+    reasons.append(f"{why} -> block '{end.then}'")
+    sched = enter_block(spec, sched, stage, end.then)
+    return replace(sched, blocks_in_stage=sched.blocks_in_stage + 1)
+
+
+def _largest_ul(spec: Spec) -> float:
+    return max((k.ul for s in spec.stages.values() for b in s.blocks.values() for k in b.contingency.values()),
+               default=0.0)

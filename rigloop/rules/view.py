@@ -1,0 +1,79 @@
+"""SubjectView: what the rules may read from the subject's models.
+
+The subject layer implements it over the learner and the learning curves; the rules
+never see either. ``StaticView`` is a fixed view for tests and for ``rigloop check``.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping
+from typing import Protocol, runtime_checkable
+
+
+@runtime_checkable
+class SubjectView(Protocol):
+    def value_mean(self, cue: str) -> float:
+        """Posterior mean value of the cue at its onset."""
+
+    def value_sd(self, cue: str) -> float:
+        """Posterior sd of that value (0 for point learners)."""
+
+    def prob_value_above(self, cue: str, threshold: float) -> float:
+        """P(value > threshold) under the Gaussian posterior (a 0/1 step for point learners)."""
+
+    def p_correct(self, cond: str) -> float:
+        """State-space estimate of P(correct); ``cond`` is a cue id or ``"all"``."""
+
+    def p_interval(self, cond: str, level: float) -> tuple[float, float]:
+        """Two-sided credible interval of P(correct) at ``level``."""
+
+    def prob_above_chance(self, cond: str) -> float:
+        """P(response probability > chance)."""
+
+
+class StaticView:
+    """A view with fixed numbers: ``mean``/``sd`` per cue, ``correct`` per condition.
+
+    The interval is ``correct ± halfwidth`` clipped to [0, 1] (any level);
+    ``above_chance`` defaults to 1 when correct > 0.5, else 0.
+    """
+
+    def __init__(
+        self,
+        mean: Mapping[str, float] | None = None,
+        sd: Mapping[str, float] | None = None,
+        correct: Mapping[str, float] | None = None,
+        halfwidth: float = 0.1,
+        above_chance: Mapping[str, float] | None = None,
+    ):
+        self.mean = dict(mean or {})
+        self.sd = dict(sd or {})
+        self.correct = dict(correct or {})
+        self.halfwidth = float(halfwidth)
+        self.above_chance = dict(above_chance or {})
+
+    def value_mean(self, cue: str) -> float:
+        return float(self.mean.get(cue, 0.0))
+
+    def value_sd(self, cue: str) -> float:
+        return float(self.sd.get(cue, 0.0))
+
+    def prob_value_above(self, cue: str, threshold: float) -> float:
+        m, s = self.value_mean(cue), self.value_sd(cue)
+        if s <= 0:
+            return 1.0 if m > threshold else 0.0
+        # P(V > t) for V ~ N(m, s^2)
+        return 0.5 * math.erfc((threshold - m) / (s * math.sqrt(2.0)))
+
+    def p_correct(self, cond: str) -> float:
+        return float(self.correct.get(cond, 0.5))
+
+    def p_interval(self, cond: str, level: float) -> tuple[float, float]:
+        p = self.p_correct(cond)
+        return max(0.0, p - self.halfwidth), min(1.0, p + self.halfwidth)
+
+    def prob_above_chance(self, cond: str) -> float:
+        if cond in self.above_chance:
+            return float(self.above_chance[cond])
+        return 1.0 if self.p_correct(cond) > 0.5 else 0.0

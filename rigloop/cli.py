@@ -26,7 +26,20 @@ def _add_demo(sub: argparse._SubParsersAction) -> None:
     p.set_defaults(func=run)
 
 
-COMMANDS = [_add_demo]
+def _add_check(sub: argparse._SubParsersAction) -> None:
+    p = sub.add_parser("check", help="validate a rule file (and a rig profile) and print its plan")
+    p.add_argument("rules", help="a rule file path, or the name of a shipped example (e.g. tone_reversal)")
+    p.add_argument("--profile", default=None, help="a rig profile path or name from rig_profiles/")
+
+    def run(args: argparse.Namespace) -> int:
+        from .rules.plan import run_check
+
+        return run_check(args.rules, args.profile)
+
+    p.set_defaults(func=run)
+
+
+COMMANDS = [_add_demo, _add_check]
 
 
 def build_parser() -> argparse.ArgumentParser:

@@ -25,8 +25,10 @@ def test_zero_diffusion_is_bayesian_regression_on_h():
         X = (rng.random((T, n)) < 0.4).astype(float)
         r = np.where(rng.random(T) < 0.3, 1.0, 0.0)
         ktd.learn_trial(X, r)
-        H.append(trial_rows(X, gamma))
-        R.append(r)
+        # learn_trial skips steps out of a featureless row (module docstring)
+        keep = X.any(axis=1)
+        H.append(trial_rows(X, gamma)[keep])
+        R.append(r[keep])
     H, R = np.vstack(H), np.concatenate(R)
     cov = np.linalg.inv(np.eye(n) / c + H.T @ H / noise)
     np.testing.assert_allclose(ktd.cov, cov, rtol=0, atol=1e-10)
@@ -115,3 +117,31 @@ def test_trial_result_values_and_variances():
         x_next = X[t + 1] if t < 3 else np.zeros(3)
         assert out.errors[t] == b.update(X[t], x_next, float(r[t]))
     assert np.array_equal(a.w, b.w) and np.array_equal(a.cov, b.cov)
+
+
+def test_featureless_pre_cue_rows_do_not_drag_cue_values():
+    """A trial that starts with empty (pre-cue) rows learns the same cue weights as one
+    that starts at the cue: the unpredictable ITI -> cue transition is not evidence
+    that the cue is worth nothing. Target weights gamma**(L-1-j) for a cue on L bins
+    with reward on leaving its last bin (methods.md §3 [C])."""
+    import numpy as np
+
+    from rigloop.learners import KalmanTD
+
+    L, gamma, pre = 5, 0.9, 3
+    cue = np.eye(L)
+    with_pre = np.vstack([np.zeros((pre, L)), cue])
+    r_cue = np.zeros(L)
+    r_cue[-1] = 1.0
+    r_pre = np.concatenate([np.zeros(pre), r_cue])
+    a = KalmanTD(L, gamma=gamma, diffusion=0.0, noise=0.1, prior_var=10.0)
+    b = KalmanTD(L, gamma=gamma, diffusion=0.0, noise=0.1, prior_var=10.0)
+    for _ in range(300):
+        a.learn_trial(with_pre, r_pre)
+        res = b.learn_trial(cue, r_cue)
+    np.testing.assert_allclose(a.w, b.w, rtol=0, atol=1e-12)
+    np.testing.assert_allclose(a.w, gamma ** np.arange(L - 1, -1, -1), atol=0.02)
+    out = a.learn_trial(with_pre, r_pre)
+    # the error on entering the cue is gamma * V(onset) (Schultz, Dayan & Montague 1997)
+    assert out.errors[pre - 1] == pytest.approx(gamma * a.w[0], rel=1e-3)
+    assert res.errors[-1] == pytest.approx(0.0, abs=0.05)

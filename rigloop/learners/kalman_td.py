@@ -4,6 +4,15 @@ Geist & Pietquin (2010); Gershman (2015); methods.md §4. The reward on the step
 x' is observed through the row h = x − γx' (this sign: r = hᵀw + ε says
 r = V(x) − γV(x') + ε), with the same diffusion-then-correction as the Kalman filter
 of conditioning. The error δ = r − hᵀŵ = r + γV(x') − V(x) is the TD error.
+
+Within a trial, ``learn_trial`` learns only from transitions out of a represented
+state (a row with some feature on). A featureless row — the time before the first cue —
+stands for a state whose successor the animal cannot predict (which cue comes, and
+when, is the experimenter's draw); a Bellman residual on the step from it into the
+cue would read as the observation 0 = −γV(cue) and drag every cue's value towards
+zero (the bias under stochastic transitions that Geist & Pietquin describe). Such a
+step still reports its TD error δ = r + γV(x') — the onset response — but changes
+neither the mean nor the covariance. ``update`` itself applies whatever it is given.
 """
 
 from __future__ import annotations
@@ -84,6 +93,10 @@ class KalmanTD(_Gaussian):
             x_next = X[t + 1] if t + 1 < T else self._zero
             values[t] = float(x @ self._w)
             variances[t] = self._variance(x)
+            if not x.any():
+                # featureless state: report the error, learn nothing (see module docstring)
+                errors[t] = float(r[t]) + self._gamma * float(x_next @ self._w)
+                continue
             # h = x − γx'
             np.multiply(x_next, self._gamma_0d, h)
             np.subtract(x, h, h)

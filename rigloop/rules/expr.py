@@ -487,11 +487,17 @@ class _Checker:
 
     def _call(self, n: ast.Call, depth, col, end):
         if not isinstance(n.func, ast.Name):
+            what = next((w for k, w in _FORBIDDEN.items() if isinstance(n.func, k)), None)
+            if what is not None:
+                return self.fail(n.func, f"{what} not allowed in rule expressions")
             return self.fail(n.func, "only the listed functions can be called", allowed_hint("functions"))
         fname = n.func.id
         spec = FUNCTIONS.get(fname)
         if spec is None:
             return self.fail(n.func, f"unknown function '{fname}'", allowed_hint("functions"))
+        for a in n.args:
+            if isinstance(a, ast.Starred):
+                return self.fail(a, "starred arguments not allowed in rule expressions")
         if n.keywords:
             return self.fail(n.keywords[0].value, f"{fname}() takes no keyword arguments")
         nargs = len(n.args)

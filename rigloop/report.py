@@ -1,0 +1,109 @@
+"""Plots of a subject's learning: cue values with uncertainty bands, the learning curve,
+prediction errors and reward, with block and stage changes marked.
+
+The only module that imports matplotlib (the ``report`` extra). It reads plain rows
+(as ``Store.rows`` yields them, or as exported), so it works on live data and on
+replayed or simulated sessions alike.
+"""
+
+from __future__ import annotations
+
+import re
+from collections.abc import Iterable, Mapping, Sequence
+from typing import Any
+
+_VALUE = re.compile(r"^value\[(.+)\]$")
+
+
+def _series(rows: Sequence[Mapping[str, Any]], name: str) -> list[float]:
+    return [float("nan") if r.get(name) is None else float(r[name]) for r in rows]
+
+
+def _changes(decisions: Sequence[Mapping[str, Any]], key: str) -> list[tuple[int, str]]:
+    """(x position, new label) wherever ``key`` changes between consecutive decisions."""
+    out, last = [], None
+    for i, d in enumerate(decisions):
+        label = d.get(key)
+        if label != last:
+            out.append((i, str(label)))
+            last = label
+    return out
+
+
+def plot_subject(
+    quantities: Iterable[Mapping[str, Any]],
+    decisions: Iterable[Mapping[str, Any]],
+    path: str,
+    *,
+    title: str | None = None,
+    chance: float | None = 0.5,
+) -> str:
+    """Write a four-panel PNG (or PDF/SVG by extension) of one subject's trials to ``path``.
+
+    ``quantities``: per-trial rows with ``value[cue]``, ``sd[cue]``, ``delta_cue``,
+    ``delta_outcome``, ``p_correct``, ``p_lo95``, ``p_hi95``. ``decisions``: the decision
+    rows that followed each trial (``block``, ``stage``, ``reward_prob``). Returns ``path``.
+    """
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+    import numpy as np
+
+    q = list(quantities)
+    d = list(decisions)
+    x = np.arange(1, len(q) + 1)
+    cues = sorted({m.group(1) for row in q for k in row for m in [_VALUE.match(k)] if m})
+
+    fig, axes = plt.subplots(4, 1, figsize=(10, 10), sharex=True, constrained_layout=True)
+    ax = axes[0]
+    for cue in cues:
+        mean = np.array(_series(q, f"value[{cue}]"))
+        sd = np.array(_series(q, f"sd[{cue}]"))
+        ok = ~np.isnan(mean)
+        (line,) = ax.plot(x[ok], mean[ok], ".-", ms=3, lw=1, label=cue)
+        if np.any(np.nan_to_num(sd[ok]) > 0):
+            ax.fill_between(x[ok], mean[ok] - sd[ok], mean[ok] + sd[ok], color=line.get_color(), alpha=0.2, lw=0)
+    ax.set_ylabel("value at cue onset\n(mean ± sd)")
+    ax.legend(loc="upper left", fontsize=8, ncol=max(1, len(cues)))
+
+    ax = axes[1]
+    p = np.array(_series(q, "p_correct"))
+    lo, hi = np.array(_series(q, "p_lo95")), np.array(_series(q, "p_hi95"))
+    ax.plot(x, p, color="k", lw=1.2, label="P(correct)")
+    ax.fill_between(x, lo, hi, color="0.6", alpha=0.4, lw=0, label="95% band")
+    if chance is not None:
+        ax.axhline(chance, color="r", ls=":", lw=1, label="chance")
+    ax.set_ylim(0, 1)
+    ax.set_ylabel("response\nprobability")
+    ax.legend(loc="lower right", fontsize=8)
+
+    ax = axes[2]
+    ax.plot(x, _series(q, "delta_cue"), ".", ms=3, label="δ at cue onset")
+    ax.plot(x, _series(q, "delta_outcome"), ".", ms=3, label="δ at outcome")
+    ax.axhline(0, color="0.5", lw=0.5)
+    ax.set_ylabel("prediction error")
+    ax.legend(loc="upper right", fontsize=8)
+
+    ax = axes[3]
+    if d:
+        ax.step(np.arange(1, len(d) + 1), [float(r.get("reward_prob", np.nan)) for r in d], where="post",
+                color="tab:green", label="reward probability (next trial)")
+    ax.set_ylim(-0.05, 1.05)
+    ax.set_ylabel("reward\nprobability")
+    ax.set_xlabel("trial (all sessions, in order)")
+
+    for i, label in _changes(d, "block")[1:]:
+        for a in axes:
+            a.axvline(i + 0.5, color="tab:purple", lw=0.8, ls="--")
+        axes[0].annotate(label, (i + 0.5, 1.0), xycoords=("data", "axes fraction"), fontsize=7,
+                         color="tab:purple", rotation=90, va="top", ha="right")
+    for i, label in _changes(d, "stage")[1:]:
+        for a in axes:
+            a.axvline(i + 0.5, color="tab:orange", lw=1.2)
+        axes[3].annotate(f"stage {label}", (i + 0.5, 0.02), xycoords=("data", "axes fraction"),
+                         fontsize=7, color="tab:orange", rotation=90, va="bottom", ha="right")
+    fig.suptitle(title or "rigloop report")
+    fig.savefig(path, dpi=110)
+    plt.close(fig)
+    return path

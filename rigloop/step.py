@@ -1,0 +1,215 @@
+"""The one step function, shared by the daemon, replay, simulation and fitting.
+
+``step(state, event, rules) -> (state', decision, update)`` folds one finished trial
+into a subject's state and decides the next trial. It is pure and deterministic: the
+same state, event and rules give the same result bit for bit. Its only randomness is
+a generator seeded by (session seed, trial number), so replaying a stored session
+reproduces every live decision, and crash recovery is a replay.
+
+``begin_session`` is the same for the moment a session opens: it resets the
+session's counters and decides trial 1.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import math
+from collections.abc import Mapping
+from dataclasses import dataclass, replace
+from typing import Any
+
+import numpy as np
+
+from .errors import BadEvent
+from .performance import LearningCurve
+from .subject import ALL, ModelView, SessionContext, SubjectState, learner_key, new_learner, representation_for
+from .trial import Decision, TrialEvent
+
+
+@dataclass(frozen=True, slots=True)
+class Update:
+    """The per-trial model quantities: what the learner saw and how it changed.
+
+    ``quantities`` is a flat map of regressors (stored and exported per trial):
+    ``value[cue]`` / ``sd[cue]`` at onset before learning, ``delta_cue`` (prediction
+    error at the first cue's onset), ``delta_outcome`` (at the reward, or at the time it
+    was due), ``p_correct`` with its 95% band, and ``surprise`` (the largest |δ|/sd).
+    ``values`` / ``errors`` are per time step (one entry for reward learners).
+    """
+
+    subject: str
+    session: str
+    trial: int
+    quantities: Mapping[str, float | None]
+    values: np.ndarray
+    errors: np.ndarray
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "subject": self.subject,
+            "session": self.session,
+            "trial": self.trial,
+            "quantities": dict(self.quantities),
+            "values": [float(v) for v in self.values],
+            "errors": [float(e) for e in self.errors],
+        }
+
+
+def session_seed(subject: str, session: str) -> int:
+    """A default seed when the rig gives none: stable across machines and runs."""
+    digest = hashlib.sha256(f"{subject}\x00{session}".encode()).digest()
+    return int.from_bytes(digest[:8], "big") >> 1
+
+
+def trial_rng(seed: int, trial: int) -> np.random.Generator:
+    """The generator for decisions about ``trial``: a function of (seed, trial) alone."""
+    return np.random.default_rng([seed & 0xFFFFFFFFFFFFFFFF, trial])
+
+
+def _decide(state: SubjectState, rules, learner, curves, schedule, next_trial: int, extra_warnings=()):
+    ctx = state.context
+    rep = representation_for(rules)
+    view = ModelView(learner, rep, curves, rules.performance.chance, rules.performance.sigma2)
+    schedule, plan = rules.decide(schedule, view, next_trial, trial_rng(ctx.seed, next_trial))
+    kwargs = plan.as_kwargs()
+    if extra_warnings:
+        kwargs["warnings"] = tuple(extra_warnings) + tuple(kwargs.get("warnings", ()))
+    valve_ms = None
+    if ctx.valve is not None and kwargs["reward_ul"] > 0:
+        slope, offset = ctx.valve
+        valve_ms = max(0.0, slope * kwargs["reward_ul"] + offset)
+    decision = Decision(subject=state.subject, session=ctx.session, trial=next_trial, valve_ms=valve_ms, **kwargs)
+    return schedule, decision
+
+
+def begin_session(
+    state: SubjectState,
+    rules,
+    *,
+    session: str,
+    rig: str,
+    wall_time: float,
+    seed: int | None = None,
+    valve: tuple[float, float] | None = None,
+) -> tuple[SubjectState, Decision]:
+    """Open a session: fix its seed, reset session counters, decide trial 1.
+
+    If the rule file's learner or features differ from what the animal's learner was
+    built for, the learner starts fresh and the decision carries a warning saying so.
+    """
+    if seed is None:
+        seed = session_seed(state.subject, session)
+    warnings = []
+    learner = state.learner
+    key = learner_key(rules)
+    curves = state.curves
+    if key != state.learner_key:
+        learner = new_learner(rules)
+        curves = {}
+        warnings.append(
+            "this rule file's learner or cue features differ from the ones this animal's model was "
+            "built with: the model starts from its prior"
+        )
+    ctx = SessionContext(session=session, rig=rig, seed=int(seed), rules_sha256=rules.sha256, valve=valve)
+    schedule = rules.open_session(state.schedule, session, float(wall_time))
+    state = replace(state, learner=learner, learner_key=key, curves=curves, context=ctx, last_trial=0)
+    schedule, decision = _decide(state, rules, learner, curves, schedule, 1, warnings)
+    state = replace(state, schedule=schedule, context=replace(ctx, first_decision=decision.to_dict()))
+    return state, decision
+
+
+def _scored(event: TrialEvent) -> bool | None:
+    """True/False for a scored response; None for omitted or unscored trials.
+
+    Omissions are left out of the learning curve (common practice for choice tasks);
+    they count towards disengagement in the schedule instead.
+    """
+    result = event.response.result
+    if result == "correct":
+        return True
+    if result == "incorrect":
+        return False
+    return None
+
+
+def _delta_at(errors: np.ndarray, step: int) -> float:
+    return float(errors[min(max(step, 0), len(errors) - 1)])
+
+
+def step(state: SubjectState, event: TrialEvent, rules) -> tuple[SubjectState, Decision, Update]:
+    """Fold one finished trial into the state and decide the next trial.
+
+    Raises BadEvent (nothing changed) when the event does not fit the session: wrong
+    subject or session, a cue the rule file does not use, or a trial number that does
+    not follow the last one.
+    """
+    ctx = state.context
+    if ctx is None:
+        raise BadEvent("session", "has not been opened for this subject", event.session)
+    if event.subject != state.subject:
+        raise BadEvent("subject", f"does not match this state's subject {state.subject!r}", event.subject)
+    if event.session != ctx.session:
+        raise BadEvent("session", f"is not the subject's open session {ctx.session!r}", event.session)
+    if ctx.rules_sha256 != rules.sha256:
+        raise BadEvent("session", "was opened with a different rule file than the one given", event.session)
+    event.check_context(known_cues=rules.cues, last_trial=state.last_trial)
+
+    rep = representation_for(rules)
+    learner = state.learner_copy()
+    unit = rules.reward_unit_ul
+
+    # value and sd of each presented cue at its onset, before this trial's learning
+    quantities: dict[str, float | None] = {}
+    for cue in event.cue_ids:
+        mean, var = learner.predict(rep.onset_row(cue))
+        quantities[f"value[{cue}]"] = float(mean)
+        quantities[f"sd[{cue}]"] = math.sqrt(max(float(var), 0.0))
+
+    rows = rep.rows(
+        [(c.cue, c.onset, c.offset) for c in event.cues],
+        [(t, amount / unit) for t, amount in event.outcome_events()],
+        event.duration,
+    )
+    result = learner.learn_trial(rows.X, rows.r)
+    values, errors = np.asarray(result.values), np.asarray(result.errors)
+
+    if rep.timed:
+        first = event.cues[0].cue if event.cues else None
+        onset = rows.onset_steps.get(first, 0) if first else 0
+        gamma = float(getattr(learner, "gamma", 1.0))
+        # the error on entering the onset step: from the step before, or from the ITI (value 0)
+        quantities["delta_cue"] = _delta_at(errors, onset - 1) if onset > 0 else gamma * float(values[0])
+        due = event.outcome.reward_time if event.outcome.rewarded else (max(c.offset for c in event.cues) if event.cues else None)
+        if due is None:
+            quantities["delta_outcome"] = None
+        else:
+            quantities["delta_outcome"] = _delta_at(errors, int(math.floor(due / rep.dt + 1e-9)) - 1)
+    else:
+        quantities["delta_cue"] = float(values[0]) if len(values) else None
+        quantities["delta_outcome"] = float(errors[0]) if len(errors) else None
+    if result.variances is not None:
+        sd = np.sqrt(np.maximum(np.asarray(result.variances), 0.0) + float(getattr(learner, "noise", 0.0)))
+        quantities["surprise"] = float(np.max(np.abs(errors) / np.where(sd > 0, sd, 1.0))) if len(errors) else None
+
+    # learning curves: every presented cue and the pooled condition
+    scored = _scored(event)
+    curves = dict(state.curves)
+    if scored is not None:
+        chance, sigma2 = rules.performance.chance, rules.performance.sigma2
+        for cond in (ALL, *event.cue_ids):
+            curve = state.curve(cond, chance, sigma2)
+            curve.update(scored)
+            curves[cond] = curve.state()
+    all_curve = curves.get(ALL)
+    if all_curve is not None:
+        c = LearningCurve.from_state(all_curve)
+        lo, hi = c.interval(0.95)
+        quantities.update({"p_correct": float(c.p()), "p_lo95": float(lo), "p_hi95": float(hi)})
+
+    schedule = rules.observe(state.schedule, event)
+    next_state = replace(state, learner=learner, curves=curves, schedule=schedule,
+                         last_trial=event.trial, trials_total=state.trials_total + 1)
+    schedule, decision = _decide(next_state, rules, learner, curves, schedule, event.trial + 1)
+    next_state = replace(next_state, schedule=schedule)
+    update = Update(state.subject, ctx.session, event.trial, quantities, values, errors)
+    return next_state, decision, update

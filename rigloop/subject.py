@@ -1,0 +1,285 @@
+"""SubjectState: everything one animal carries from trial to trial.
+
+The state is the animal's learner (weights and, for Bayesian learners, their
+covariance), one learning curve per condition, and the schedule (stage, block,
+counters, staircase, welfare tallies) owned by the rules package. It is a value:
+``step`` never changes a state it is given, it returns a new one.
+
+``to_bytes`` / ``from_bytes`` give an exact, deterministic byte round trip (msgpack),
+used for snapshots: ``to_bytes(from_bytes(b)) == b``.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import math
+from collections.abc import Mapping
+from dataclasses import dataclass, field, replace
+from typing import Any
+
+import msgpack
+import numpy as np
+
+from .errors import BadArgument, StoreError
+from .features import make_representation
+from .learners import LEARNERS, make_learner
+from .performance import LearningCurve
+
+STATE_FORMAT = 1
+ALL = "all"  # the condition that pools every scored trial
+
+
+@dataclass(frozen=True, slots=True)
+class SessionContext:
+    """The session a subject is in: its id, rig, seed and the rule file's hash."""
+
+    session: str
+    rig: str
+    seed: int
+    rules_sha256: str
+    valve: tuple[float, float] | None = None  # (ms per µL, ms offset) from the rig profile's fit
+    first_decision: Mapping[str, Any] | None = None
+
+
+@dataclass(frozen=True, slots=True)
+class SubjectState:
+    """One animal's whole state between trials.
+
+    ``learner`` is owned by this value: never mutate it; ``step`` works on a copy.
+    ``curves`` maps a condition (a cue id, or ``"all"``) to its LearningCurve state dict.
+    ``schedule`` is the rules package's ScheduleState.
+    """
+
+    subject: str
+    learner: Any
+    learner_key: str
+    curves: Mapping[str, Mapping[str, Any]]
+    schedule: Any
+    context: SessionContext | None = None
+    last_trial: int = 0
+    trials_total: int = 0
+    notes: tuple[str, ...] = field(default=())
+
+    # -- copies ---------------------------------------------------------------
+
+    def learner_copy(self):
+        """A private copy of the learner that a step may update in place."""
+        return type(self.learner).from_state(self.learner.state())
+
+    def curve(self, condition: str, chance: float, sigma2: float) -> LearningCurve:
+        data = self.curves.get(condition)
+        if data is None:
+            return LearningCurve(chance, sigma2)
+        return LearningCurve.from_state(data)
+
+    # -- bytes ----------------------------------------------------------------
+
+    def to_bytes(self) -> bytes:
+        ctx = self.context
+        doc = {
+            "format": STATE_FORMAT,
+            "subject": self.subject,
+            "learner": {"name": self.learner.name, "key": self.learner_key, "state": _pack_arrays(self.learner.state())},
+            "curves": {k: dict(sorted(v.items())) for k, v in sorted(self.curves.items())},
+            "schedule": self.schedule.to_dict(),
+            "context": None
+            if ctx is None
+            else {
+                "session": ctx.session,
+                "rig": ctx.rig,
+                "seed": ctx.seed,
+                "rules_sha256": ctx.rules_sha256,
+                "valve": list(ctx.valve) if ctx.valve else None,
+                "first_decision": dict(ctx.first_decision) if ctx.first_decision else None,
+            },
+            "last_trial": self.last_trial,
+            "trials_total": self.trials_total,
+            "notes": list(self.notes),
+        }
+        return msgpack.packb(doc, use_bin_type=True)
+
+    @classmethod
+    def from_bytes(cls, blob: bytes, schedule_type) -> SubjectState:
+        """Rebuild a state; ``schedule_type`` is the rules package's ScheduleState class."""
+        try:
+            doc = msgpack.unpackb(blob, raw=False, strict_map_key=True)
+        except Exception as err:  # msgpack's errors share no base class
+            raise StoreError(f"subject state snapshot is unreadable ({type(err).__name__}: {err})") from None
+        if not isinstance(doc, dict) or doc.get("format") != STATE_FORMAT:
+            raise StoreError(f"subject state snapshot has format {doc.get('format') if isinstance(doc, dict) else '?'}, "
+                             f"this rigloop reads format {STATE_FORMAT}")
+        learner_cls = LEARNERS[doc["learner"]["name"]]
+        learner = learner_cls.from_state(_unpack_arrays(doc["learner"]["state"]))
+        c = doc["context"]
+        context = None
+        if c is not None:
+            context = SessionContext(
+                session=c["session"],
+                rig=c["rig"],
+                seed=c["seed"],
+                rules_sha256=c["rules_sha256"],
+                valve=tuple(c["valve"]) if c["valve"] else None,
+                first_decision=c["first_decision"],
+            )
+        return cls(
+            subject=doc["subject"],
+            learner=learner,
+            learner_key=doc["learner"]["key"],
+            curves=doc["curves"],
+            schedule=schedule_type.from_dict(doc["schedule"]),
+            context=context,
+            last_trial=doc["last_trial"],
+            trials_total=doc["trials_total"],
+            notes=tuple(doc["notes"]),
+        )
+
+    def digest(self) -> str:
+        """sha256 of the bytes: two states are identical exactly when digests are."""
+        return hashlib.sha256(self.to_bytes()).hexdigest()
+
+
+def _pack_arrays(state: Mapping[str, Any]) -> dict[str, Any]:
+    out: dict[str, Any] = {}
+    for key in sorted(state):
+        value = state[key]
+        if isinstance(value, np.ndarray):
+            arr = np.ascontiguousarray(value)
+            out[key] = {"nd": arr.dtype.str, "shape": list(arr.shape), "data": arr.tobytes()}
+        elif isinstance(value, np.generic):
+            out[key] = value.item()
+        else:
+            out[key] = value
+    return out
+
+
+def _unpack_arrays(state: Mapping[str, Any]) -> dict[str, Any]:
+    out: dict[str, Any] = {}
+    for key, value in state.items():
+        if isinstance(value, dict) and "nd" in value:
+            out[key] = np.frombuffer(value["data"], dtype=np.dtype(value["nd"])).reshape(value["shape"]).copy()
+        else:
+            out[key] = value
+    return out
+
+
+# --------------------------------------------------------------------------- model wiring
+
+
+def representation_for(rules):
+    """The feature representation a rule file asks for (cached per rule file)."""
+    return _representation(rules.features.kind, tuple(rules.cues), rules.features.dt,
+                           rules.features.n_bins, rules.features.decay)
+
+
+_REP_CACHE: dict[tuple, Any] = {}
+
+
+def _representation(kind, cues, dt, n_bins, decay):
+    key = (kind, cues, dt, n_bins, decay)
+    rep = _REP_CACHE.get(key)
+    if rep is None:
+        from .features import CueList
+
+        rep = make_representation(kind, CueList(cues), dt=dt, n_bins=n_bins, decay=decay)
+        if len(_REP_CACHE) > 64:
+            _REP_CACHE.clear()
+        _REP_CACHE[key] = rep
+    return rep
+
+
+def learner_key(rules) -> str:
+    """What the learner's weights mean: learner, parameters, features and cue columns.
+
+    Two rule files with the same key can hand an animal's learner from one session to
+    the next; otherwise the learner starts fresh (and the decision says so).
+    """
+    f = rules.features
+    params = ",".join(f"{k}={v!r}" for k, v in sorted(rules.learner.params.items()))
+    return f"{rules.learner.name}({params})|{f.kind}:dt={f.dt!r}:bins={f.n_bins!r}:decay={f.decay!r}|{','.join(rules.cues)}"
+
+
+def new_learner(rules):
+    rep = representation_for(rules)
+    return make_learner(rules.learner.name, rep.n_features, **dict(rules.learner.params))
+
+
+def new_subject(subject: str, rules) -> SubjectState:
+    """A subject that has never trained: prior learner, no curves, the rules' start."""
+    if not isinstance(subject, str) or not subject:
+        raise BadArgument("subject", "a non-empty string", subject)
+    return SubjectState(
+        subject=subject,
+        learner=new_learner(rules),
+        learner_key=learner_key(rules),
+        curves={},
+        schedule=rules.start_subject(),
+    )
+
+
+# --------------------------------------------------------------------------- the view rules read
+
+
+class ModelView:
+    """What a rule expression may read from the model: the ``SubjectView`` protocol.
+
+    Values are computed lazily and cached, so a rule that asks for one cue's value
+    costs one small quadratic form.
+    """
+
+    __slots__ = ("_learner", "_rep", "_curves", "_chance", "_sigma2", "_cache")
+
+    def __init__(self, learner, rep, curves: Mapping[str, Mapping[str, Any]], chance: float, sigma2: float):
+        self._learner = learner
+        self._rep = rep
+        self._curves = curves
+        self._chance = chance
+        self._sigma2 = sigma2
+        self._cache: dict[tuple, Any] = {}
+
+    def _value(self, cue: str) -> tuple[float, float]:
+        key = ("v", cue)
+        hit = self._cache.get(key)
+        if hit is None:
+            mean, var = self._learner.predict(self._rep.onset_row(cue))
+            hit = (float(mean), math.sqrt(max(float(var), 0.0)))
+            self._cache[key] = hit
+        return hit
+
+    def value_mean(self, cue: str) -> float:
+        return self._value(cue)[0]
+
+    def value_sd(self, cue: str) -> float:
+        return self._value(cue)[1]
+
+    def prob_value_above(self, cue: str, threshold: float) -> float:
+        mean, sd = self._value(cue)
+        if sd <= 0.0:
+            return 1.0 if mean > threshold else 0.0
+        # P(V > t) for V ~ N(mean, sd^2)
+        return 0.5 * math.erfc((threshold - mean) / (sd * math.sqrt(2.0)))
+
+    def _curve(self, cond: str) -> LearningCurve:
+        key = ("c", cond)
+        hit = self._cache.get(key)
+        if hit is None:
+            data = self._curves.get(cond)
+            hit = LearningCurve(self._chance, self._sigma2) if data is None else LearningCurve.from_state(data)
+            self._cache[key] = hit
+        return hit
+
+    def p_correct(self, cond: str) -> float:
+        return float(self._curve(cond).p())
+
+    def p_interval(self, cond: str, level: float) -> tuple[float, float]:
+        lo, hi = self._curve(cond).interval(level)
+        return float(lo), float(hi)
+
+    def prob_above_chance(self, cond: str) -> float:
+        return float(self._curve(cond).prob_above_chance())
+
+    def trials_in_condition(self, cond: str) -> int:
+        return int(self._curve(cond).n)
+
+
+def with_context(state: SubjectState, **changes) -> SubjectState:
+    return replace(state, **changes)

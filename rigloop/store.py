@@ -239,6 +239,7 @@ class Store:
         self._lock = threading.RLock()
         self._broken: str | None = None
         self._conn: sqlite3.Connection | None = None
+        self._known_sessions: set[tuple[str, str]] = set()
         exists = os.path.exists(self.path)
         if not exists and not create:
             raise StoreError(f"{self.path}: no store there (create=False)")
@@ -503,38 +504,41 @@ class Store:
                 if isinstance(p, RigloopError):
                     out.append(CommitResult(None, False, p))
                     continue
-                c.execute("SAVEPOINT item")
                 try:
                     out.append(self._commit_one(c, p))
-                    c.execute("RELEASE item")
-                except RigloopError as err:
-                    c.execute("ROLLBACK TO item")
-                    c.execute("RELEASE item")
+                except RigloopError as err:  # raised before the item wrote anything (see _commit_one)
                     out.append(CommitResult(None, False, err))
             return out
 
         return self._write(work)
 
     def _commit_one(self, c: sqlite3.Connection, p: _Prepared) -> CommitResult:
+        """Write one prepared trial inside the caller's transaction.
+
+        Invariant that commit_batch relies on (no savepoint per item): a RigloopError is
+        raised only before this item changed anything; once the trial row is inserted,
+        only SQLite errors can follow, and those abort the whole transaction."""
         ev = p.event
-        row = c.execute("SELECT event FROM trials WHERE subject = ? AND session = ? AND trial = ?",
-                        (ev.subject, ev.session, ev.trial)).fetchone()
-        if row is not None:
-            if row[0] != p.event_text and TrialEvent.from_dict(json.loads(row[0])) != ev:
-                raise ConflictingTrial(ev.subject, ev.session, ev.trial)
-            stored = c.execute("SELECT decision FROM decisions WHERE subject = ? AND session = ? AND trial = ?",
-                               (ev.subject, ev.session, ev.trial)).fetchone()
-            return CommitResult(Decision.from_dict(json.loads(stored[0])), True)
-        if c.execute("SELECT 1 FROM sessions WHERE subject = ? AND session = ?", (ev.subject, ev.session)).fetchone() is None:
-            raise StoreError(f"session {ev.session!r} of subject {ev.subject!r} was never opened; "
-                             "open_session() comes before its trials")
-        first_cue = ev.cues[0].cue if ev.cues else None
         key = (ev.subject, ev.session, ev.trial)
-        c.execute(
+        if (ev.subject, ev.session) not in self._known_sessions:
+            if c.execute("SELECT 1 FROM sessions WHERE subject = ? AND session = ?", key[:2]).fetchone() is None:
+                raise StoreError(f"session {ev.session!r} of subject {ev.subject!r} was never opened; "
+                                 "open_session() comes before its trials")
+            self._known_sessions.add(key[:2])  # sessions are never deleted, so this stays true
+        first_cue = ev.cues[0].cue if ev.cues else None
+        inserted = c.execute(
             "INSERT INTO trials (subject, session, trial, rig, wall_time, first_cue, reward_ul, result, event) "
-            "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
+            "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?) ON CONFLICT DO NOTHING",
             (*key, ev.rig, ev.wall_time, first_cue, ev.outcome.reward_ul, ev.response.result, p.event_text),
-        )
+        ).rowcount
+        if inserted != 1:  # the key is taken: a retry (same event) or a conflict
+            stored_event = c.execute("SELECT event FROM trials WHERE subject = ? AND session = ? AND trial = ?",
+                                     key).fetchone()[0]
+            if stored_event != p.event_text and TrialEvent.from_dict(json.loads(stored_event)) != ev:
+                raise ConflictingTrial(*key)
+            stored = c.execute("SELECT decision FROM decisions WHERE subject = ? AND session = ? AND trial = ?",
+                               key).fetchone()
+            return CommitResult(Decision.from_dict(json.loads(stored[0])), True)
         d = p.decision
         c.execute(
             "INSERT INTO decisions (subject, session, trial, next_trial, cue, block, stage, reward_armed, "

@@ -25,7 +25,7 @@ from .expr import Env, evaluate, fmt
 from .model import Block, Spec, Stage
 from .policies import choose_cue, reward_prob, staircase_step
 from .state import ScheduleState
-from .welfare import Offer, apply_limits, water_warnings
+from .welfare import Offer, apply_limits
 
 
 @dataclass(frozen=True, slots=True)
@@ -287,8 +287,6 @@ def decide(spec: Spec, sched: ScheduleState, view, next_trial: int,
         ul_session=sched.ul_session, ul_today=sched.ul_today, rewarded=rewarded,
         rescue_ul=spec.welfare.rescue_ul or _largest_ul(spec),
     )
-    if offer.end_session and not end:
-        wwarn = water_warnings(spec.welfare, session_minutes(sched), sched.ul_session, sched.ul_today, True)
     warnings.extend(wwarn)
     difficulty = None
     if block.staircase is not None and not offer.end_session:

@@ -243,6 +243,9 @@ class Store:
         exists = os.path.exists(self.path)
         if not exists and not create:
             raise StoreError(f"{self.path}: no store there (create=False)")
+        folder = os.path.dirname(os.path.abspath(self.path))
+        if not exists and not os.path.isdir(folder):
+            raise StoreError(f"{self.path}: cannot create the store, directory {folder} does not exist")
         if exists:
             _check_header(self.path)
         try:

@@ -468,7 +468,8 @@ def _build(data: dict[str, Any], source: str | None) -> ColumnMap:
         subject=fields["subject"], session=fields["session"], trial=fields["trial"], rig=fields["rig"],
         wall_time=fields.get("wall_time"), duration=fields.get("duration"), cues=tuple(cues),
         reward_ul=rw.get("reward_ul"), reward_given=rw.get("rewarded"),
-        volume_ul=volume if "rewarded" in outcome else None, reward_time=rw.get("reward_time"), punishment=rw.get("punishment"), punishment_time=rw.get("punishment_time"),
+        volume_ul=volume if "rewarded" in outcome else None, reward_time=rw.get("reward_time"),
+        punishment=rw.get("punishment"), punishment_time=rw.get("punishment_time"),
         timeout_s=rw.get("timeout_s"), kind=rs.get("kind"), value=rs.get("value"), result=rs.get("result"),
         latency=rs.get("latency"), extra=tuple(extra), delimiter=delimiter, encoding=encoding, source=source,
     )

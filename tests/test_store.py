@@ -269,6 +269,8 @@ def test_damaged_and_foreign_files_are_refused(tmp_path):
         Store(foreign)
     with pytest.raises(StoreError, match=r"no store there \(create=False\)$"):
         Store(tmp_path / "missing.db", create=False)
+    with pytest.raises(StoreError, match=r"cannot create the store, directory .*/nodir does not exist$"):
+        Store(tmp_path / "nodir" / "x.db")
 
 
 def test_pragmas_check_and_statistics(store):

@@ -10,9 +10,10 @@ Every variant writes N trials to a fresh SQLite file in WAL mode with synchronou
   batch k     Store.commit_batch with k trials per transaction (group commit), k = 1, 8, 32
 
 The variants run interleaved, 32 trials at a time each, so machine noise hits all of
-them alike; each figure is the median over repetitions. ``ratio`` is bare_inserts_per_s / trials_per_s (how many times
-slower a full commit is than a bare insert). Use --dir on the disk the daemon will use:
-on tmpfs fsync costs nothing and the figures mean little.
+them alike; each figure is the median over repetitions. ``ratio`` is
+bare_inserts_per_s / trials_per_s (how many times slower a full commit is than a bare
+insert). Use --dir on the disk the daemon will use: on tmpfs fsync costs nothing and
+the figures mean little.
 
     python tools/bench/store.py [--json] [--trials 1000] [--reps 5] [--dir PATH]
 """

@@ -28,6 +28,7 @@ from __future__ import annotations
 import hashlib
 import json
 import math
+import numbers
 import os
 import sqlite3
 import threading
@@ -748,7 +749,8 @@ def _quantities(quantities: Mapping[str, float | None]) -> dict[str, float | Non
                               "subject, session, trial, seq", name)
         if value is None:
             out[name] = None
-        elif isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
+        elif isinstance(value, bool) or not isinstance(value, numbers.Real) or not math.isfinite(value):
+            # numbers.Real admits numpy scalars (float32, int64) as well as int and float
             raise BadArgument(f"quantities[{name!r}]", "a finite number or None (None for undefined)", value)
         else:
             out[name] = float(value)

@@ -194,6 +194,15 @@ def test_bad_arguments_name_the_field(store):
     assert store.last_trial("m01", "s1") == 0
 
 
+def test_numpy_scalars_are_accepted_as_quantities(store):
+    """Model code hands numpy scalars; they are stored as plain floats."""
+    import numpy as np
+
+    store.commit_trial(event(1), decision(1), {"v": np.float32(0.5), "n": np.int64(3), "sd": np.float64(0.25)})
+    assert next(store.rows("quantities")) == {"subject": "m01", "session": "s1", "trial": 1,
+                                              "n": 3.0, "sd": 0.25, "v": 0.5}
+
+
 def test_close_session_first_close_wins(store):
     """Closing twice keeps the first time; closing an unknown session is an error."""
     assert store.close_session("m01", "s1", 500.0).closed_at == 500.0

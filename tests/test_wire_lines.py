@@ -27,6 +27,7 @@ from rigloop.wire import (
     format_request_line,
     parse_reply_line,
     parse_request_line,
+    serial_key,
 )
 from strategies_wire import replies, requests
 
@@ -75,7 +76,7 @@ def test_checksum_worked_example():
 
 def test_checksum_mismatch_message_pinned():
     """A wrong checksum names what the line said and what its bytes give."""
-    with pytest.raises(MessageError, match=r"^checksum mismatch: the line ends in \*0000 but its bytes give \*46B8$") as info:
+    with pytest.raises(MessageError, match=r"^checksum mismatch: the line says 0000 but its bytes give 46B8$") as info:
         parse_request_line(b"PING id=1*0000\n")
     assert info.value.code == "checksum" and info.value.request_id is None
 
@@ -433,3 +434,44 @@ def test_byte_by_byte_equals_all_at_once(data, draw):
     for a, b in zip([0] + cuts, cuts + [len(data)]):
         dec.feed(data[a:b])
     assert list(dec) == whole
+
+
+def test_serial_key_translates_field_names():
+    """Field names of the msgpack encoding map to the serial keys a firmware author sees."""
+    assert serial_key("session") == "sess" and serial_key("trial") == "n"
+    assert serial_key("event.outcome.reward_ul") == "rew" and serial_key("event.extra.contrast") == "x.contrast"
+    assert serial_key("event.cues[tone].onset") == "cues" and serial_key("decision.valve_ms") == "valve"
+    assert serial_key("rules") == "rules"
+
+
+def _doc_text() -> str:
+    import pathlib
+
+    root = pathlib.Path(__file__).parents[1]
+    return "".join(p.read_text(encoding="utf-8") for p in (root / "docs" / "protocol.md", root / "README.md") if p.exists())
+
+
+def test_documented_serial_exchange_is_valid():
+    """Every '>' and '<' line of the documented serial exchange parses (checksums included);
+    each reply written there is exactly what format_reply_line writes for it."""
+    lines = [ln for ln in _doc_text().splitlines() if ln.startswith(("> ", "< "))]
+    assert len(lines) >= 10
+    for ln in lines:
+        raw = ln[2:].encode() + b"\n"
+        if ln.startswith(">"):
+            try:
+                parse_request_line(raw)
+            except MessageError as err:
+                assert err.code in ("bad_field", "checksum"), ln  # the exchange shows two faulty lines on purpose
+        else:
+            assert format_reply_line(parse_reply_line(raw, require_checksum=True)) == raw, ln
+
+
+def test_documented_error_replies_match_decoder():
+    """The ERR lines in the documented exchange are what the decoder's errors produce."""
+    doc = _doc_text()
+    for bad in (b"TRIAL id=5 subj=m07 rig=box2 sess=s3 n=13 rew=-4@1", b"PING id=6*0000"):
+        with pytest.raises(MessageError) as info:
+            parse_request_line(bad)
+        line = format_reply_line(ErrorReply.from_error(info.value)).decode().rstrip("\n")
+        assert "< " + line in doc

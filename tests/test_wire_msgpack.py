@@ -289,3 +289,32 @@ def test_wire_imports_no_io():
                 [node.module or ""] if isinstance(node, ast.ImportFrom) and node.level == 0 else [])
             for name in names:
                 assert name.split(".")[0] not in banned, f"{path.name} imports {name}"
+
+
+def test_documented_msgpack_exchange_is_valid():
+    """Each map of the documented ZeroMQ exchange decodes; the faulty trial gives exactly
+    the error reply shown after it."""
+    import json
+    import re
+
+    root = pathlib.Path(__file__).parents[1]
+    doc = "".join(p.read_text(encoding="utf-8") for p in (root / "docs" / "protocol.md", root / "README.md") if p.exists())
+    block = doc.split("### Example exchange (msgpack maps shown as JSON)", 1)[1].split("```")[1]
+    block = "\n".join(ln for ln in block.splitlines() if ln.strip() != "...")
+    parts = re.split(r"(rig →|←)", block)[1:]
+    pairs = [(parts[i], json.loads(parts[i + 1])) for i in range(0, len(parts), 2)]
+    assert len(pairs) == 12
+    pending_error = None
+    for arrow, body in pairs:
+        frame = pack(body)
+        if arrow == "←":
+            reply = decode_reply(frame)
+            if pending_error is not None:
+                assert reply == ErrorReply.from_error(pending_error)
+                pending_error = None
+        else:
+            try:
+                decode_request(frame)
+            except MessageError as err:
+                pending_error = err
+    assert pending_error is None

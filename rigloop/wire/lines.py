@@ -160,6 +160,17 @@ def format_reply_line(reply: Reply, *, checksum: bool = True, max_line: int = MA
     return line
 
 
+def serial_key(field: str) -> str:
+    """The serial key for a field named as in the msgpack encoding, for error replies a
+    daemon sends over serial: ``'session'`` -> ``'sess'``, ``'event.outcome.reward_ul'``
+    -> ``'rew'``, ``'event.extra.contrast'`` -> ``'x.contrast'``; others unchanged."""
+    if field.startswith("event."):
+        return _serial_key(field[len("event.") :], _EVENT_KEYS)
+    if field.startswith("decision."):
+        return _serial_key(field[len("decision.") :], _DECISION_KEYS)
+    return _serial_key(field, {**_DECISION_KEYS, **_EVENT_KEYS})
+
+
 # --------------------------------------------------------------------------- parsing
 
 

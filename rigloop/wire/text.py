@@ -103,7 +103,7 @@ def split_line(line: bytes, *, require_checksum: bool, max_line: int) -> tuple[s
         said, body = m.group(1).decode().upper(), line[:star]
         got = crc16_hex(body)
         if said != got:
-            raise MessageError("checksum", f"checksum mismatch: the line ends in *{said} but its bytes give *{got}")
+            raise MessageError("checksum", f"checksum mismatch: the line says {said} but its bytes give {got}")
     elif require_checksum:
         raise MessageError("checksum", "line has no checksum; this port requires '*XXXX' (CRC-16/CCITT-FALSE) at the end")
     else:

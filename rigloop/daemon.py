@@ -495,6 +495,8 @@ class Daemon:
             if work:
                 self._process(work)
             router.flush()
+            for link in self.serial_links:
+                link.flush()
             self._tend_serial()
 
     def _timeout_ms(self) -> float:
@@ -504,6 +506,8 @@ class Daemon:
         if deadline is not None:
             timeout = min(timeout, 5.0)
         for link in self.serial_links:
+            if link.pending_out:
+                timeout = min(timeout, 5.0)
             if link.reopen_at is not None:
                 timeout = min(timeout, max(0.0, (link.reopen_at - now) * 1000))
         return timeout

@@ -2,7 +2,8 @@
 
 This is the only module that imports ``serial``. A ``SerialLink`` never blocks the
 daemon's loop: its ``fileno()`` goes into the same poller as the ZeroMQ sockets,
-``read()`` returns whatever bytes are waiting, and ``write()`` has a short timeout.
+``read()`` returns whatever bytes are waiting, and ``write()`` queues whole reply
+lines in a bounded buffer that ``flush()`` sends as the port takes them.
 When the device disappears (``SerialException`` / ``OSError``: a USB unplug, or the
 master side of a pseudo-terminal closing) the link closes the port and schedules a
 reopen with exponential backoff; ``generation`` counts successful opens, so the owner
@@ -29,12 +30,13 @@ class SerialLink:
     """One rig's serial port. ``port`` is a device path (a stable ``/dev/serial/by-id``
     link is best); ``rig`` names the rig whose trials arrive on it."""
 
-    def __init__(self, port: str, rig: str, *, baudrate: int = 115200, write_timeout: float = 0.2,
+    def __init__(self, port: str, rig: str, *, baudrate: int = 115200, out_bound: int = 64 * 1024,
                  backoff_initial: float = 0.05, backoff_max: float = 5.0,
                  clock: Callable[[], float] = time.monotonic, on_event: Callable[..., None] | None = None):
         self.port, self.rig = port, rig
         self.baudrate = baudrate
-        self.write_timeout = write_timeout
+        self.out_bound = out_bound
+        self._out = bytearray()
         self.backoff_initial, self.backoff_max = backoff_initial, backoff_max
         self._clock = clock
         self._on_event = on_event or (lambda *a, **k: None)
@@ -44,7 +46,7 @@ class SerialLink:
         self.reopen_at: float | None = clock()
         self.generation = 0
         self.counts = {"opens": 0, "open_failures": 0, "disconnects": 0, "bytes_in": 0, "bytes_out": 0,
-                       "write_failures": 0}
+                       "dropped_replies": 0}
         self.last_error: str | None = None
 
     # -- state ------------------------------------------------------------------
@@ -67,7 +69,6 @@ class SerialLink:
             s.port = self.port
             s.baudrate = self.baudrate
             s.timeout = 0
-            s.write_timeout = self.write_timeout
             s.exclusive = True
             s.open()
         except (serial.SerialException, OSError, ValueError) as err:
@@ -120,23 +121,45 @@ class SerialLink:
         return data
 
     def write(self, data: bytes) -> bool:
-        """Write a reply line; False (and the port is treated as lost on a device error)."""
+        """Queue a reply line and send what the port takes now; never blocks.
+
+        A rig that does not read its replies fills the port's buffer; then whole lines
+        wait here up to ``out_bound`` bytes, and lines beyond that are dropped (counted
+        in ``dropped_replies``); the rig's retry gets the stored decision again.
+        """
         if self._serial is None:
-            self.counts["write_failures"] += 1
+            self.counts["dropped_replies"] += 1
             return False
-        try:
-            self._serial.write(data)
-        except serial.SerialTimeoutException:
-            self.counts["write_failures"] += 1
+        if len(self._out) + len(data) > self.out_bound:
+            self.counts["dropped_replies"] += 1
             return False
-        except (serial.SerialException, OSError) as err:
-            self.counts["write_failures"] += 1
-            self.lost(err)
-            return False
-        self.counts["bytes_out"] += len(data)
+        self._out += data
+        self.flush()
         return True
 
+    @property
+    def pending_out(self) -> int:
+        return len(self._out)
+
+    def flush(self) -> None:
+        """Send queued bytes until the port would block (pyserial opens it O_NONBLOCK)."""
+        while self._out and self._serial is not None:
+            try:
+                n = os.write(self._serial.fileno(), self._out)
+            except BlockingIOError:
+                return
+            except InterruptedError:
+                continue
+            except OSError as err:
+                self.lost(err)
+                return
+            self.counts["bytes_out"] += n
+            del self._out[:n]
+
     def _close(self) -> None:
+        if self._out:
+            self.counts["dropped_replies"] += self._out.count(b"\n")
+            self._out.clear()
         s, self._serial = self._serial, None
         if s is not None:
             try:

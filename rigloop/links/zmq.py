@@ -184,8 +184,9 @@ class RouterLink:
         """One message if one is waiting (never blocks), else None.
 
         DEALER rigs send ``[payload]`` (we see ``[id, payload]``); REQ rigs send
-        ``[b"", payload]`` (we see ``[id, b"", payload]``). Anything else comes back with
-        ``payload=None`` and the envelope to send an error on.
+        ``[b"", payload]`` (we see ``[id, b"", payload]``, or ``[id, request-id, b"",
+        payload]`` with REQ_CORRELATE). Anything else comes back with ``payload=None``
+        and the envelope to send an error on.
         """
         try:
             frames = self.socket.recv_multipart(zmq.NOBLOCK, copy=False)
@@ -203,8 +204,9 @@ class RouterLink:
                 user_id = None
         if n == 2:
             return Incoming((ident,), frames[1].bytes, user_id, n, now)
-        if n == 3 and len(frames[1]) == 0:
-            return Incoming((ident, b""), frames[2].bytes, user_id, n, now)
+        if n in (3, 4) and len(frames[-2]) == 0 and all(len(f) for f in frames[1:-2]):
+            # REQ: [id, b"", payload]; REQ with REQ_CORRELATE: [id, request-id, b"", payload]
+            return Incoming(tuple(f.bytes for f in frames[:-1]), frames[-1].bytes, user_id, n, now)
         self.counts["bad_frames"] += 1
         envelope = (ident, b"") if n > 1 and len(frames[1]) == 0 else (ident,)
         return Incoming(envelope, None, user_id, n, now)

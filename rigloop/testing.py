@@ -334,8 +334,10 @@ class DaemonProcess:
         self.cmd = cmd
         self.log_path = self.data / "serve.log"
         self._log = open(self.log_path, "ab")
+        root = str(Path(__file__).resolve().parent.parent)  # this rigloop, whatever the cwd
+        path = os.pathsep.join([root, os.environ["PYTHONPATH"]]) if os.environ.get("PYTHONPATH") else root
         self.proc = subprocess.Popen(cmd, stdout=self._log, stderr=subprocess.STDOUT, stdin=subprocess.DEVNULL,
-                                     env={**os.environ, **(env or {})})
+                                     env={**os.environ, "PYTHONPATH": path, **(env or {})})
         self.info: dict[str, Any] | None = None
 
     def wait_ready(self, timeout: float = 20.0) -> dict[str, Any]:

@@ -23,7 +23,13 @@ from typing import Any
 
 import serial
 
+from ..errors import RigloopError
+
 SerialException = serial.SerialException
+
+
+class PortBusy(RigloopError, OSError):
+    """Another process holds the port's exclusive lock (raised at start-up only)."""
 
 
 class SerialLink:
@@ -75,7 +81,8 @@ class SerialLink:
             self.counts["open_failures"] += 1
             self.last_error = _describe(err)
             if first and "exclusively lock" in str(err):
-                raise
+                raise PortBusy(f"{self.port}: another process holds this serial port (could not exclusively "
+                               f"lock it); is a second rigloop running?") from None
             self._schedule()
             self._on_event("serial_open_failed", port=self.port, rig=self.rig, error=self.last_error,
                            retry_in_s=round(self._backoff_last, 3))

@@ -406,20 +406,20 @@ class Daemon:
         if "0.0.0.0" in endpoint:
             endpoint = endpoint.replace("0.0.0.0", "127.0.0.1")
         good = ephemeral_client(self._server_keys.public)
-        self.auth.set_allowed({**self._allowed, good.public: "\x00selftest"})
+        self.auth.set_allowed({**self._allowed, good.public: "#selftest"})
         probes = [("unlisted", ephemeral_client(self._server_keys.public), False), ("null", None, False),
                   ("listed", good, True)]
         try:
             for name, keys, expect in probes:
                 client = zlink.DealerLink(self.ctx, endpoint, curve=keys)
                 try:
-                    client.send(b"\x00selftest")
+                    client.send(b"#selftest")
                     got = None
                     deadline = time.monotonic() + (t if expect else t / 2)
                     while time.monotonic() < deadline and got is None:
                         if self.router.socket.poll(20):
                             got = self.router.recv()
-                    passed = (got is not None and got.user_id == "\x00selftest") if expect else got is None
+                    passed = (got is not None and got.user_id == "#selftest") if expect else got is None
                     if not passed:
                         raise SecurityError(f"CURVE self-test failed: a {name} client was "
                                             f"{'refused' if expect else 'let through'}; refusing to serve")

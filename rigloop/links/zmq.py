@@ -358,7 +358,8 @@ class Authenticator:
                 return key in outer._allowed
 
         self._auth.start()
-        self._auth.configure_curve_callback(domain="*", credentials_provider=_Provider())
+        # the domain must be ours: pyzmq maps only an empty domain to "*"
+        self._auth.configure_curve_callback(domain=ZAP_DOMAIN, credentials_provider=_Provider())
         self._auth.curve_user_id = self._user_id  # instance attribute: looked up per call
         self.running = True
 

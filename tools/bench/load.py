@@ -1,0 +1,219 @@
+"""Sustained load: many rigs at once against one daemon, for a fixed time.
+
+``rigloop serve`` runs as its own process (``tone_reversal``: 2 cues, serial-compound
+features, Kalman TD, durable group commits). One client process drives ``--rigs``
+DEALER sockets from a single poll loop; each rig runs its own simulated animal, has one
+trial in flight at a time (send, wait for the decision, make the next trial from it)
+and resends the same trial after ``--timeout`` (Lazy Pirate). Each rig starts a trial
+at most every ``--interval`` seconds (default 0.18 s: 100 rigs offer ~555 trials/s,
+each rig far faster than a real trial); ``--interval 0`` runs closed-loop flat out, which
+measures capacity (latency is then rigs / throughput, by Little's law). At the end the store is
+read back: every trial a rig got a decision for must be stored exactly once.
+
+Reported: ``trials_per_s`` (acknowledged trials over the measured time), ``p99_ms``
+(send-to-decision at the rig, all rigs), ``lost`` (acknowledged trials missing
+from the store, plus trials abandoned after every retry). Targets: >= 500 trials/s,
+p99 <= 50 ms, 0 lost.
+
+    python tools/bench/load.py [--json] [--seconds 60] [--rigs 100] [--dir PATH]
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import statistics
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[2]
+sys.path.insert(0, str(ROOT))
+
+from rigloop import wire  # noqa: E402
+from rigloop.links import zmq as zlink  # noqa: E402
+from rigloop.simulate import SimulatedAnimal  # noqa: E402
+from rigloop.store import Store  # noqa: E402
+from rigloop.testing import DaemonProcess, ZmqRig  # noqa: E402
+
+RULES = "tone_reversal"
+
+
+class Rig:
+    """One simulated rig: a socket, an animal, one request in flight."""
+
+    def __init__(self, ctx, endpoint: str, n: int):
+        self.name = f"rig{n:03d}"
+        self.link = zlink.DealerLink(ctx, endpoint)
+        self.animal = SimulatedAnimal(f"L{n:03d}", seed=n)
+        self.session = 0
+        self.decision = None
+        self.frame = b""
+        self.rid = 0
+        self.sent_at = 0.0
+        self.first_sent = 0.0
+        self.tries = 0
+        self.kind = ""
+        self.wall = time.time()
+        self.acked: list[tuple[str, int]] = []
+        self.due = 0.0  # when the next trial may start (pacing)
+
+
+def main(argv: list[str] | None = None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--seconds", type=float, default=60.0)
+    ap.add_argument("--rigs", type=int, default=100)
+    ap.add_argument("--interval", type=float, default=0.18,
+                    help="each rig starts a trial at most this often (s); 0 = as fast as replies come")
+    ap.add_argument("--timeout", type=float, default=2.0, help="resend a request after this many seconds")
+    ap.add_argument("--retries", type=int, default=10)
+    ap.add_argument("--dir", default=None)
+    ap.add_argument("--json", action="store_true")
+    args = ap.parse_args(argv)
+
+    tmp = tempfile.TemporaryDirectory(dir=args.dir)
+    data = Path(tmp.name) / "data"
+    daemon = DaemonProcess(data, [RULES], ["--no-trial-log", "--log-level", "warning", "--no-publish"],
+                           publish=None)
+    ids = iter(range(1, 1 << 62))
+    try:
+        daemon.wait_ready()
+        ctx = zlink.new_context()
+        rigs = [Rig(ctx, daemon.endpoint, n) for n in range(args.rigs)]
+        by_socket = {r.link.socket: r for r in rigs}
+        poller = zlink.Poller()
+        for r in rigs:
+            poller.register(r.link.socket)
+
+        def send(r: Rig, req) -> None:
+            r.rid = req.id
+            r.frame = wire.encode_request(req)
+            r.kind = req.type
+            r.tries = 1
+            r.first_sent = r.sent_at = time.perf_counter()
+            r.link.send(r.frame)
+
+        def open_next(r: Rig) -> None:
+            r.session += 1
+            send(r, wire.OpenSession(next(ids), r.animal.subject, r.name, f"s{r.session}", RULES))
+
+        def next_trial(r: Rig) -> None:
+            event = r.animal.trial(r.decision, r.name, r.wall)
+            r.wall += 4.0
+            send(r, wire.TrialReport(next(ids), event))
+
+        for r in rigs:
+            open_next(r)
+        latencies: list[float] = []
+        abandoned = 0
+        acked = 0
+        start = time.perf_counter()
+        end = start + args.seconds
+        measuring_from = start + min(2.0, args.seconds / 10)  # skip the first moments (sessions opening)
+        acked_at_measure = None
+        while True:
+            now = time.perf_counter()
+            if now >= end:
+                break
+            if acked_at_measure is None and now >= measuring_from:
+                acked_at_measure, t_measure = acked, now
+            for sock in poller.poll(2):
+                r = by_socket[sock]
+                while True:
+                    raw = r.link.recv_nowait()
+                    if raw is None:
+                        break
+                    reply = wire.decode_reply(raw)
+                    if reply.id != r.rid:
+                        continue  # a late answer to an earlier try
+                    t = time.perf_counter()
+                    if isinstance(reply, wire.ErrorReply):
+                        raise SystemExit(f"{r.name}: error reply {reply.code}: {reply.message}")
+                    r.decision = reply.decision
+                    if r.kind == "trial":
+                        acked += 1
+                        r.acked.append((f"s{r.session}", r.decision.trial - 1))
+                        if t >= measuring_from:
+                            latencies.append((t - r.first_sent) * 1e3)
+                    r.rid = 0
+                    r.due = r.first_sent + args.interval
+                    break
+            now = time.perf_counter()
+            for r in rigs:
+                if not r.rid and r.decision is not None and now >= r.due and now < end:
+                    if r.decision.end_session:
+                        open_next(r)
+                    else:
+                        next_trial(r)
+                    continue
+                # Lazy Pirate: resend the same frame on timeout
+                if r.rid and now - r.sent_at > args.timeout:
+                    if r.tries >= args.retries:
+                        abandoned += 1
+                        r.rid = 0
+                        continue
+                    r.tries += 1
+                    r.sent_at = now
+                    r.link.reopen()
+                    poller.register(r.link.socket)
+                    by_socket[r.link.socket] = r
+                    r.link.send(r.frame)
+        elapsed = time.perf_counter() - t_measure
+        rate = (acked - acked_at_measure) / elapsed
+        # let in-flight requests finish so the store check is exact
+        deadline = time.perf_counter() + 5
+        while any(r.rid for r in rigs) and time.perf_counter() < deadline:
+            for sock in poller.poll(50):
+                r = by_socket[sock]
+                raw = r.link.recv_nowait()
+                if raw is not None and wire.decode_reply(raw).id == r.rid:
+                    r.rid = 0
+        with ZmqRig(daemon.endpoint, "status", timeout_s=2.0, retries=2, ctx=ctx) as probe:
+            status = probe.status()
+        for r in rigs:
+            r.link.close()
+        ctx.term()
+    finally:
+        daemon.terminate(timeout=20)
+        daemon.close()
+    missing = 0  # acknowledged trials not in the store
+    with Store(data / "rigloop.sqlite") as store:
+        stored = store.statistics()["trials"]
+        for r in rigs:
+            for session, trial in r.acked:
+                if store.last_trial(r.animal.subject, session) < trial:
+                    missing += 1
+        acked_total = sum(len(r.acked) for r in rigs)
+    tmp.cleanup()
+    lost = missing + abandoned
+    lat = sorted(latencies)
+    p99 = lat[min(len(lat) - 1, int(0.99 * len(lat)))] if lat else None
+    result = {
+        "rigs": args.rigs,
+        "seconds": args.seconds,
+        "trials_per_s": round(rate, 1),
+        "p50_ms": round(statistics.median(lat), 3) if lat else None,
+        "p99_ms": round(p99, 3) if p99 is not None else None,
+        "lost": lost,
+        "acked": acked_total,
+        "stored": stored,
+        "abandoned": abandoned,
+        "batch_peak": status["queues"]["batch"]["peak"],
+        "daemon_latency_ms": status["latency_ms"],
+        "daemon_ms_per_request": round(1e3 * status["busy_s"] / max(1, status["counts"]["requests"]), 3),
+        "target": {"trials_per_s": 500, "p99_ms": 50, "lost": 0},
+    }
+    result["pass"] = rate >= 500 and p99 is not None and p99 <= 50 and lost == 0
+    if args.json:
+        print(json.dumps(result))
+    else:
+        print(f"{args.rigs} rigs for {args.seconds:.0f} s: {rate:.0f} trials/s, p50 {result['p50_ms']} ms, "
+              f"p99 {result['p99_ms']} ms, lost {lost} (acked {acked_total}, stored {stored}), "
+              f"largest batch {result['batch_peak']}")
+        print(f"target >= 500 trials/s, p99 <= 50 ms, 0 lost: {'PASS' if result['pass'] else 'FAIL'}")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

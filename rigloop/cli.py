@@ -39,7 +39,102 @@ def _add_check(sub: argparse._SubParsersAction) -> None:
     p.set_defaults(func=run)
 
 
-COMMANDS = [_add_demo, _add_check]
+def _add_replay(sub: argparse._SubParsersAction) -> None:
+    p = sub.add_parser("replay", help="feed stored trials through step; compare with the stored decisions")
+    p.add_argument("--db", required=True, help="the SQLite store (e.g. DATA_DIR/rigloop.db)")
+    p.add_argument("--subject", required=True)
+    p.add_argument("--session", default=None, help="replay up to and including this session")
+    p.add_argument("--rules", default=None, help="another rule file (path or example name) to compare with")
+    p.add_argument("--limit", type=int, default=20, help="rows of the differences table (default 20)")
+
+    def run(args: argparse.Namespace) -> int:
+        from .progress import Progress
+        from .replay import format_differences, replay_subject
+        from .rules.load import load_any
+        from .store import Store
+
+        rules = load_any(args.rules) if args.rules else None
+        with Store(args.db, create=False) as store:
+            bar = Progress(0, f"replaying {args.subject}")
+            result = replay_subject(store, args.subject, session=args.session, rules=rules, progress=bar)
+            bar.close()
+        print(result.summary())
+        table = format_differences(result, args.limit)
+        if table:
+            print(table)
+        # with the session's own rules a difference is a fault; with other rules it is the answer
+        return 1 if (result.differing and rules is None) else 0
+
+    p.set_defaults(func=run)
+
+
+def _add_export(sub: argparse._SubParsersAction) -> None:
+    p = sub.add_parser("export", help="write trials, decisions or per-trial model quantities as CSV or JSONL")
+    p.add_argument("--db", required=True)
+    p.add_argument("--subject", default=None)
+    p.add_argument("--session", default=None)
+    p.add_argument("--what", choices=("trials", "decisions", "quantities"), default="trials")
+    p.add_argument("--format", choices=("csv", "jsonl"), default="csv")
+    p.add_argument("--out", default="-", help="output file (default: standard output)")
+
+    def run(args: argparse.Namespace) -> int:
+        from .store import Store
+        from .tables import export
+
+        with Store(args.db, create=False) as store:
+            if args.out == "-":
+                n = export(store, args.what, args.format, sys.stdout, subject=args.subject, session=args.session)
+            else:
+                with open(args.out, "w", newline="", encoding="utf-8") as fh:
+                    n = export(store, args.what, args.format, fh, subject=args.subject, session=args.session)
+        print(f"{n:,} {args.what} rows written to {args.out if args.out != '-' else 'standard output'}",
+              file=sys.stderr)
+        return 0
+
+    p.set_defaults(func=run)
+
+
+def _add_simulate(sub: argparse._SubParsersAction) -> None:
+    p = sub.add_parser("simulate", help="try a rule file on simulated animals before it touches a real one")
+    p.add_argument("rules", help="a rule file path or example name")
+    p.add_argument("--subjects", type=int, default=8)
+    p.add_argument("--sessions", type=int, default=3, help="sessions per subject")
+    p.add_argument("--max-trials", type=int, default=500, help="per session")
+    p.add_argument("--task", choices=("lick", "choice"), default=None, help="default: from the rule file's cues")
+    p.add_argument("--seed", type=int, default=1)
+    p.add_argument("--db", default=None, help="also store every simulated trial in this SQLite file")
+
+    def run(args: argparse.Namespace) -> int:
+        from .rules.load import load_any
+        from .sweep import print_simulation
+
+        return print_simulation(load_any(args.rules), subjects=args.subjects, sessions=args.sessions,
+                                max_trials=args.max_trials, task=args.task, seed=args.seed, db=args.db)
+
+    p.set_defaults(func=run)
+
+
+def _add_report(sub: argparse._SubParsersAction) -> None:
+    p = sub.add_parser("report", help="plot a subject's learning (values ± sd, learning curve, errors)")
+    p.add_argument("--db", required=True)
+    p.add_argument("--subject", required=True)
+    p.add_argument("--out", default=None, help="image path (default: SUBJECT.png)")
+
+    def run(args: argparse.Namespace) -> int:
+        from .report import plot_subject
+        from .store import Store
+
+        with Store(args.db, create=False) as store:
+            q = list(store.rows("quantities", subject=args.subject))
+            d = list(store.rows("decisions", subject=args.subject))
+        out = plot_subject(q, d, args.out or f"{args.subject}.png", title=f"subject {args.subject}")
+        print(f"wrote {out} ({len(q):,} trials)")
+        return 0
+
+    p.set_defaults(func=run)
+
+
+COMMANDS = [_add_demo, _add_check, _add_replay, _add_export, _add_simulate, _add_report]
 
 
 # --- daemon commands: serve, watch, status, keys -------------------------------------

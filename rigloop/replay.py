@@ -195,3 +195,21 @@ def recover(store, subject: str, rules_for=None) -> SubjectState | None:
         for event in events:
             state, _, _ = step(state, event, r)
     return state
+
+
+def format_differences(result: ReplayResult, limit: int = 20) -> str:
+    """A plain table of the first ``limit`` differing fields."""
+    if not result.differences:
+        return ""
+    lines = [f"{'session':<14}{'trial':>7}  {'field':<14}{'stored':<28}{'replayed':<28}"]
+    for d in result.differences[:limit]:
+        lines.append(f"{d.session:<14}{d.trial:>7}  {d.field:<14}{_short(d.stored):<28}{_short(d.replayed):<28}")
+    more = len(result.differences) - limit
+    if more > 0:
+        lines.append(f"... and {more:,} more differing fields")
+    return "\n".join(lines)
+
+
+def _short(value: Any, width: int = 26) -> str:
+    text = repr(value)
+    return text if len(text) <= width else text[: width - 3] + "..."

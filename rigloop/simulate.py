@@ -33,6 +33,7 @@ class SimulatedAnimal:
     task: ``"lick"`` (go/no-go style: respond = lick in the anticipation window) or
     ``"choice"`` (two ports; ``sides`` maps each cue to its correct side).
     alpha: its learning rate; beta, threshold: response steepness and value threshold;
+    lick_cost: the value an unrewarded lick teaches (effort, timeout), so false alarms fade;
     lapse: probability of a random response; bias: preference for the right side in
     choice tasks (log-odds); engagement: trials before it starts to tire (then misses
     grow), None for a tireless animal.
@@ -42,10 +43,12 @@ class SimulatedAnimal:
     task: str = "lick"
     alpha: float = 0.15
     beta: float = 8.0
-    threshold: float = 0.35
+    threshold: float = 0.05
+    lick_cost: float = -0.3
     lapse: float = 0.05
     bias: float = 0.0
     engagement: int | None = None
+    harder: str = "higher"
     sides: Mapping[str, str] = field(default_factory=dict)
     cue_s: float = 1.0
     onset_s: float = 0.5
@@ -73,8 +76,13 @@ class SimulatedAnimal:
     def _choose_side(self, cue: str, difficulty: float | None) -> str:
         correct = self.sides.get(cue, "left")
         wrong = "right" if correct == "left" else "left"
-        # a hard trial makes the cue harder to tell apart: perceived correctly with prob q
-        q = 1.0 if difficulty is None else 0.5 + 0.5 / (1.0 + math.exp(8.0 * (float(difficulty) - 0.5)))
+        # a hard trial makes the cue harder to tell apart: perceived correctly with prob q,
+        # a Weibull psychometric function of the ease (threshold 0.2, slope 1.5)
+        if difficulty is None:
+            q = 1.0
+        else:
+            ease = max(float(difficulty) if self.harder == "lower" else 1.0 - float(difficulty), 0.0)
+            q = 0.5 + 0.5 * (1.0 - math.exp(-((ease / 0.2) ** 1.5)))
         others = [c for c, s in self.sides.items() if s == wrong]
         perceived = cue if (self._rng.random() < q or not others) else others[0]
         qv = {s: self.values.get((perceived, s), 0.0) for s in SIDES}
@@ -124,8 +132,9 @@ class SimulatedAnimal:
             response = Response(kind="licks", value=float(licks), result=result, latency=latency)
             if go and licked and decision.reward_armed:
                 reward_ul, reward_time = decision.reward_ul, offset
-            r = 1.0 if reward_ul > 0 else 0.0
-            self.values[cue] = self.values.get(cue, 0.0) + self.alpha * (r - self.values.get(cue, 0.0))
+            if licked:  # it learns from what its licks bring
+                r = 1.0 if reward_ul > 0 else self.lick_cost
+                self.values[cue] = self.values.get(cue, 0.0) + self.alpha * (r - self.values.get(cue, 0.0))
             cues = (CuePresentation(cue, onset, offset),)
         times = [offset + 1.0] + ([latency] if latency else []) + ([reward_time] if reward_time else [])
         return TrialEvent(

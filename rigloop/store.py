@@ -391,31 +391,59 @@ class Store:
         if not isinstance(info, SessionInfo):
             raise BadArgument("info", "a SessionInfo", info)
 
-        def work(c: sqlite3.Connection) -> SessionInfo:
-            stored = self._session_in(c, info.subject, info.session)
-            if stored is not None:
-                if stored.rules_sha256 != info.rules_sha256:
-                    raise StoreError(
-                        f"session {info.session!r} of subject {info.subject!r} is already open with rule file "
-                        f"{stored.rules_name!r} (sha256 {stored.rules_sha256[:12]}…); a session has one rule file, "
-                        f"so {info.rules_name!r} (sha256 {info.rules_sha256[:12]}…) needs a new session id"
-                    )
-                return stored
-            c.execute(
-                "INSERT OR IGNORE INTO subjects (name, first_seen, ord) "
-                "VALUES (?, ?, (SELECT COALESCE(MAX(ord), 0) + 1 FROM subjects))",
-                (info.subject, info.opened_at),
-            )
-            seq = c.execute("SELECT COALESCE(MAX(seq), 0) + 1 FROM sessions WHERE subject = ?", (info.subject,)).fetchone()[0]
-            c.execute(
-                "INSERT INTO sessions (subject, session, seq, rig, rules_name, rules_text, rules_sha256, seed, "
-                "opened_at, closed_at, profile, meta) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, NULL, ?, ?)",
-                (info.subject, info.session, seq, info.rig, info.rules_name, info.rules_text, info.rules_sha256,
-                 info.seed, info.opened_at, info.profile, canonical_json(dict(info.meta))),
-            )
-            return self._session_in(c, info.subject, info.session)
+        return self._write(lambda c: self._open_in(c, info))
 
-        return self._write(work)
+    def _open_in(self, c: sqlite3.Connection, info: SessionInfo) -> SessionInfo:
+        stored = self._session_in(c, info.subject, info.session)
+        if stored is not None:
+            if stored.rules_sha256 != info.rules_sha256:
+                raise StoreError(
+                    f"session {info.session!r} of subject {info.subject!r} is already open with rule file "
+                    f"{stored.rules_name!r} (sha256 {stored.rules_sha256[:12]}…); a session has one rule file, "
+                    f"so {info.rules_name!r} (sha256 {info.rules_sha256[:12]}…) needs a new session id"
+                )
+            return stored
+        c.execute(
+            "INSERT OR IGNORE INTO subjects (name, first_seen, ord) "
+            "VALUES (?, ?, (SELECT COALESCE(MAX(ord), 0) + 1 FROM subjects))",
+            (info.subject, info.opened_at),
+        )
+        seq = c.execute("SELECT COALESCE(MAX(seq), 0) + 1 FROM sessions WHERE subject = ?", (info.subject,)).fetchone()[0]
+        c.execute(
+            "INSERT INTO sessions (subject, session, seq, rig, rules_name, rules_text, rules_sha256, seed, "
+            "opened_at, closed_at, profile, meta) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, NULL, ?, ?)",
+            (info.subject, info.session, seq, info.rig, info.rules_name, info.rules_text, info.rules_sha256,
+             info.seed, info.opened_at, info.profile, canonical_json(dict(info.meta))),
+        )
+        return self._session_in(c, info.subject, info.session)
+
+    def import_sessions(self, sessions: Sequence[tuple[SessionInfo, Sequence[BatchItem]]]) -> int:
+        """Store whole new sessions, with all their trials, in ONE transaction.
+
+        For importing trial tables: either everything lands or nothing does. A session
+        that is already stored, or any item that cannot be stored, raises StoreError and
+        rolls the whole import back. Returns the number of trials written."""
+        prepared = [(info, [_prepare(*item) for item in items]) for info, items in sessions]
+
+        def work(c: sqlite3.Connection) -> int:
+            n = 0
+            for info, items in prepared:
+                if self._session_in(c, info.subject, info.session) is not None:
+                    raise StoreError(f"session {info.session!r} of subject {info.subject!r} is already stored; "
+                                     "an import adds new sessions only (nothing was imported)")
+                self._open_in(c, info)
+                for p in items:
+                    self._commit_one(c, p)
+                    n += 1
+            return n
+
+        try:
+            return self._write(work)
+        except BaseException:
+            # rolled back: forget the sessions _commit_one learned inside the transaction
+            self._known_sessions -= {(info.subject, info.session) for info, _ in prepared}
+            raise
+
 
     _SESSION_COLS = ("subject, session, rig, rules_name, rules_text, rules_sha256, seed, opened_at, profile, meta, "
                      "closed_at")

@@ -73,7 +73,7 @@ def test_examples_match_learners_and_features():
     """The examples pair learners and features as the learners need."""
     tone = load_example("tone_reversal")
     assert (tone.learner.name, tone.features.kind, tone.features.dt, tone.features.n_bins) == (
-        "kalman_td", "serial_compound", 0.25, 8)
+        "kalman_td", "serial_compound", 0.5, 4)
     assert set(tone.learner.params) == {"gamma", "diffusion", "noise", "prior_var"}
     assert (load_example("gonogo_shaping").learner.name, load_example("gonogo_shaping").features.kind) == (
         "kalman_filter", "identity")

@@ -134,7 +134,31 @@ def _add_report(sub: argparse._SubParsersAction) -> None:
     p.set_defaults(func=run)
 
 
-COMMANDS = [_add_demo, _add_check, _add_replay, _add_export, _add_simulate, _add_report]
+def _add_import(sub: argparse._SubParsersAction) -> None:
+    p = sub.add_parser("import", help="import a CSV trial table through a column mapping (all or nothing)")
+    p.add_argument("csv", help="the trial table")
+    p.add_argument("--map", required=True, help="the column mapping (TOML)")
+    p.add_argument("--db", required=True, help="the SQLite store to import into (created if missing)")
+    p.add_argument("--rules", required=True, help="the rule file the sessions ran under (path or example name)")
+
+    def run(args: argparse.Namespace) -> int:
+        from .importer import import_csv
+        from .progress import Progress
+        from .rules.load import load_any
+        from .store import Store
+
+        rules = load_any(args.rules)
+        with Store(args.db) as store:
+            bar = Progress(0, "importing")
+            report = import_csv(store, args.csv, args.map, rules, progress=bar)
+            bar.close()
+        print(report.summary(args.csv))
+        return 0
+
+    p.set_defaults(func=run)
+
+
+COMMANDS = [_add_demo, _add_check, _add_import, _add_replay, _add_export, _add_simulate, _add_report]
 
 
 # --- daemon commands: serve, watch, status, keys -------------------------------------
@@ -284,3 +308,6 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         print(f"rigloop {args.command}: interrupted", file=sys.stderr)
         return 130
+    except BrokenPipeError:  # output piped into head, less, ...: the reader left
+        sys.stderr.close()
+        return 0

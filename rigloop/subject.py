@@ -64,7 +64,7 @@ class SubjectState:
 
     def learner_copy(self):
         """A private copy of the learner that a step may update in place."""
-        return type(self.learner).from_state(self.learner.state())
+        return self.learner.copy()
 
     def curve(self, condition: str, chance: float, sigma2: float) -> LearningCurve:
         data = self.curves.get(condition)

@@ -194,3 +194,18 @@ def test_bad_parameters_name_the_argument(make, argument):
     with pytest.raises(BadArgument) as info:
         make()
     assert info.value.argument == argument
+
+
+@pytest.mark.parametrize("name", sorted(LEARNERS))
+def test_copy_equals_state_round_trip(name):
+    """copy() is the fast path of from_state(state()): same arrays, independent buffers."""
+    rng = np.random.default_rng(2)
+    params = {"td": {"alpha": 0.1, "gamma": 0.9, "lam": 0.5}}.get(name, {})
+    learner = make_learner(name, 4, **params)
+    X = (rng.random((6, 4)) < 0.5).astype(float)
+    learner.learn_trial(X if learner.kind == "value" else X[:1], np.ones(6) if learner.kind == "value" else np.ones(1))
+    a, b = learner.copy(), type(learner).from_state(learner.state())
+    for key, value in b.state().items():
+        np.testing.assert_array_equal(a.state()[key], value)
+    a.w[0] += 1.0
+    assert learner.w[0] != a.w[0]

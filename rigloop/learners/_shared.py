@@ -243,6 +243,18 @@ class Learner:
     def n_features(self) -> int:
         return self._n
 
+    def copy(self):
+        """An independent learner in exactly this state, without re-validating it.
+
+        ``step`` copies the animal's learner once per trial; this is the cheap path
+        (``from_state(state())`` gives the same result with full checks)."""
+        new = type(self)(self._n, **self.params())
+        self._copy_into(new)
+        return new
+
+    def _copy_into(self, new) -> None:
+        new._w[...] = self._w
+
     @property
     def w(self) -> np.ndarray:
         """(n,) mean weights; writable in place, or assign a new (n,) array (copied in)."""

@@ -155,6 +155,9 @@ class _Gaussian(Learner):
         self.w = state["w"]
         self.cov = state["cov"]
 
+    def _copy_into(self, new) -> None:
+        new._A[...] = self._A  # weights and covariance share this buffer
+
 
 class KalmanFilter(_Gaussian):
     """Bayesian learner of immediate reward (Dayan & Kakade 2001; Gershman 2015).

@@ -60,6 +60,10 @@ class TD(Learner):
         """(n,) eligibility trace (read it; reset it with ``reset_trace``)."""
         return self._z
 
+    def _copy_into(self, new) -> None:
+        new._w[...] = self._w
+        new._z[...] = self._z
+
     def reset_trace(self) -> None:
         """Start a new trial: z = 0."""
         self._z.fill(0.0)

@@ -14,7 +14,7 @@ from __future__ import annotations
 
 import datetime as _dt
 import math
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
@@ -129,12 +129,12 @@ def _block_reset(block: Block) -> dict[str, Any]:
 
 
 def enter_block(spec: Spec, sched: ScheduleState, stage: Stage, block: str) -> ScheduleState:
-    return replace(sched, **_block_reset(stage.blocks[block]))
+    return sched.evolve(**_block_reset(stage.blocks[block]))
 
 
 def enter_stage(spec: Spec, sched: ScheduleState, stage: str, sessions: int = 1) -> ScheduleState:
     st = spec.stages[stage]
-    sched = replace(sched, stage=stage, trials_in_stage=0, blocks_in_stage=0, sessions_in_stage=sessions)
+    sched = sched.evolve(stage=stage, trials_in_stage=0, blocks_in_stage=0, sessions_in_stage=sessions)
     return enter_block(spec, sched, st, st.first_block)
 
 
@@ -162,8 +162,7 @@ def open_session(spec: Spec, sched: ScheduleState, session: str, wall_time: floa
     elif stage.new_session == "first_block" and sched.block != stage.first_block:
         sched = enter_block(spec, sched, stage, stage.first_block)
     day = utc_day(wall_time)
-    return replace(
-        sched,
+    return sched.evolve(
         session=session, session_start=float(wall_time), last_wall=float(wall_time), session_ended=False,
         trials_in_session=0, ul_session=0.0, misses_in_row=0, unrewarded_in_row=0,
         sessions_in_stage=sched.sessions_in_stage + 1, queue=(), last_cue=None, run_len=0,
@@ -237,7 +236,7 @@ def observe(spec: Spec, sched: ScheduleState, event) -> ScheduleState:
         # b <- b + (x - b) / window, x = 1 for a right choice
         ch["right_bias"] = sched.right_bias + ((1.0 if side == "right" else 0.0) - sched.right_bias) / window
         ch["n_choices"] = sched.n_choices + 1
-    return replace(sched, **ch)
+    return sched.evolve(**ch)
 
 
 # --------------------------------------------------------------------------- decide
@@ -248,7 +247,7 @@ def decide(spec: Spec, sched: ScheduleState, view, next_trial: int,
     """The next trial's plan, and the schedule after any block/stage move it made."""
     reasons: list[str] = []
     warnings: list[str] = list(sched.notes)
-    sched = replace(sched, notes=())
+    sched = sched.evolve(notes=())
     if sched.stage not in spec.stages or sched.block not in spec.stages[sched.stage].blocks:
         warnings.append(f"stage/block '{sched.stage}'/'{sched.block}' not in the rule file; starting over")
         sched = enter_stage(spec, sched, spec.first_stage, sessions=max(1, sched.sessions_in_stage))
@@ -273,7 +272,7 @@ def decide(spec: Spec, sched: ScheduleState, view, next_trial: int,
     cue, p, why_p = None, 0.0, None
     if not end:
         cue, changes, why_cue = choose_cue(block, sched, view, rng, spec.cues)
-        sched = replace(sched, **changes)
+        sched = sched.evolve(**changes)
         reasons.append(why_cue)
         p, why_p, pw = reward_prob(block.reward, block, cue, lambda c: ScheduleEnv(sched, view, block, c))
         reasons.append(why_p)
@@ -294,7 +293,7 @@ def decide(spec: Spec, sched: ScheduleState, view, next_trial: int,
         difficulty = float(sched.stair_level if sched.stair_level is not None else st.start)
         reasons.append(f"difficulty {st.parameter} = {fmt(difficulty)} (staircase {st.up}-up-{st.down}-down, "
                        f"{sched.stair_reversals} reversals)")
-    sched = replace(sched, last_armed=offer.reward_armed, session_ended=offer.end_session)
+    sched = sched.evolve(last_armed=offer.reward_armed, session_ended=offer.end_session)
     plan = Plan(
         cue=offer.cue, reward_prob=float(offer.reward_prob), reward_ul=float(offer.reward_ul),
         reward_armed=bool(offer.reward_armed), block=sched.block, stage=sched.stage,
@@ -332,7 +331,7 @@ def _moves(spec: Spec, sched: ScheduleState, view, reasons: list[str]) -> Schedu
         return sched
     reasons.append(f"{why} -> block '{end.then}'")
     sched = enter_block(spec, sched, stage, end.then)
-    return replace(sched, blocks_in_stage=sched.blocks_in_stage + 1)
+    return sched.evolve(blocks_in_stage=sched.blocks_in_stage + 1)
 
 
 def _largest_ul(spec: Spec) -> float:

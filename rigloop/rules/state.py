@@ -63,6 +63,16 @@ class ScheduleState:
     last_armed: bool | None = None
     notes: tuple[str, ...] = ()
 
+    def evolve(self, **changes: Any) -> ScheduleState:
+        """``dataclasses.replace`` without re-running ``__init__``: the engine calls it a
+        few times per trial, and a 36-field init is most of a replace's cost."""
+        new = object.__new__(ScheduleState)
+        for name in _NAMES:
+            object.__setattr__(new, name, changes.pop(name) if name in changes else getattr(self, name))
+        if changes:
+            raise TypeError(f"ScheduleState has no field(s) {', '.join(sorted(changes))}")
+        return new
+
     def to_dict(self) -> dict[str, Any]:
         out: dict[str, Any] = {}
         for f in fields(self):
@@ -86,3 +96,6 @@ class ScheduleState:
             if key in kw:
                 kw[key] = tuple(str(x) for x in kw[key])
         return cls(**kw)
+
+
+_NAMES = tuple(f.name for f in fields(ScheduleState))

@@ -1,0 +1,603 @@
+"""The learners vectorised over S subjects that share a feature count n.
+
+One ``Batch*`` object holds S animals' learners as stacked arrays, so replaying or
+simulating many subjects costs a few numpy calls per time step for all of them rather
+than a few per subject. Each subject may have its own parameters (a number for all, or
+an (S,) array). The numbers equal the single-subject learners' step for step up to
+floating-point rounding (summation order differs; the tests pin 1e-12):
+
+  BatchKalmanTD        KalmanTD        learn_steps(X, X_next, r, active) / learn_trials
+  BatchKalmanFilter    KalmanFilter    learn_steps(X, r, active) / learn_trials
+  BatchTD              TD              learn_steps(X, X_next, r, active) / learn_trials
+  BatchRescorlaWagner  RescorlaWagner  learn_steps(X, r, active) / learn_trials
+
+``learn_trials(Xs, rs, lengths)`` takes padded trials: Xs (S, T, n), rs (S, T), subject
+s using its first ``lengths[s]`` rows (the row after them is terminal, all zero); a
+subject with length 0 is left unchanged. ``from_learners`` / ``to_learners`` move
+between the batch and a list of single learners exactly.
+
+How the Kalman batch stays cheap (methods.md §2, §4: Σ⁻ = Σ + τ²I, then the correction
+Σ ← Σ⁻ − u uᵀ with u = Σ⁻h/√s). Within a block of B time steps the covariance is kept
+as Σ₀ + d I − Σⱼ uⱼuⱼᵀ — the block's starting Σ₀, the diffusion d added since, and the
+rank-1 corrections so far — which is the same matrix as the step-by-step one. Each
+step then needs Σ₀h (all of the block's Σ₀xₜ come from one batched matrix product at
+block start) and k inner products with the stored uⱼ, O(nk) instead of O(n²); at the
+block's end the corrections are applied in one batched product Σ ← Σ₀ + dI − UᵀU.
+Per-step work runs on subject-last (n, S) arrays, so every numpy loop is S long.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from .errors import BadArgument
+from .learners import TD, KalmanFilter, KalmanTD, RescorlaWagner
+from .learners import _shared as sh
+
+_BLOCK = 12  # steps between applying the stored corrections (see bench/replay_batch.py)
+
+
+# --------------------------------------------------------------------------- results
+
+
+@dataclass(frozen=True, slots=True, eq=False)
+class BatchResult:
+    """What a batched learn call saw, per subject (and per time step for trials).
+
+    values:    (S,) or (S, T) xᵀw just before each update (the value V(x) for value learners).
+    errors:    (S,) or (S, T) prediction errors δ (reward or TD error).
+    variances: (S,) or (S, T) xᵀΣx before the step's diffusion; None for point learners.
+    Entries of subjects that had no step there (inactive, or past their length) are nan.
+    The arrays are read-only.
+    """
+
+    values: np.ndarray
+    errors: np.ndarray
+    variances: np.ndarray | None = None
+
+    def __post_init__(self) -> None:
+        for arr in (self.values, self.errors, self.variances):
+            if arr is not None:
+                arr.setflags(write=False)
+
+
+# --------------------------------------------------------------------------- checks
+
+
+def _per_subject(name: str, value: Any, S: int, check) -> np.ndarray:
+    """A parameter for every subject: one number, or a sequence of S numbers; (S,) float."""
+    if isinstance(value, (list, tuple, np.ndarray)) and np.ndim(value) > 0:
+        arr = np.asarray(value, dtype=object).reshape(-1)
+        if np.ndim(value) != 1 or arr.size != S:
+            raise BadArgument(name, f"a number or a sequence of {S} numbers",
+                              sh._Shown(f"shape {np.shape(value)}"))
+        out = np.array([check(f"{name}[{i}]", v) for i, v in enumerate(arr)], dtype=np.float64)
+    else:
+        out = np.full(S, check(name, value), dtype=np.float64)
+    out.setflags(write=False)
+    return out
+
+
+def _rates(name: str, value: Any, S: int, n: int) -> tuple[np.ndarray, np.ndarray]:
+    """Learning rates: a number, (S,) per subject or (S, n) per subject and feature.
+
+    Returns (alpha (S, n), scalar (S,) bool: the subject's rate was one number)."""
+    arr = np.asarray(value, dtype=np.float64) if np.ndim(value) > 0 else None
+    if arr is None:
+        a = sh.nonnegative(name, value)
+        return np.full((S, n), a), np.ones(S, dtype=bool)
+    if arr.shape == (S,):
+        return np.repeat(_per_subject(name, arr, S, sh.nonnegative)[:, None], n, 1), np.ones(S, bool)
+    if arr.shape == (S, n):
+        if not np.all(np.isfinite(arr)) or np.any(arr < 0.0):
+            raise BadArgument(name, "finite numbers >= 0", value)
+        return arr.copy(), np.zeros(S, dtype=bool)
+    raise BadArgument(name, f"a number >= 0, or an array of shape ({S},) or ({S}, {n})",
+                      sh._Shown(f"shape {arr.shape}"))
+
+
+def _float_array(name: str, value: Any, shape: tuple[int, ...]) -> np.ndarray:
+    """A finite float64 array of exactly ``shape`` (no copy when it already is one)."""
+    try:
+        arr = np.asarray(value, dtype=np.float64)
+    except (TypeError, ValueError):
+        raise BadArgument(name, f"a float array of shape {shape}", value) from None
+    if arr.shape != shape:
+        raise BadArgument(name, f"a float array of shape {shape}", sh._Shown(f"shape {arr.shape}"))
+    if not np.all(np.isfinite(arr)):
+        raise BadArgument(name, f"a float array of shape {shape} with finite entries",
+                          sh._first_bad(arr))
+    return arr
+
+
+def _mask(name: str, value: Any, S: int) -> np.ndarray:
+    """An (S,) bool mask; None means every subject."""
+    if value is None:
+        return np.ones(S, dtype=bool)
+    arr = np.asarray(value)
+    if arr.shape != (S,) or arr.dtype != np.bool_:
+        raise BadArgument(name, f"a bool array of shape ({S},) or None",
+                          sh._Shown(f"{arr.dtype} array of shape {arr.shape}"))
+    return arr
+
+
+def _lengths(value: Any, S: int, T: int) -> np.ndarray:
+    """(S,) whole numbers in [0, T]."""
+    arr = np.asarray(value)
+    if arr.shape != (S,) or arr.dtype.kind not in "iu":
+        raise BadArgument("lengths", f"an integer array of shape ({S},)",
+                          sh._Shown(f"{arr.dtype} array of shape {arr.shape}"))
+    if S and (arr.min() < 0 or arr.max() > T):
+        bad = int(arr[(arr < 0) | (arr > T)][0])
+        raise BadArgument("lengths", f"whole numbers in [0, {T}] (T of Xs)", bad)
+    return arr.astype(np.intp)
+
+
+def _trials(Xs: Any, rs: Any, lengths: Any, S: int, n: int):
+    """Checked padded trials: X (S, T, n) with rows past each length zeroed, r (S, T)
+    likewise, valid (S, T) bool = t < length."""
+    X = np.asarray(Xs, dtype=np.float64) if not isinstance(Xs, np.ndarray) else Xs
+    if X.ndim != 3 or X.shape[0] != S or X.shape[2] != n:
+        raise BadArgument("Xs", f"a float array of shape ({S}, T, {n})", sh._Shown(f"shape {np.shape(Xs)}"))
+    T = X.shape[1]
+    L = _lengths(lengths, S, T)
+    valid = np.arange(T)[None, :] < L[:, None]
+    r = _float_array("rs", rs, (S, T))
+    X = _float_array("Xs", X, (S, T, n))
+    if not valid.all():
+        # padding is ignored whatever it holds: the row after a subject's last is terminal
+        X = np.where(valid[:, :, None], X, 0.0)
+        r = np.where(valid, r, 0.0)
+    return X, r, valid
+
+
+def _same(learners: Sequence[Any], cls: type) -> int:
+    """The shared n of a non-empty list of ``cls`` learners."""
+    if not isinstance(learners, Sequence) or not learners:
+        raise BadArgument("learners", f"a non-empty list of {cls.__name__}", learners)
+    for i, learner in enumerate(learners):
+        if type(learner) is not cls:
+            raise BadArgument(f"learners[{i}]", f"a {cls.__name__}", type(learner).__name__)
+    ns = {learner.n_features for learner in learners}
+    if len(ns) != 1:
+        raise BadArgument("learners", "learners with the same n_features", sorted(ns))
+    return ns.pop()
+
+
+def _nan_outside(arr: np.ndarray, keep: np.ndarray) -> np.ndarray:
+    arr[~keep] = np.nan
+    return arr
+
+
+# --------------------------------------------------------------------------- Gaussian core
+
+
+class _BatchGaussian:
+    """S Gaussian beliefs: ``_A`` (S, n + 1, n) holds Σ in rows :n and ŵ in row n, per
+    subject, as in the single learner; parameters are (S,) arrays."""
+
+    _single: type
+    _value_learner: bool
+
+    def __init__(self, n_subjects: int, n_features: int, diffusion: Any, noise: Any,
+                 prior_var: Any, gamma: Any = 0.0, *, block: int = _BLOCK):
+        S = self._S = sh.count("n_subjects", n_subjects)
+        n = self._n = sh.count("n_features", n_features)
+        self._block = sh.count("block", block)
+        self._tau2 = _per_subject("diffusion", diffusion, S, sh.nonnegative)
+        self._noise = _per_subject("noise", noise, S, sh.positive)
+        self._c = _per_subject("prior_var", prior_var, S, sh.nonnegative)
+        self._gamma = _per_subject("gamma", gamma, S, sh.unit)
+        self._A = np.zeros((S, n + 1, n))
+        self._diag_view()[...] = self._c[:, None]
+
+    def _diag_view(self) -> np.ndarray:
+        """(S, n) strided view of every Σ's diagonal."""
+        n = self._n
+        return self._A.reshape(self._S, -1)[:, : n * n : n + 1]
+
+    # -- the state -------------------------------------------------------------
+
+    @property
+    def n_subjects(self) -> int:
+        return self._S
+
+    @property
+    def n_features(self) -> int:
+        return self._n
+
+    @property
+    def w(self) -> np.ndarray:
+        """(S, n) mean weights, one row per subject (a view: write it in place)."""
+        return self._A[:, self._n]
+
+    @property
+    def cov(self) -> np.ndarray:
+        """(S, n, n) covariances Σ (a view: write it in place, keep each symmetric)."""
+        return self._A[:, : self._n]
+
+    @property
+    def diffusion(self) -> np.ndarray:
+        return self._tau2
+
+    @property
+    def noise(self) -> np.ndarray:
+        return self._noise
+
+    @property
+    def prior_var(self) -> np.ndarray:
+        return self._c
+
+    def _params(self, s: int) -> dict[str, float]:
+        return {"diffusion": float(self._tau2[s]), "noise": float(self._noise[s]),
+                "prior_var": float(self._c[s])}
+
+    def learner(self, s: int):
+        """Subject s as a single-subject learner (a copy)."""
+        state = {"w": self.w[s].copy(), "cov": self.cov[s].copy(), **self._params(s)}
+        return self._single.from_state(state)
+
+    def to_learners(self) -> list:
+        """Every subject as a single-subject learner, in order (copies)."""
+        return [self.learner(s) for s in range(self._S)]
+
+    @classmethod
+    def _from(cls, learners: Sequence[Any], keys: tuple[str, ...], **kw: Any):
+        n = _same(learners, cls._single)
+        params = {k: np.array([getattr(lr, k) for lr in learners]) for k in keys}
+        batch = cls(len(learners), n, **params, **kw)
+        for s, learner in enumerate(learners):
+            batch._A[s, :n] = learner.cov
+            batch._A[s, n] = learner.w
+        return batch
+
+    # -- the step ---------------------------------------------------------------
+
+    def _run(self, X: np.ndarray, r: np.ndarray, learn: np.ndarray, report: np.ndarray,
+             gamma: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Run T steps for every subject.
+
+        X: (S, T + 1, n) rows, step t going from X[:, t] to X[:, t + 1] (so the last is
+        the terminal or next row); r: (S, T) rewards; learn: (S, T) bool, the steps
+        that diffuse and correct; report: (S, T) bool, the steps that are reported.
+        gamma: (S,) discount (0 for the reward learner: h = x).
+        Returns (values, errors, variances), each (S, T), nan where not reported.
+        """
+        S, T1, n = X.shape
+        T = T1 - 1
+        B = self._block
+        A = self._A
+        P = A[:, :n]
+        # subject-last copies: every per-step array is (…, S), so numpy loops run S long
+        XT = np.ascontiguousarray(X.transpose(1, 2, 0))            # (T + 1, n, S)
+        rT = np.ascontiguousarray(r.T)                               # (T, S)
+        lT = learn.T.astype(np.float64)                              # (T, S) 1.0 = learn
+        g, tau2, noise = gamma, self._tau2, self._noise
+        values, errors, variances = np.empty((T, S)), np.empty((T, S)), np.empty((T, S))
+        U = np.empty((B, n, S))   # the stored corrections uⱼ (zero on steps that skip)
+        C = np.empty((B, S))      # their weight steps cⱼ = δⱼ/√sⱼ:  ŵ = ŵ₀ + Σⱼ cⱼ uⱼ
+        ux = np.empty((B, S))     # uⱼ·xₜ for the current step
+        uxn = np.empty((B, S))    # uⱼ·xₜ₊₁
+        a = np.empty((n, S))
+        tmp = np.empty((n, S))
+        d = np.zeros(S)           # diffusion added since the block began
+        for t0 in range(0, T, B):
+            m = min(B, T - t0)
+            # [Σ₀; ŵ₀] xₜ for the block's rows t0 … t0 + m, in one batched product
+            Xb = X[:, t0 : t0 + m + 1]                                # (S, m + 1, n)
+            G = np.matmul(A, Xb.transpose(0, 2, 1))                   # (S, n + 1, m + 1)
+            GT = np.ascontiguousarray(G.transpose(2, 1, 0))           # (m + 1, n + 1, S)
+            xb = XT[t0 : t0 + m + 1]
+            lb = lT[t0 : t0 + m]
+            # h = x − γx', zero on steps that do not learn;  Σ₀h likewise
+            H = (xb[:m] - g * xb[1:]) * lb[:, None, :]
+            PH = (GT[:m, :n] - g * GT[1:, :n]) * lb[:, None, :]
+            # xᵀΣ₀x and xᵀx for the reported variance
+            xPx = np.einsum("kns,kns->ks", xb[:m], GT[:m, :n])
+            xx = np.einsum("kns,kns->ks", xb[:m], xb[:m])
+            for k in range(m):
+                t = t0 + k
+                x_next, h, lt = xb[k + 1], H[k], lb[k]
+                Uk = U[:k]
+                # uⱼ·x' for the stored corrections (uⱼ·x was last step's uⱼ·x')
+                np.einsum("kns,ns->ks", Uk, x_next, out=uxn[:k])
+                # V(x) = ŵ₀·x + Σⱼ cⱼ uⱼ·x;  V(x') likewise
+                vx = GT[k, n] + np.einsum("ks,ks->s", C[:k], ux[:k])
+                vn = GT[k + 1, n] + np.einsum("ks,ks->s", C[:k], uxn[:k])
+                # xᵀΣx = xᵀΣ₀x + d xᵀx − Σⱼ (uⱼ·x)²
+                var = xPx[k] + d * xx[k] - np.einsum("ks,ks->s", ux[:k], ux[:k])
+                # δ = r + γV(x') − V(x)
+                delta = rT[t] + g * vn - vx
+                values[t], errors[t], variances[t] = vx, delta, var
+                # Σ⁻h = Σ₀h + (d + τ²)h − Σⱼ uⱼ (uⱼ·h),  uⱼ·h = uⱼ·x − γ uⱼ·x'
+                uh = (ux[:k] - g * uxn[:k]) * lt
+                np.multiply(h, d + tau2 * lt, out=a)
+                np.add(a, PH[k], out=a)
+                np.subtract(a, np.einsum("ks,kns->ns", uh, Uk), out=a)
+                # s = hᵀΣ⁻h + σ_r²
+                s = np.einsum("ns,ns->s", h, a) + noise
+                rs = 1.0 / np.sqrt(s)
+                # u = Σ⁻h/√s, c = δ/√s: Σ ← Σ⁻ − u uᵀ and ŵ ← ŵ + c u (k = u/√s, kδ = c u)
+                np.multiply(a, rs, out=U[k])
+                np.multiply(delta * rs, lt, out=C[k])
+                # Σ⁻ = Σ + τ²I, on learning steps only
+                d += tau2 * lt
+                # uₖ·x' for the next step, then swap the two inner-product buffers
+                np.einsum("ns,ns->s", U[k], x_next, out=uxn[k])
+                ux, uxn = uxn, ux
+            # apply the block: Σ ← Σ₀ + dI − UᵀU,  ŵ ← ŵ₀ + Σⱼ cⱼ uⱼ
+            Us = np.ascontiguousarray(U[:m].transpose(2, 0, 1))       # (S, m, n)
+            P -= np.matmul(Us.transpose(0, 2, 1), Us)
+            A[:, n] += np.matmul(np.ascontiguousarray(C[:m].T)[:, None, :], Us)[:, 0]
+            self._diag_view()[...] += d[:, None]
+            d[...] = 0.0
+        # keep every Σ exactly symmetric, as the single learners do
+        P[...] = (P + P.transpose(0, 2, 1)) * 0.5
+        return (_nan_outside(values.T.copy(), report), _nan_outside(errors.T.copy(), report),
+                _nan_outside(variances.T.copy(), report))
+
+
+class BatchKalmanTD(_BatchGaussian):
+    """S Kalman TD learners (methods.md §4) with n features each.
+
+    gamma, diffusion (τ²), noise (σ_r²), prior_var (c): a number for every subject or
+    a sequence of S numbers. ``w`` (S, n), ``cov`` (S, n, n). ``block``: time steps
+    between applying the stored covariance corrections (a speed knob; same numbers).
+    """
+
+    _single = KalmanTD
+
+    def __init__(self, n_subjects: int, n_features: int, gamma: Any = 0.95,
+                 diffusion: Any = 0.01, noise: Any = 1.0, prior_var: Any = 1.0, *,
+                 block: int = _BLOCK):
+        super().__init__(n_subjects, n_features, diffusion, noise, prior_var, gamma, block=block)
+
+    @property
+    def gamma(self) -> np.ndarray:
+        return self._gamma
+
+    def _params(self, s: int) -> dict[str, float]:
+        return {"gamma": float(self._gamma[s]), **super()._params(s)}
+
+    @classmethod
+    def from_learners(cls, learners: Sequence[KalmanTD], *, block: int = _BLOCK) -> BatchKalmanTD:
+        """A batch holding copies of these learners (same n), subject s = learners[s]."""
+        return cls._from(learners, ("gamma", "diffusion", "noise", "prior_var"), block=block)
+
+    def learn_steps(self, X: Any, X_next: Any, r: Any, active: Any = None, *,
+                    skip_empty: bool = True) -> BatchResult:
+        """One time step for every subject: X, X_next (S, n) rows now and next (zero if
+        terminal), r (S,) rewards on the transition; ``active`` (S,) bool, False for a
+        subject with no step now (it is left unchanged, its results nan).
+
+        skip_empty: a subject whose row x is all zero reports its TD error but learns
+        nothing, as ``KalmanTD.learn_trial`` does; False applies every step, as
+        ``KalmanTD.update`` does. Returns (S,) values, errors, variances.
+        """
+        S, n = self._S, self._n
+        rows = np.stack([_float_array("X", X, (S, n)), _float_array("X_next", X_next, (S, n))], 1)
+        r = _float_array("r", r, (S,))
+        active = _mask("active", active, S)
+        learn = active & rows[:, 0].any(1) if skip_empty else active
+        out = self._run(rows, r[:, None], learn[:, None], active[:, None], self._gamma)
+        return BatchResult(*(o[:, 0] for o in out))
+
+    def learn_trials(self, Xs: Any, rs: Any, lengths: Any) -> BatchResult:
+        """One trial per subject, as ``KalmanTD.learn_trial``: Xs (S, T, n) padded rows,
+        rs (S, T) with rs[s, t] received on the step from row t to row t + 1, lengths
+        (S,) rows used per subject (the row after them terminal). Returns (S, T) results."""
+        X, r, valid = _trials(Xs, rs, lengths, self._S, self._n)
+        S, T, n = X.shape
+        rows = np.zeros((S, T + 1, n))
+        rows[:, :T] = X
+        learn = valid & X.any(2)
+        return BatchResult(*self._run(rows, r, learn, valid, self._gamma))
+
+
+class BatchKalmanFilter(_BatchGaussian):
+    """S Kalman filters of conditioning (methods.md §2) with n features each.
+
+    diffusion (τ²), noise (σ_r²), prior_var (c): a number or S numbers.
+    """
+
+    _single = KalmanFilter
+
+    def __init__(self, n_subjects: int, n_features: int, diffusion: Any = 0.01,
+                 noise: Any = 1.0, prior_var: Any = 1.0, *, block: int = _BLOCK):
+        super().__init__(n_subjects, n_features, diffusion, noise, prior_var, 0.0, block=block)
+
+    @classmethod
+    def from_learners(cls, learners: Sequence[KalmanFilter], *,
+                      block: int = _BLOCK) -> BatchKalmanFilter:
+        """A batch holding copies of these learners (same n), subject s = learners[s]."""
+        return cls._from(learners, ("diffusion", "noise", "prior_var"), block=block)
+
+    def learn_steps(self, X: Any, r: Any, active: Any = None) -> BatchResult:
+        """One observation per active subject: X (S, n) rows, r (S,) rewards, as
+        ``KalmanFilter.update`` (every row observed, an all-zero one too)."""
+        S, n = self._S, self._n
+        rows = np.zeros((S, 2, n))
+        rows[:, 0] = _float_array("X", X, (S, n))
+        r = _float_array("r", r, (S,))
+        active = _mask("active", active, S)
+        out = self._run(rows, r[:, None], active[:, None], active[:, None], self._gamma)
+        return BatchResult(*(o[:, 0] for o in out))
+
+    def learn_trials(self, Xs: Any, rs: Any, lengths: Any) -> BatchResult:
+        """``KalmanFilter.learn_trial`` for every subject: Xs (S, T, n), rs (S, T), the
+        first lengths[s] rows observed in order. Returns (S, T) results."""
+        X, r, valid = _trials(Xs, rs, lengths, self._S, self._n)
+        S, T, n = X.shape
+        rows = np.zeros((S, T + 1, n))
+        rows[:, :T] = X
+        return BatchResult(*self._run(rows, r, valid, valid, self._gamma))
+
+
+# --------------------------------------------------------------------------- point learners
+
+
+class BatchRescorlaWagner:
+    """S Rescorla–Wagner learners (methods.md §1): w ← w + α δ ∘ x, δ = r − xᵀw.
+
+    alpha: a number, S numbers, or an (S, n) array of per-feature rates.
+    """
+
+    _single = RescorlaWagner
+
+    def __init__(self, n_subjects: int, n_features: int, alpha: Any = 0.1):
+        self._S = sh.count("n_subjects", n_subjects)
+        self._n = sh.count("n_features", n_features)
+        self._alpha, self._scalar = _rates("alpha", alpha, self._S, self._n)
+        self._alpha.setflags(write=False)
+        self._w = np.zeros((self._S, self._n))
+
+    n_subjects = property(lambda self: self._S)
+    n_features = property(lambda self: self._n)
+    alpha = property(lambda self: self._alpha, doc="(S, n) learning rates")
+
+    @property
+    def w(self) -> np.ndarray:
+        """(S, n) weights (a view: write it in place)."""
+        return self._w
+
+    def _alpha_of(self, s: int) -> float | np.ndarray:
+        return float(self._alpha[s, 0]) if self._scalar[s] else self._alpha[s].copy()
+
+    def learner(self, s: int) -> RescorlaWagner:
+        return RescorlaWagner.from_state({"w": self._w[s].copy(), "alpha": self._alpha_of(s)})
+
+    def to_learners(self) -> list[RescorlaWagner]:
+        return [self.learner(s) for s in range(self._S)]
+
+    @classmethod
+    def from_learners(cls, learners: Sequence[RescorlaWagner]) -> BatchRescorlaWagner:
+        n = _same(learners, cls._single)
+        alpha = np.array([np.broadcast_to(lr.alpha, (n,)) for lr in learners])
+        batch = cls(len(learners), n, alpha)
+        batch._scalar = np.array([not isinstance(lr.alpha, np.ndarray) for lr in learners])
+        batch._w[...] = [lr.w for lr in learners]
+        return batch
+
+    def _step(self, x: np.ndarray, r: np.ndarray, on: np.ndarray):
+        # δ = r − xᵀw
+        v = np.einsum("sn,sn->s", x, self._w)
+        delta = r - v
+        # w ← w + (α δ) x   (the single learner's order, on active subjects)
+        step = (self._alpha * delta[:, None]) * x
+        self._w[on] += step[on]
+        return v, delta
+
+    def learn_steps(self, X: Any, r: Any, active: Any = None) -> BatchResult:
+        """One observation per active subject: X (S, n), r (S,). Returns (S,) results."""
+        X = _float_array("X", X, (self._S, self._n))
+        r = _float_array("r", r, (self._S,))
+        active = _mask("active", active, self._S)
+        v, delta = self._step(X, r, active)
+        return BatchResult(_nan_outside(v, active), _nan_outside(delta, active))
+
+    def learn_trials(self, Xs: Any, rs: Any, lengths: Any) -> BatchResult:
+        """``RescorlaWagner.learn_trial`` for every subject over padded Xs (S, T, n)."""
+        X, r, valid = _trials(Xs, rs, lengths, self._S, self._n)
+        T = X.shape[1]
+        values, errors = np.empty((self._S, T)), np.empty((self._S, T))
+        for t in range(T):
+            values[:, t], errors[:, t] = self._step(X[:, t], r[:, t], valid[:, t])
+        return BatchResult(_nan_outside(values, valid), _nan_outside(errors, valid))
+
+
+class BatchTD:
+    """S linear TD(λ) learners (methods.md §3) with accumulating traces z (S, n).
+
+    alpha: a number, S numbers or (S, n); gamma, lam: a number or S numbers.
+    ``learn_trials`` resets each trial's trace first, as ``TD.learn_trial`` does.
+    """
+
+    _single = TD
+
+    def __init__(self, n_subjects: int, n_features: int, alpha: Any = 0.1,
+                 gamma: Any = 0.95, lam: Any = 0.0):
+        S = self._S = sh.count("n_subjects", n_subjects)
+        self._n = sh.count("n_features", n_features)
+        self._alpha, self._scalar = _rates("alpha", alpha, S, self._n)
+        self._alpha.setflags(write=False)
+        self._gamma = _per_subject("gamma", gamma, S, sh.unit)
+        self._lam = _per_subject("lam", lam, S, sh.unit)
+        self._gl = self._gamma * self._lam
+        self._w = np.zeros((S, self._n))
+        self._z = np.zeros((S, self._n))
+
+    n_subjects = property(lambda self: self._S)
+    n_features = property(lambda self: self._n)
+    alpha = property(lambda self: self._alpha, doc="(S, n) learning rates")
+    gamma = property(lambda self: self._gamma)
+    lam = property(lambda self: self._lam)
+
+    @property
+    def w(self) -> np.ndarray:
+        """(S, n) weights (a view)."""
+        return self._w
+
+    @property
+    def z(self) -> np.ndarray:
+        """(S, n) eligibility traces (a view)."""
+        return self._z
+
+    def learner(self, s: int) -> TD:
+        alpha = float(self._alpha[s, 0]) if self._scalar[s] else self._alpha[s].copy()
+        return TD.from_state({"w": self._w[s].copy(), "z": self._z[s].copy(), "alpha": alpha,
+                              "gamma": float(self._gamma[s]), "lam": float(self._lam[s])})
+
+    def to_learners(self) -> list[TD]:
+        return [self.learner(s) for s in range(self._S)]
+
+    @classmethod
+    def from_learners(cls, learners: Sequence[TD]) -> BatchTD:
+        n = _same(learners, cls._single)
+        alpha = np.array([np.broadcast_to(lr.alpha, (n,)) for lr in learners])
+        batch = cls(len(learners), n, alpha, [lr.gamma for lr in learners],
+                    [lr.lam for lr in learners])
+        batch._scalar = np.array([not isinstance(lr.alpha, np.ndarray) for lr in learners])
+        batch._w[...] = [lr.w for lr in learners]
+        batch._z[...] = [lr.z for lr in learners]
+        return batch
+
+    def _step(self, x: np.ndarray, x_next: np.ndarray, r: np.ndarray, on: np.ndarray):
+        w, z = self._w, self._z
+        v = np.einsum("sn,sn->s", w, x)
+        # δ = r + γ wᵀx' − wᵀx
+        delta = r + self._gamma * np.einsum("sn,sn->s", w, x_next) - v
+        # z ← γλz + x;  w ← w + (α δ) z   (active subjects only)
+        z_new = self._gl[:, None] * z + x
+        z[on] = z_new[on]
+        step = (self._alpha * delta[:, None]) * z
+        w[on] += step[on]
+        return v, delta
+
+    def learn_steps(self, X: Any, X_next: Any, r: Any, active: Any = None) -> BatchResult:
+        """``TD.update`` for every active subject (the trace carries on)."""
+        S, n = self._S, self._n
+        X = _float_array("X", X, (S, n))
+        X_next = _float_array("X_next", X_next, (S, n))
+        r = _float_array("r", r, (S,))
+        active = _mask("active", active, S)
+        v, delta = self._step(X, X_next, r, active)
+        return BatchResult(_nan_outside(v, active), _nan_outside(delta, active))
+
+    def learn_trials(self, Xs: Any, rs: Any, lengths: Any) -> BatchResult:
+        """``TD.learn_trial`` for every subject with a non-empty trial (trace reset first)."""
+        X, r, valid = _trials(Xs, rs, lengths, self._S, self._n)
+        S, T, n = X.shape
+        self._z[valid.any(1)] = 0.0
+        rows = np.zeros((S, T + 1, n))
+        rows[:, :T] = X
+        values, errors = np.empty((S, T)), np.empty((S, T))
+        for t in range(T):
+            values[:, t], errors[:, t] = self._step(rows[:, t], rows[:, t + 1], r[:, t], valid[:, t])
+        return BatchResult(_nan_outside(values, valid), _nan_outside(errors, valid))
+
+
+__all__ = ["BatchKalmanFilter", "BatchKalmanTD", "BatchRescorlaWagner", "BatchResult", "BatchTD"]

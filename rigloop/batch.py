@@ -39,6 +39,7 @@ from .learners import TD, KalmanFilter, KalmanTD, RescorlaWagner
 from .learners import _shared as sh
 
 _BLOCK = 12  # steps between applying the stored corrections (see bench/replay_batch.py)
+_CHUNK = 128  # subjects per pass: a chunk's working set stays in a core's cache
 
 
 # --------------------------------------------------------------------------- results
@@ -184,10 +185,12 @@ class _BatchGaussian:
     _value_learner: bool
 
     def __init__(self, n_subjects: int, n_features: int, diffusion: Any, noise: Any,
-                 prior_var: Any, gamma: Any = 0.0, *, block: int = _BLOCK):
+                 prior_var: Any, gamma: Any = 0.0, *, block: int = _BLOCK,
+                 chunk: int = _CHUNK):
         S = self._S = sh.count("n_subjects", n_subjects)
         n = self._n = sh.count("n_features", n_features)
         self._block = sh.count("block", block)
+        self._chunk = sh.count("chunk", chunk)
         self._tau2 = _per_subject("diffusion", diffusion, S, sh.nonnegative)
         self._noise = _per_subject("noise", noise, S, sh.positive)
         self._c = _per_subject("prior_var", prior_var, S, sh.nonnegative)
@@ -259,7 +262,7 @@ class _BatchGaussian:
 
     def _run(self, X: np.ndarray, r: np.ndarray, learn: np.ndarray, report: np.ndarray,
              gamma: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """Run T steps for every subject.
+        """Run T steps for every subject, a chunk of subjects at a time.
 
         X: (S, T + 1, n) rows, step t going from X[:, t] to X[:, t + 1] (so the last is
         the terminal or next row); r: (S, T) rewards; learn: (S, T) bool, the steps
@@ -267,78 +270,94 @@ class _BatchGaussian:
         gamma: (S,) discount (0 for the reward learner: h = x).
         Returns (values, errors, variances), each (S, T), nan where not reported.
         """
-        S, T1, n = X.shape
-        T = T1 - 1
-        B = self._block
-        A = self._A
-        P = A[:, :n]
-        # subject-last copies: every per-step array is (…, S), so numpy loops run S long
-        XT = np.ascontiguousarray(X.transpose(1, 2, 0))            # (T + 1, n, S)
-        rT = np.ascontiguousarray(r.T)                               # (T, S)
-        lT = learn.T.astype(np.float64)                              # (T, S) 1.0 = learn
-        g, tau2, noise = gamma, self._tau2, self._noise
-        values, errors, variances = np.empty((T, S)), np.empty((T, S)), np.empty((T, S))
-        U = np.empty((B, n, S))   # the stored corrections uⱼ (zero on steps that skip)
-        C = np.empty((B, S))      # their weight steps cⱼ = δⱼ/√sⱼ:  ŵ = ŵ₀ + Σⱼ cⱼ uⱼ
-        ux = np.empty((B, S))     # uⱼ·xₜ for the current step
-        uxn = np.empty((B, S))    # uⱼ·xₜ₊₁
-        a = np.empty((n, S))
-        tmp = np.empty((n, S))
-        d = np.zeros(S)           # diffusion added since the block began
-        for t0 in range(0, T, B):
-            m = min(B, T - t0)
-            # [Σ₀; ŵ₀] xₜ for the block's rows t0 … t0 + m, in one batched product
-            Xb = X[:, t0 : t0 + m + 1]                                # (S, m + 1, n)
-            G = np.matmul(A, Xb.transpose(0, 2, 1))                   # (S, n + 1, m + 1)
-            GT = np.ascontiguousarray(G.transpose(2, 1, 0))           # (m + 1, n + 1, S)
-            xb = XT[t0 : t0 + m + 1]
-            lb = lT[t0 : t0 + m]
-            # h = x − γx', zero on steps that do not learn;  Σ₀h likewise
-            H = (xb[:m] - g * xb[1:]) * lb[:, None, :]
-            PH = (GT[:m, :n] - g * GT[1:, :n]) * lb[:, None, :]
-            # xᵀΣ₀x and xᵀx for the reported variance
-            xPx = np.einsum("kns,kns->ks", xb[:m], GT[:m, :n])
-            xx = np.einsum("kns,kns->ks", xb[:m], xb[:m])
-            for k in range(m):
-                t = t0 + k
-                x_next, h, lt = xb[k + 1], H[k], lb[k]
-                Uk = U[:k]
-                # uⱼ·x' for the stored corrections (uⱼ·x was last step's uⱼ·x')
-                np.einsum("kns,ns->ks", Uk, x_next, out=uxn[:k])
-                # V(x) = ŵ₀·x + Σⱼ cⱼ uⱼ·x;  V(x') likewise
-                vx = GT[k, n] + np.einsum("ks,ks->s", C[:k], ux[:k])
-                vn = GT[k + 1, n] + np.einsum("ks,ks->s", C[:k], uxn[:k])
-                # xᵀΣx = xᵀΣ₀x + d xᵀx − Σⱼ (uⱼ·x)²
-                var = xPx[k] + d * xx[k] - np.einsum("ks,ks->s", ux[:k], ux[:k])
-                # δ = r + γV(x') − V(x)
-                delta = rT[t] + g * vn - vx
-                values[t], errors[t], variances[t] = vx, delta, var
-                # Σ⁻h = Σ₀h + (d + τ²)h − Σⱼ uⱼ (uⱼ·h),  uⱼ·h = uⱼ·x − γ uⱼ·x'
-                uh = (ux[:k] - g * uxn[:k]) * lt
-                np.multiply(h, d + tau2 * lt, out=a)
-                np.add(a, PH[k], out=a)
-                np.subtract(a, np.einsum("ks,kns->ns", uh, Uk), out=a)
-                # s = hᵀΣ⁻h + σ_r²
-                s = np.einsum("ns,ns->s", h, a) + noise
-                rs = 1.0 / np.sqrt(s)
-                # u = Σ⁻h/√s, c = δ/√s: Σ ← Σ⁻ − u uᵀ and ŵ ← ŵ + c u (k = u/√s, kδ = c u)
-                np.multiply(a, rs, out=U[k])
-                np.multiply(delta * rs, lt, out=C[k])
-                # Σ⁻ = Σ + τ²I, on learning steps only
-                d += tau2 * lt
-                # uₖ·x' for the next step, then swap the two inner-product buffers
-                np.einsum("ns,ns->s", U[k], x_next, out=uxn[k])
-                ux, uxn = uxn, ux
-            # apply the block: Σ ← Σ₀ + dI − UᵀU,  ŵ ← ŵ₀ + Σⱼ cⱼ uⱼ
-            Us = np.ascontiguousarray(U[:m].transpose(2, 0, 1))       # (S, m, n)
-            P -= np.matmul(Us.transpose(0, 2, 1), Us)
-            A[:, n] += np.matmul(np.ascontiguousarray(C[:m].T)[:, None, :], Us)[:, 0]
-            self._diag_view()[...] += d[:, None]
-            d[...] = 0.0
-        # keep every Σ exactly symmetric, as the single learners do
-        P[...] = (P + P.transpose(0, 2, 1)) * 0.5
-        return (_nan_outside(values.T.copy(), report), _nan_outside(errors.T.copy(), report),
-                _nan_outside(variances.T.copy(), report))
+        S, T1, _ = X.shape
+        out = np.empty((3, T1 - 1, S))
+        for c0 in range(0, S, self._chunk):
+            c = slice(c0, min(c0 + self._chunk, S))
+            _gaussian_steps(self._A[c], X[c], r[c], learn[c], gamma[c], self._tau2[c],
+                            self._noise[c], self._block, out[:, :, c])
+        values, errors, variances = (_nan_outside(o.T.copy(), report) for o in out)
+        return values, errors, variances
+
+
+def _gaussian_steps(A: np.ndarray, X: np.ndarray, r: np.ndarray, learn: np.ndarray,
+                    g: np.ndarray, tau2: np.ndarray, noise: np.ndarray, B: int,
+                    out: np.ndarray) -> None:
+    """The Kalman steps of S subjects (a chunk small enough to stay in cache), in place.
+
+    A: (S, n + 1, n) [Σ; ŵ] per subject, updated; X: (S, T + 1, n) rows; r, learn: (S, T);
+    g, tau2, noise: (S,) γ, τ², σ_r²; B: steps per block; out: (3, T, S) receives the
+    values, errors and variances (subject-last).
+    """
+    S, T1, n = X.shape
+    T = T1 - 1
+    P, W = A[:, :n], A[:, n]
+    # subject-last copies: every per-step array is (…, S), so numpy loops run S long
+    XT = np.ascontiguousarray(X.transpose(1, 2, 0))            # (T + 1, n, S)
+    rT = np.ascontiguousarray(r.T)                               # (T, S)
+    lT = learn.T.astype(np.float64)                              # (T, S) 1.0 = learn
+    values, errors, variances = out
+    U = np.empty((B, n, S))   # the stored corrections uⱼ (zero on steps that skip)
+    C = np.empty((B, S))      # their weight steps cⱼ = δⱼ/√sⱼ:  ŵ = ŵ₀ + Σⱼ cⱼ uⱼ
+    ux = np.empty((B, S))     # uⱼ·xₜ for the current step
+    uxn = np.empty((B, S))    # uⱼ·xₜ₊₁
+    a = np.empty((n, S))
+    M = np.empty((S, n, n))
+    d = np.zeros(S)           # diffusion added since the block began
+    At = A.transpose(0, 2, 1)
+    for t0 in range(0, T, B):
+        m = min(B, T - t0)
+        # xₜᵀ[Σ₀; ŵ₀]ᵀ for the block's rows t0 … t0 + m in one batched product
+        G = np.matmul(X[:, t0 : t0 + m + 1], At)                   # (S, m + 1, n + 1)
+        GT = np.ascontiguousarray(G.transpose(1, 2, 0))           # (m + 1, n + 1, S)
+        xb = XT[t0 : t0 + m + 1]
+        lb = lT[t0 : t0 + m]
+        # h = x − γx', zero on steps that do not learn;  Σ₀h likewise
+        H = (xb[:m] - g * xb[1:]) * lb[:, None, :]
+        PH = (GT[:m, :n] - g * GT[1:, :n]) * lb[:, None, :]
+        # xᵀΣ₀x and xᵀx for the reported variance
+        xPx = np.einsum("kns,kns->ks", xb[:m], GT[:m, :n])
+        xx = np.einsum("kns,kns->ks", xb[:m], xb[:m])
+        for k in range(m):
+            t = t0 + k
+            x_next, h, lt = xb[k + 1], H[k], lb[k]
+            Uk = U[:k]
+            # uⱼ·x' for the stored corrections (uⱼ·x was last step's uⱼ·x')
+            np.einsum("kns,ns->ks", Uk, x_next, out=uxn[:k])
+            # V(x) = ŵ₀·x + Σⱼ cⱼ uⱼ·x;  V(x') likewise
+            vx = GT[k, n] + np.einsum("ks,ks->s", C[:k], ux[:k])
+            vn = GT[k + 1, n] + np.einsum("ks,ks->s", C[:k], uxn[:k])
+            # xᵀΣx = xᵀΣ₀x + d xᵀx − Σⱼ (uⱼ·x)²
+            np.subtract(xPx[k] + d * xx[k], np.einsum("ks,ks->s", ux[:k], ux[:k]),
+                        out=variances[t])
+            values[t] = vx
+            # δ = r + γV(x') − V(x)
+            delta = errors[t]
+            np.subtract(rT[t] + g * vn, vx, out=delta)
+            # Σ⁻h = Σ₀h + (d + τ²)h − Σⱼ uⱼ (uⱼ·h),  uⱼ·h = uⱼ·x − γ uⱼ·x'
+            uh = (ux[:k] - g * uxn[:k]) * lt
+            np.multiply(h, d + tau2 * lt, out=a)
+            np.add(a, PH[k], out=a)
+            np.subtract(a, np.einsum("ks,kns->ns", uh, Uk), out=a)
+            # s = hᵀΣ⁻h + σ_r²
+            rs = 1.0 / np.sqrt(np.einsum("ns,ns->s", h, a) + noise)
+            # u = Σ⁻h/√s, c = δ/√s: Σ ← Σ⁻ − u uᵀ and ŵ ← ŵ + c u (k = u/√s, kδ = c u)
+            np.multiply(a, rs, out=U[k])
+            np.multiply(delta * rs, lt, out=C[k])
+            # Σ⁻ = Σ + τ²I, on learning steps only
+            d += tau2 * lt
+            # uₖ·x' for the next step, then swap the two inner-product buffers
+            np.einsum("ns,ns->s", U[k], x_next, out=uxn[k])
+            ux, uxn = uxn, ux
+        # apply the block: Σ ← Σ₀ + dI − UᵀU,  ŵ ← ŵ₀ + Σⱼ cⱼ uⱼ
+        Us = np.ascontiguousarray(U[:m].transpose(2, 0, 1))          # (S, m, n)
+        np.matmul(np.ascontiguousarray(U[:m].transpose(2, 1, 0)), Us, out=M)
+        # (UᵀU is exactly symmetric: each entry sums the same products in the same order)
+        np.subtract(P, M, out=P)
+        W += np.matmul(np.ascontiguousarray(C[:m].T)[:, None, :], Us)[:, 0]
+        diag = A.reshape(S, -1)[:, : n * n : n + 1]
+        diag += d[:, None]
+        d[...] = 0.0
 
 
 class BatchKalmanTD(_BatchGaussian):
@@ -353,8 +372,9 @@ class BatchKalmanTD(_BatchGaussian):
 
     def __init__(self, n_subjects: int, n_features: int, gamma: Any = 0.95,
                  diffusion: Any = 0.01, noise: Any = 1.0, prior_var: Any = 1.0, *,
-                 block: int = _BLOCK):
-        super().__init__(n_subjects, n_features, diffusion, noise, prior_var, gamma, block=block)
+                 block: int = _BLOCK, chunk: int = _CHUNK):
+        super().__init__(n_subjects, n_features, diffusion, noise, prior_var, gamma,
+                         block=block, chunk=chunk)
 
     @property
     def gamma(self) -> np.ndarray:
@@ -364,9 +384,10 @@ class BatchKalmanTD(_BatchGaussian):
         return {"gamma": float(self._gamma[s]), **super()._params(s)}
 
     @classmethod
-    def from_learners(cls, learners: Sequence[KalmanTD], *, block: int = _BLOCK) -> BatchKalmanTD:
-        """A batch holding copies of these learners (same n), subject s = learners[s]."""
-        return cls._from(learners, ("gamma", "diffusion", "noise", "prior_var"), block=block)
+    def from_learners(cls, learners: Sequence[KalmanTD], **speed: int) -> BatchKalmanTD:
+        """A batch holding copies of these learners (same n), subject s = learners[s];
+        ``speed``: ``block`` / ``chunk`` as in the constructor."""
+        return cls._from(learners, ("gamma", "diffusion", "noise", "prior_var"), **speed)
 
     def learn_steps(self, X: Any, X_next: Any, r: Any, active: Any = None, *,
                     skip_empty: bool = True) -> BatchResult:
@@ -407,14 +428,15 @@ class BatchKalmanFilter(_BatchGaussian):
     _single = KalmanFilter
 
     def __init__(self, n_subjects: int, n_features: int, diffusion: Any = 0.01,
-                 noise: Any = 1.0, prior_var: Any = 1.0, *, block: int = _BLOCK):
-        super().__init__(n_subjects, n_features, diffusion, noise, prior_var, 0.0, block=block)
+                 noise: Any = 1.0, prior_var: Any = 1.0, *, block: int = _BLOCK,
+                 chunk: int = _CHUNK):
+        super().__init__(n_subjects, n_features, diffusion, noise, prior_var, 0.0,
+                         block=block, chunk=chunk)
 
     @classmethod
-    def from_learners(cls, learners: Sequence[KalmanFilter], *,
-                      block: int = _BLOCK) -> BatchKalmanFilter:
+    def from_learners(cls, learners: Sequence[KalmanFilter], **speed: int) -> BatchKalmanFilter:
         """A batch holding copies of these learners (same n), subject s = learners[s]."""
-        return cls._from(learners, ("diffusion", "noise", "prior_var"), block=block)
+        return cls._from(learners, ("diffusion", "noise", "prior_var"), **speed)
 
     def learn_steps(self, X: Any, r: Any, active: Any = None) -> BatchResult:
         """One observation per active subject: X (S, n) rows, r (S,) rewards, as

@@ -625,12 +625,23 @@ class ModelSpec:
 
 def spec_from_rules(rules, learner: str | None = None) -> ModelSpec:
     """The rule file's learner (or ``learner``) on its representation, started at its
-    parameters; Bayesian learners keep the file's ``noise`` (see the module docstring)."""
+    parameters; Bayesian learners keep the file's ``noise`` (see the module docstring).
+
+    A learner of the other target than the file's gets the matching representation of
+    the same cues (as the rule-file loader requires): a reward learner one row per trial
+    (``identity``), a value learner ``presence`` rows at the file's ``dt``.
+    """
+    from .features import make_representation
     from .subject import representation_for
 
     rep = representation_for(rules)
     name = learner or rules.learner.name
     model_parameters(name)  # unknown name: a clear error now
+    reward_learner = LEARNERS[name].kind == "reward"
+    if reward_learner and rep.timed:
+        rep = make_representation("identity", rep.cues)
+    elif not reward_learner and not rep.timed:
+        rep = make_representation("presence", rep.cues, dt=rules.features.dt)
     fixed = default_fixed(name, rep)
     start: dict[str, float] = {}
     if name == rules.learner.name:
@@ -638,7 +649,8 @@ def spec_from_rules(rules, learner: str | None = None) -> ModelSpec:
             if key in fixed:
                 fixed[key] = value
             elif isinstance(value, (int, float)) and not isinstance(value, bool):
-                start[key] = float(value)
+                spec = PARAMETERS[key]
+                start[key] = min(max(float(value), spec.lo), spec.hi)
     return ModelSpec(name, rep, rules.reward_unit_ul, fixed, start or None)
 
 
@@ -653,7 +665,9 @@ def compare_learners(
     """Fit each candidate in ``models`` to the same trials; the results ranked by AIC.
 
     models: ``ModelSpec`` values, or loaded ``Rules`` (their learner and representation).
-    Rows are computed once per distinct representation and reward unit.
+    Rows are computed once per distinct representation and reward unit. The likelihoods
+    are of the same responses, so their AICs compare whatever the representations.
+    progress(done, total) counts starts over all the models.
     """
     specs = [m if isinstance(m, ModelSpec) else spec_from_rules(m) for m in models]
     if not specs:
@@ -665,10 +679,12 @@ def compare_learners(
         key = (spec.representation, spec.reward_unit_ul)
         if key not in prepared:
             prepared[key] = prepare(events, spec.representation, reward_unit_ul=spec.reward_unit_ul)
-        results.append(fit_subject(prepared[key], spec.learner, fixed=spec.fixed, start=spec.start,
-                                   starts=starts, seed=seed))
+        each = None
         if progress is not None:
-            progress(i + 1, len(specs))
+            def each(done: int, total: int, i: int = i) -> None:
+                progress(i * total + done, len(specs) * total)
+        results.append(fit_subject(prepared[key], spec.learner, fixed=spec.fixed, start=spec.start,
+                                   starts=starts, seed=seed, progress=each))
     return sorted(results, key=lambda r: r.aic)
 
 
@@ -693,7 +709,8 @@ def fit_from_store(
 
     infos = store.sessions(subject)
     if not infos:
-        raise BadArgument("subject", "a subject with stored sessions", subject)
+        known = ", ".join(store.subjects()) or "none"
+        raise BadArgument("subject", f"a subject with stored sessions (subjects: {known})", subject)
     if session is not None:
         names = [i.session for i in infos]
         if session not in names:
@@ -753,6 +770,40 @@ def format_ranking(results: Sequence[FitResult]) -> str:
         lines.append(f"  {i + 1:<6}{r.learner:<18}{r.k:>3}{r.log_likelihood:>12.3f}{r.aic:>12.3f}"
                      f"{r.aic - best:>9.2f}{r.bic:>12.3f}")
     return "\n".join(lines)
+
+
+def run_command(db: str, subject: str, learners: Sequence[str] | None = None,
+                session: str | None = None, *, starts: int = 4, as_json: bool = False,
+                out=None) -> int:
+    """``rigloop fit``: fit the stored subject, print the table(s) (or JSON); exit status."""
+    import json
+    import sys
+
+    from .progress import Progress
+    from .store import Store
+
+    out = out or sys.stdout
+    names = list(learners) if learners else None
+    with Store(db, create=False) as store:
+        bar = Progress(0, f"fitting {subject}")
+        got = fit_from_store(store, subject, learner=names if names and len(names) > 1 else
+                             (names[0] if names else None), session=session, starts=starts,
+                             progress=bar)
+        bar.close()
+    results = got if isinstance(got, list) else [got]
+    if as_json:
+        doc = {"subject": subject, "session": session, "fits": [r.to_dict() for r in results],
+               "ranking": [r.learner for r in sorted(results, key=lambda r: r.aic)]}
+        print(json.dumps(doc, indent=2), file=out)
+        return 0
+    print(f"subject {subject}" + (f", session {session}" if session else ", all sessions"), file=out)
+    for r in results:
+        print(format_fit(r), file=out)
+    if len(results) > 1:
+        print("ranking by AIC (lower is better; dAIC > 10: essentially no support, common practice)",
+              file=out)
+        print(format_ranking(results), file=out)
+    return 0
 
 
 # --------------------------------------------------------------------------- checks

@@ -748,7 +748,7 @@ class Daemon:
         key = ev.key
         earlier = self._batch_keys.get(key)
         if earlier is not None:
-            if earlier.event != ev:
+            if not _same_trial(ev, earlier.event):
                 return self._error(req.id, "conflict", str(ConflictingTrial(*key)), "trial")
             return _Pending(src, req.id, t, ev, earlier.decision, None, None, earlier.state, echo_of=earlier)
         info = self.open.get(ev.subject)
@@ -777,6 +777,10 @@ class Daemon:
             return self._error(req.id, "bad_field", f"session {ev.session!r} runs on rig {info.rig!r}, not on "
                                                     f"{ev.rig!r}", "rig")
         rules = self._rules_for(info)
+        if ev.wall_time == 0.0:
+            # the rig sent no start time: stamp ours before step, so the stored event (and
+            # so replay) has the time the schedule saw; retries match it by _same_trial
+            ev = replace(ev, wall_time=float(self.clock()))
         new_state, decision, update = step(state, ev, rules)
         snapshot = None
         if new_state.trials_total % self.settings.snapshot_every == 0 or decision.end_session:
@@ -789,7 +793,7 @@ class Daemon:
 
     def _duplicate(self, req_id: Any, ev: TrialEvent, stored: tuple[TrialEvent, Decision]) -> Any:
         stored_event, decision = stored
-        if stored_event != ev:
+        if not _same_trial(ev, stored_event):
             return self._error(req_id, "conflict", str(ConflictingTrial(*ev.key)), "trial")
         self.counts["duplicates"] += 1
         return wire.DecisionReply(req_id, decision, True)
@@ -980,6 +984,14 @@ class Daemon:
                        for link in self.serial_links],
             "rules": sorted(self.rules),
         }
+
+
+def _same_trial(incoming: TrialEvent, stored: TrialEvent) -> bool:
+    """A retry matches the stored trial; one sent without a start time matches the
+    stored trial that the daemon stamped on its first arrival."""
+    if incoming == stored:
+        return True
+    return incoming.wall_time == 0.0 and incoming == replace(stored, wall_time=0.0)
 
 
 def _req_id(req: Any) -> Any:

@@ -74,8 +74,8 @@ class _Client:
         return reply
 
     def open(self, subject: str, session: str, rules: str, *, seed: int | None = None,
-             profile: str | None = None) -> wire.DecisionReply:
-        req = wire.OpenSession(self.next_id(), subject, self.rig, session, rules, seed, profile)
+             profile: str | None = None, wall_time: float | None = None) -> wire.DecisionReply:
+        req = wire.OpenSession(self.next_id(), subject, self.rig, session, rules, seed, profile, wall_time)
         return self._checked(self.request(req), wire.DecisionReply)
 
     def trial(self, event: TrialEvent) -> wire.DecisionReply:
@@ -290,14 +290,14 @@ def drive_session(client: _Client, animal: Any, *, session: str, rules: str, tri
     daemon (each next trial made by the animal from the last decision). Returns
     ``[(event, decision after it)]``; stops early when a decision ends the session.
 
-    Trials are accelerated: their ``wall_time`` starts at ``start_time`` (now, by
-    default: the daemon stamps the session's opening with its own clock) and advances
-    ``trial_s`` per trial however fast the daemon answers."""
+    Trials are accelerated: the session opens at ``start_time`` on the rig's clock (now,
+    by default) and each trial's ``wall_time`` advances ``trial_s`` however fast the
+    daemon answers, so session minutes, time limits and water pace run accelerated too."""
+    t = time.time() if start_time is None else start_time
     if first is None:
-        first = client.open(animal.subject, session, rules, seed=seed).decision
+        first = client.open(animal.subject, session, rules, seed=seed, wall_time=t).decision
     decision = first
     out: list[tuple[TrialEvent, Decision]] = []
-    t = time.time() if start_time is None else start_time
     while len(out) < trials and not decision.end_session:
         event = animal.trial(decision, client.rig, t)
         reply = client.trial(event)

@@ -100,8 +100,9 @@ opens = st.builds(
     rig=idents,
     session=idents,
     rules=idents,
-    seed=st.one_of(st.none(), st.integers(0, 2**64 - 1)),
+    seed=st.one_of(st.none(), st.integers(0, 2**63 - 1)),  # the store keeps seeds as SQLite integers
     profile=st.one_of(st.none(), idents),
+    wall_time=st.one_of(st.none(), st.floats(0, 4e9, allow_nan=False)),
 )
 trial_reports = st.builds(TrialReport, id=request_ids, event=trial_events())
 closes = st.builds(CloseSession, id=request_ids, subject=idents, rig=idents, session=idents)

@@ -215,7 +215,9 @@ def test_reply_line_round_trip(reply):
     line = format_reply_line(reply)
     assert len(line) <= MAX_LINE + 1
     back = parse_reply_line(line, require_checksum=True)
-    assume(b"[...]" not in line and b"omitted=" not in line)
+    # a reply that had to be cut (a field shortened, or dropped when not even the
+    # marker fitted) is what it is; the rest must read back exactly
+    assume(line == format_reply_line(reply, max_line=1 << 20))
     assert back == reply
 
 

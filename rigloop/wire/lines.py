@@ -275,7 +275,7 @@ def _serial_key(name: str, table: dict[str, str]) -> str:
 
 
 def _read_open(f: _Line) -> OpenSession:
-    f.only(("id", "subj", "rig", "sess", "rules", "seed", "profile"))
+    f.only(("id", "subj", "rig", "sess", "rules", "seed", "profile", "wall"))
     seed = f.raw("seed", optional=True)
     return OpenSession(
         f.rid,
@@ -285,6 +285,7 @@ def _read_open(f: _Line) -> OpenSession:
         f.text("rules"),
         seed=None if seed is None else read_int(seed, "seed"),
         profile=f.text("profile", optional=True),
+        wall_time=f.number("wall", optional=True),
     )
 
 
@@ -448,6 +449,8 @@ def _write_open(r: OpenSession) -> list[tuple[str, str]]:
         out.append(("seed", str(r.seed)))
     if r.profile is not None:
         out.append(("profile", fmt_str(r.profile)))
+    if r.wall_time is not None:
+        out.append(("wall", fmt_float(r.wall_time)))
     return out
 
 

@@ -189,7 +189,9 @@ class OpenSession:
     """The rig starts ``session`` for ``subject`` on ``rig`` under rule file ``rules``.
 
     ``seed`` fixes the session's random draws (rigloop picks one when None);
-    ``profile`` names the rig profile (cues, valve calibration) when the rig has one.
+    ``profile`` names the rig profile (cues, valve calibration) when the rig has one;
+    ``wall_time`` is the session's start on the rig's clock (s since the Unix epoch) —
+    send it whenever trials carry ``wall_time``, so session minutes are read off one clock.
     """
 
     id: RequestId
@@ -199,6 +201,7 @@ class OpenSession:
     rules: str
     seed: int | None = None
     profile: str | None = None
+    wall_time: float | None = None
     type: ClassVar[str] = "open"
 
     def __post_init__(self) -> None:
@@ -206,11 +209,16 @@ class OpenSession:
         for name in ("subject", "rig", "session", "rules"):
             check_ident(name, getattr(self, name))
         if self.seed is not None and (
-            isinstance(self.seed, bool) or not isinstance(self.seed, int) or not 0 <= self.seed < 2**64
+            isinstance(self.seed, bool) or not isinstance(self.seed, int) or not 0 <= self.seed < 2**63
         ):
-            raise BadArgument("seed", "a whole number in [0, 2**64) or nil", self.seed)
+            raise BadArgument("seed", "a whole number in [0, 2**63) or nil", self.seed)
         if self.profile is not None:
             check_ident("profile", self.profile)
+        if self.wall_time is not None:
+            w = self.wall_time
+            if isinstance(w, bool) or not isinstance(w, (int, float)) or not math.isfinite(w) or w < 0:
+                raise BadArgument("wall_time", "a finite number of seconds since the epoch >= 0, or nil", w)
+            object.__setattr__(self, "wall_time", float(w))
 
 
 @dataclass(frozen=True, slots=True)

@@ -72,6 +72,8 @@ def encode_request(req: Request) -> bytes:
             body["seed"] = req.seed
         if req.profile is not None:
             body["profile"] = req.profile
+        if req.wall_time is not None:
+            body["wall_time"] = req.wall_time
     elif isinstance(req, CloseSession):
         body.update(subject=req.subject, rig=req.rig, session=req.session)
     elif isinstance(req, QueryState):
@@ -271,7 +273,7 @@ def _is_int(v: Any) -> bool:
 
 
 def _read_open(f: _Fields) -> OpenSession:
-    f.only("subject", "rig", "session", "rules", "seed", "profile")
+    f.only("subject", "rig", "session", "rules", "seed", "profile", "wall_time")
     return OpenSession(
         f.rid,
         f.text("subject"),
@@ -280,6 +282,8 @@ def _read_open(f: _Fields) -> OpenSession:
         f.text("rules"),
         seed=f.get("seed", "a whole number", _is_int, optional=True),
         profile=f.text("profile", optional=True),
+        wall_time=f.get("wall_time", "a number", lambda v: isinstance(v, (int, float)) and not isinstance(v, bool),
+                        optional=True),
     )
 
 

@@ -99,7 +99,7 @@ def main(argv: list[str] | None = None) -> int:
             if decision is None or decision.end_session:
                 n_session += 1
                 animal = SimulatedAnimal(f"b{n_session}", seed=n_session)
-                decision = rig.open(animal.subject, "s1", RULES).decision
+                decision = rig.open(animal.subject, "s1", RULES, wall_time=t_wall).decision
             event = animal.trial(decision, rig.rig, t_wall)
             t_wall += 4.0
             frame = wire.encode_request(wire.TrialReport(rig.next_id(), event))

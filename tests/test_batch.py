@@ -1,0 +1,336 @@
+"""Batched learners equal the single-subject learners step for step (oracle tests)."""
+
+import numpy as np
+import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+
+from rigloop.batch import BatchKalmanFilter, BatchKalmanTD, BatchRescorlaWagner, BatchTD
+from rigloop.errors import BadArgument
+from rigloop.learners import TD, KalmanFilter, KalmanTD, RescorlaWagner
+
+TOL = 1e-12
+
+
+def random_trials(rng, S, T, n, p_on=0.3, lead_zero=True):
+    """Padded trials: (S, T, n) 0/1 rows with featureless lead-in rows and stray zero rows,
+    rewards (S, T), lengths (S,) from 0 to T; the padding holds junk that must be ignored."""
+    Xs = (rng.random((S, T, n)) < p_on).astype(float)
+    if lead_zero:
+        Xs[:, : int(rng.integers(0, 3))] = 0.0
+    Xs[rng.random((S, T)) < 0.15] = 0.0
+    rs = np.where(rng.random((S, T)) < 0.3, rng.normal(1.0, 0.5, (S, T)), 0.0)
+    lengths = rng.integers(0, T + 1, S)
+    pad = np.arange(T)[None, :] >= lengths[:, None]
+    Xs[pad] = 7.0  # junk past each length
+    rs[pad] = -3.0
+    return Xs, rs, lengths
+
+
+def kalman_params(rng, S):
+    return dict(gamma=rng.uniform(0, 1, S), diffusion=rng.uniform(0, 0.1, S),
+                noise=rng.uniform(0.1, 2, S), prior_var=rng.uniform(0.2, 3, S))
+
+
+def assert_trial_matches(single_result, batch_result, s, length):
+    """Per-step values, errors and variances of subject s equal the single learner's."""
+    for name in ("values", "errors", "variances"):
+        ref = getattr(single_result, name)
+        got = getattr(batch_result, name)
+        if ref is None:
+            assert got is None
+            continue
+        np.testing.assert_allclose(got[s, :length], ref, rtol=0, atol=TOL, err_msg=name)
+        assert np.all(np.isnan(got[s, length:])), f"{name} past the length must be nan"
+
+
+def assert_state_matches(singles, batch):
+    for s, learner in enumerate(singles):
+        np.testing.assert_allclose(batch.w[s], learner.w, rtol=0, atol=TOL)
+        if hasattr(learner, "cov"):
+            np.testing.assert_allclose(batch.cov[s], learner.cov, rtol=0, atol=TOL)
+
+
+# --------------------------------------------------------------------------- Kalman TD
+
+
+@pytest.mark.parametrize("block,chunk", [(12, 128), (3, 2), (1, 1), (50, 5)])
+def test_kalman_td_trials_equal_single_learners(block, chunk):
+    """learn_trials over varying lengths, featureless rows and per-subject parameters equals
+    KalmanTD.learn_trial per subject (values, errors, variances, w, cov) to 1e-12, for any
+    block and chunk size."""
+    rng = np.random.default_rng(block * 100 + chunk)
+    S, n, T = 7, 5, 14
+    params = kalman_params(rng, S)
+    singles = [KalmanTD(n, **{k: v[s] for k, v in params.items()}) for s in range(S)]
+    batch = BatchKalmanTD(S, n, **params, block=block, chunk=chunk)
+    for _ in range(6):
+        Xs, rs, lengths = random_trials(rng, S, T, n)
+        got = batch.learn_trials(Xs, rs, lengths)
+        for s in range(S):
+            L = lengths[s]
+            assert_trial_matches(singles[s].learn_trial(Xs[s, :L], rs[s, :L]), got, s, L)
+        assert_state_matches(singles, batch)
+
+
+def test_kalman_td_steps_equal_update_and_learn_trial():
+    """learn_steps(skip_empty=False) is KalmanTD.update per active subject; with the default
+    skip_empty=True a featureless row reports its error r + γV(x') and learns nothing; an
+    inactive subject is unchanged and reports nan."""
+    rng = np.random.default_rng(3)
+    S, n = 6, 4
+    params = kalman_params(rng, S)
+    plain = [KalmanTD(n, **{k: v[s] for k, v in params.items()}) for s in range(S)]
+    skipping = [KalmanTD.from_state(lr.state()) for lr in plain]
+    b_plain = BatchKalmanTD(S, n, **params)
+    b_skip = BatchKalmanTD(S, n, **params)
+    for _ in range(25):
+        X = (rng.random((S, n)) < 0.4).astype(float)
+        X[rng.random(S) < 0.3] = 0.0
+        X_next = (rng.random((S, n)) < 0.4).astype(float)
+        r = rng.normal(size=S)
+        active = rng.random(S) < 0.8
+        got = b_plain.learn_steps(X, X_next, r, active, skip_empty=False)
+        got_skip = b_skip.learn_steps(X, X_next, r, active)
+        for s in range(S):
+            if not active[s]:
+                assert np.isnan(got.errors[s]) and np.isnan(got_skip.values[s])
+                continue
+            assert got.errors[s] == pytest.approx(plain[s].update(X[s], X_next[s], r[s]), abs=TOL)
+            # a featureless x: the error is reported, nothing is learned (learn_trial's rule)
+            if X[s].any():
+                delta = skipping[s].update(X[s], X_next[s], r[s])
+            else:
+                delta = r[s] + skipping[s].gamma * float(X_next[s] @ skipping[s].w)
+            assert got_skip.errors[s] == pytest.approx(delta, abs=TOL)
+        assert_state_matches(plain, b_plain)
+        assert_state_matches(skipping, b_skip)
+
+
+def test_kalman_td_zero_diffusion_is_bayesian_regression():
+    """τ² = 0: every subject's batch posterior is Σ = (I/c + HᵀH/σ²)⁻¹, μ = Σ Hᵀr/σ² over the
+    steps it learned from (h = x − γx', featureless rows skipped), to 1e-10."""
+    # Geist & Pietquin (2010) JAIR 39:483 [S abstract]; batch oracle [C, methods.md §4]
+    rng = np.random.default_rng(11)
+    S, n, T, gamma, c, noise = 4, 5, 8, 0.9, 1.5, 0.4
+    batch = BatchKalmanTD(S, n, gamma=gamma, diffusion=0.0, noise=noise, prior_var=c, block=5)
+    H, R = [[] for _ in range(S)], [[] for _ in range(S)]
+    for _ in range(5):
+        Xs, rs, lengths = random_trials(rng, S, T, n)
+        batch.learn_trials(Xs, rs, lengths)
+        for s in range(S):
+            X = Xs[s, : lengths[s]]
+            X_next = np.vstack([X[1:], np.zeros((1, n))])
+            keep = X.any(axis=1)
+            H[s].append((X - gamma * X_next)[keep])
+            R[s].append(rs[s, : lengths[s]][keep])
+    for s in range(S):
+        Hs, Rs = np.vstack(H[s]), np.concatenate(R[s])
+        cov = np.linalg.inv(np.eye(n) / c + Hs.T @ Hs / noise)
+        np.testing.assert_allclose(batch.cov[s], cov, rtol=0, atol=1e-10)
+        np.testing.assert_allclose(batch.w[s], cov @ Hs.T @ Rs / noise, rtol=0, atol=1e-10)
+
+
+def test_kalman_td_real_valued_dense_rows():
+    """Dense real-valued rows (not cue indicators) give the same numbers as the single learner."""
+    rng = np.random.default_rng(5)
+    S, n, T = 5, 6, 9
+    params = kalman_params(rng, S)
+    singles = [KalmanTD(n, **{k: v[s] for k, v in params.items()}) for s in range(S)]
+    batch = BatchKalmanTD(S, n, **params, block=4, chunk=3)
+    for _ in range(4):
+        Xs = rng.uniform(-1, 1, (S, T, n))
+        rs = rng.normal(size=(S, T))
+        lengths = np.full(S, T)
+        got = batch.learn_trials(Xs, rs, lengths)
+        for s in range(S):
+            assert_trial_matches(singles[s].learn_trial(Xs[s], rs[s]), got, s, T)
+    assert_state_matches(singles, batch)
+
+
+# --------------------------------------------------------------------------- Kalman filter
+
+
+@pytest.mark.parametrize("block", [12, 2])
+def test_kalman_filter_equals_single_learners(block):
+    """BatchKalmanFilter.learn_trials and learn_steps equal KalmanFilter.learn_trial and
+    update per subject (an all-zero row is observed too: it diffuses)."""
+    rng = np.random.default_rng(20 + block)
+    S, n, T = 6, 4, 5
+    params = kalman_params(rng, S)
+    del params["gamma"]
+    singles = [KalmanFilter(n, **{k: v[s] for k, v in params.items()}) for s in range(S)]
+    batch = BatchKalmanFilter(S, n, **params, block=block, chunk=4)
+    for _ in range(5):
+        Xs, rs, lengths = random_trials(rng, S, T, n, lead_zero=False)
+        got = batch.learn_trials(Xs, rs, lengths)
+        for s in range(S):
+            L = lengths[s]
+            assert_trial_matches(singles[s].learn_trial(Xs[s, :L], rs[s, :L]), got, s, L)
+        X = (rng.random((S, n)) < 0.5).astype(float)
+        r = rng.normal(size=S)
+        active = rng.random(S) < 0.7
+        step = batch.learn_steps(X, r, active)
+        for s in np.flatnonzero(active):
+            assert step.errors[s] == pytest.approx(singles[s].update(X[s], r[s]), abs=TOL)
+        assert np.all(np.isnan(step.errors[~active]))
+        assert_state_matches(singles, batch)
+
+
+# --------------------------------------------------------------------------- point learners
+
+
+def test_rescorla_wagner_equals_single_learners():
+    """BatchRescorlaWagner equals RescorlaWagner per subject, with scalar, per-subject and
+    per-feature rates."""
+    rng = np.random.default_rng(30)
+    S, n, T = 5, 3, 4
+    alphas = [0.1, 0.3, rng.uniform(0, 0.2, n), 0.05, rng.uniform(0, 0.2, n)]
+    singles = [RescorlaWagner(n, alpha=a) for a in alphas]
+    batch = BatchRescorlaWagner.from_learners(singles)
+    for _ in range(6):
+        Xs, rs, lengths = random_trials(rng, S, T, n, lead_zero=False)
+        got = batch.learn_trials(Xs, rs, lengths)
+        for s in range(S):
+            L = lengths[s]
+            assert_trial_matches(singles[s].learn_trial(Xs[s, :L], rs[s, :L]), got, s, L)
+        X = (rng.random((S, n)) < 0.5).astype(float)
+        r = rng.normal(size=S)
+        step = batch.learn_steps(X, r, np.arange(S) % 2 == 0)
+        for s in range(0, S, 2):
+            assert step.errors[s] == pytest.approx(singles[s].update(X[s], r[s]), abs=TOL)
+        assert_state_matches(singles, batch)
+
+
+def test_td_equals_single_learners():
+    """BatchTD equals TD(λ) per subject: the trace resets at each trial, carries on through
+    learn_steps, and λ, γ, α may differ per subject."""
+    rng = np.random.default_rng(31)
+    S, n, T = 5, 4, 7
+    singles = [TD(n, alpha=rng.uniform(0, 0.2), gamma=rng.uniform(0, 1), lam=lam)
+               for lam in (0.0, 0.5, 1.0, 0.9, 0.0)]
+    singles[1] = TD(n, alpha=rng.uniform(0, 0.2, n), gamma=0.8, lam=0.7)
+    batch = BatchTD.from_learners(singles)
+    for _ in range(5):
+        Xs, rs, lengths = random_trials(rng, S, T, n)
+        got = batch.learn_trials(Xs, rs, lengths)
+        for s in range(S):
+            L = lengths[s]
+            if L:
+                assert_trial_matches(singles[s].learn_trial(Xs[s, :L], rs[s, :L]), got, s, L)
+        X, X_next = rng.random((S, n)), rng.random((S, n))
+        r = rng.normal(size=S)
+        step = batch.learn_steps(X, X_next, r)
+        for s in range(S):
+            assert step.errors[s] == pytest.approx(singles[s].update(X[s], X_next[s], r[s]), abs=TOL)
+        assert_state_matches(singles, batch)
+        for s in range(S):
+            np.testing.assert_allclose(batch.z[s], singles[s].z, rtol=0, atol=TOL)
+
+
+# --------------------------------------------------------------------------- round trips
+
+
+def trained(cls, n, rng, **params):
+    learner = cls(n, **params)
+    X = (rng.random((6, n)) < 0.5).astype(float)
+    learner.learn_trial(X, rng.normal(size=6))
+    return learner
+
+
+@pytest.mark.parametrize("batch_cls,cls,params", [
+    (BatchKalmanTD, KalmanTD, {"gamma": 0.9, "diffusion": 0.02, "noise": 0.3, "prior_var": 2.0}),
+    (BatchKalmanFilter, KalmanFilter, {"diffusion": 0.0, "noise": 1.5, "prior_var": 0.5}),
+    (BatchTD, TD, {"alpha": [0.1, 0.2, 0.0], "gamma": 0.7, "lam": 0.4}),
+    (BatchTD, TD, {"alpha": 0.3, "gamma": 0.95, "lam": 0.0}),
+    (BatchRescorlaWagner, RescorlaWagner, {"alpha": [0.1, 0.2, 0.05]}),
+    (BatchRescorlaWagner, RescorlaWagner, {"alpha": 0.25}),
+])
+def test_from_learners_to_learners_round_trip_is_exact(batch_cls, cls, params):
+    """to_learners(from_learners(ls)) gives learners whose state() equals the originals' bit
+    for bit (arrays and parameters, scalar rates stay scalar)."""
+    rng = np.random.default_rng(40)
+    originals = [trained(cls, 3, rng, **params) for _ in range(4)]
+    back = batch_cls.from_learners(originals).to_learners()
+    for a, b in zip(originals, back, strict=True):
+        sa, sb = a.state(), b.state()
+        assert sa.keys() == sb.keys()
+        for key in sa:
+            assert type(sa[key]) is type(sb[key]), key
+            np.testing.assert_array_equal(sa[key], sb[key], err_msg=key)
+        assert a.params() == b.params()
+
+
+def test_from_learners_rejects_mixed_lists():
+    """A batch holds one learner type with one feature count; the error names the culprit."""
+    with pytest.raises(BadArgument, match=r"^'learners\[1\]' must be a KalmanTD \(got 'TD'\)$"):
+        BatchKalmanTD.from_learners([KalmanTD(2), TD(2)])
+    with pytest.raises(BadArgument, match=r"^'learners' must be learners with the same n_features"):
+        BatchKalmanTD.from_learners([KalmanTD(2), KalmanTD(3)])
+
+
+# --------------------------------------------------------------------------- arguments
+
+
+def test_bad_arguments_name_the_argument():
+    """Wrong shapes, lengths out of range and bad per-subject parameters raise BadArgument
+    naming the argument, what was expected and what came; nothing changes."""
+    batch = BatchKalmanTD(3, 2)
+    before = batch.w.copy()
+    with pytest.raises(BadArgument, match=r"^'Xs' must be a float array of shape \(3, T, 2\) "
+                                          r"\(got shape \(3, 4, 5\)\)$"):
+        batch.learn_trials(np.zeros((3, 4, 5)), np.zeros((3, 4)), [4, 4, 4])
+    with pytest.raises(BadArgument, match=r"^'lengths' must be whole numbers in \[0, 4\]"):
+        batch.learn_trials(np.zeros((3, 4, 2)), np.zeros((3, 4)), np.array([4, 5, 1]))
+    with pytest.raises(BadArgument, match=r"^'rs' must be a float array of shape \(3, 4\) with "
+                                          r"finite entries \(got nan at index \(0, 1\)\)$"):
+        batch.learn_trials(np.zeros((3, 4, 2)), np.array([[0, np.nan, 0, 0]] * 3), np.array([4] * 3))
+    with pytest.raises(BadArgument, match=r"^'active' must be a bool array of shape \(3,\) or None"):
+        batch.learn_steps(np.zeros((3, 2)), np.zeros((3, 2)), np.zeros(3), active=[1, 0, 1])
+    with pytest.raises(BadArgument, match=r"^'noise\[1\]' must be a finite number > 0 \(got 0\.0\)$"):
+        BatchKalmanTD(3, 2, noise=[1.0, 0.0, 1.0])
+    with pytest.raises(BadArgument, match=r"^'gamma' must be a number or a sequence of 3 numbers"):
+        BatchKalmanTD(3, 2, gamma=[0.9, 0.9])
+    np.testing.assert_array_equal(batch.w, before)
+
+
+# --------------------------------------------------------------------------- properties
+
+
+@st.composite
+def batch_cases(draw):
+    S = draw(st.integers(1, 4))
+    n = draw(st.integers(1, 5))
+    T = draw(st.integers(1, 10))
+    seed = draw(st.integers(0, 2**32 - 1))
+    block = draw(st.integers(1, 6))
+    chunk = draw(st.integers(1, 4))
+    dense = draw(st.booleans())
+    return S, n, T, seed, block, chunk, dense
+
+
+@settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(batch_cases())
+def test_kalman_td_batch_property(case):
+    """For any sizes, blocks, chunks, parameters and rows (0/1 or real), the batch equals the
+    single learners to 1e-12 and every covariance stays exactly symmetric and PSD."""
+    S, n, T, seed, block, chunk, dense = case
+    rng = np.random.default_rng(seed)
+    params = kalman_params(rng, S)
+    singles = [KalmanTD(n, **{k: v[s] for k, v in params.items()}) for s in range(S)]
+    batch = BatchKalmanTD(S, n, **params, block=block, chunk=chunk)
+    for _ in range(3):
+        if dense:
+            Xs, rs, lengths = rng.uniform(-1, 1, (S, T, n)), rng.normal(size=(S, T)), rng.integers(0, T + 1, S)
+        else:
+            Xs, rs, lengths = random_trials(rng, S, T, n)
+        got = batch.learn_trials(Xs, rs, lengths)
+        for s in range(S):
+            L = lengths[s]
+            assert_trial_matches(singles[s].learn_trial(Xs[s, :L], rs[s, :L]), got, s, L)
+    assert_state_matches(singles, batch)
+    cov = batch.cov
+    np.testing.assert_array_equal(cov, cov.transpose(0, 2, 1))
+    # PSD up to rounding: the smallest eigenvalue is not below −1e-12 × the largest
+    eig = np.linalg.eigvalsh(cov)
+    assert np.all(eig[:, 0] >= -1e-12 * np.maximum(eig[:, -1], 1.0))

@@ -202,8 +202,8 @@ def prepare(events: Iterable, representation: Representation, *, reward_unit_ul:
     index = np.array(index, dtype=np.intp)
     for arr in (y, X_all, r_all, index):
         arr.setflags(write=False)
-    return FitData(representation, unit, tuple(rows), tuple(onset), y, tuple(sessions), tuple(trials),
-                   X_all, r_all, index)
+    return FitData(representation, unit, tuple(rows), tuple(onset), y, tuple(sessions),
+                   tuple(trials), X_all, r_all, index)
 
 
 # --------------------------------------------------------------------------- likelihood
@@ -249,7 +249,8 @@ def response_probability(V: np.ndarray, beta: float, theta: float, lapse: float)
     return lapse / 2 + (1 - lapse) / (1 + np.exp(-z))
 
 
-def _loglik_terms(V: np.ndarray, y: np.ndarray, beta: float, theta: float, lapse: float) -> np.ndarray:
+def _loglik_terms(V: np.ndarray, y: np.ndarray, beta: float, theta: float,
+                  lapse: float) -> np.ndarray:
     """log P(y_t) for observed trials, computed in log space (stable for large |β(V − θ)|)."""
     z = beta * (V - theta)
     with np.errstate(divide="ignore"):
@@ -448,7 +449,10 @@ def fit_subject(
     progress(done, total) is called after each start.
     """
     optimize = _scipy_optimize()
-    data = events if isinstance(events, FitData) else _prepared(events, representation, reward_unit_ul)
+    if isinstance(events, FitData):
+        data = events
+    else:
+        data = _prepared(events, representation, reward_unit_ul)
     names = model_parameters(learner_name)
     pinned = dict(default_fixed(learner_name, data.representation) if fixed is None else fixed)
     _check_names("fixed", pinned, names)
@@ -457,7 +461,8 @@ def fit_subject(
             pinned[name] = _in_domain(name, value, f"fixed[{name}]")
     free = tuple(n for n in names if n not in pinned)
     if not free:
-        raise BadArgument("fixed", "a mapping that leaves at least one parameter free", sorted(pinned))
+        raise BadArgument("fixed", "a mapping that leaves at least one parameter free",
+                          sorted(pinned))
     box_bounds = _bounds(free, bounds or {}, names)
     n_obs = data.n_observed
     if n_obs < max(MIN_SCORED_TRIALS, 2 * len(free)):
@@ -472,9 +477,9 @@ def fit_subject(
         raise BadArgument("starts", "a whole number >= 1", starts)
 
     box = _Box(free, box_bounds)
-    first = np.array([_start_value(n, start, box_bounds) for n in free])
     if start:
         _check_names("start", start, free)
+    first = np.array([_start_value(n, start, box_bounds) for n in free])
     points = [box.unit(first)] + _grid_points(len(free), starts - 1, seed)
     y = data.responded
     mask = ~np.isnan(y)
@@ -714,11 +719,12 @@ def fit_from_store(
     if session is not None:
         names = [i.session for i in infos]
         if session not in names:
-            raise BadArgument("session", f"one of {subject!r}'s sessions ({', '.join(names)})", session)
+            raise BadArgument("session", f"one of {subject!r}'s sessions ({', '.join(names)})",
+                              session)
         infos = [i for i in infos if i.session == session]
     cache = RulesCache()
-    rules = [cache.get(i.rules_text, i.rules_sha256, f"session {i.session} rule file {i.rules_name}")
-             for i in infos]
+    rules = [cache.get(i.rules_text, i.rules_sha256,
+                       f"session {i.session} rule file {i.rules_name}") for i in infos]
     from .subject import representation_for
 
     first_rep, unit = representation_for(rules[0]), rules[0].reward_unit_ul
@@ -756,7 +762,8 @@ def format_fit(result: FitResult) -> str:
         lines.append(f"  {name:<12}{value:>12.4g}{(f'{se:.3g}' if se is not None else '-'):>12}")
     lines.append(f"  log-likelihood {result.log_likelihood:.3f}   AIC {result.aic:.3f}   "
                  f"BIC {result.bic:.3f}   k = {result.k}")
-    lines.append(f"  optimiser: {'converged' if result.converged else 'NOT converged'} ({result.message})")
+    state = "converged" if result.converged else "NOT converged"
+    lines.append(f"  optimiser: {state} ({result.message})")
     if result.se_note:
         lines.append(f"  note: {result.se_note}")
     return "\n".join(lines)
@@ -765,7 +772,8 @@ def format_fit(result: FitResult) -> str:
 def format_ranking(results: Sequence[FitResult]) -> str:
     """The AIC ranking of several fits (best first), with ΔAIC from the best."""
     best = min(r.aic for r in results)
-    lines = [f"  {'rank':<6}{'learner':<18}{'k':>3}{'log-lik':>12}{'AIC':>12}{'dAIC':>9}{'BIC':>12}"]
+    lines = [f"  {'rank':<6}{'learner':<18}{'k':>3}{'log-lik':>12}{'AIC':>12}{'dAIC':>9}"
+             f"{'BIC':>12}"]
     for i, r in enumerate(sorted(results, key=lambda r: r.aic)):
         lines.append(f"  {i + 1:<6}{r.learner:<18}{r.k:>3}{r.log_likelihood:>12.3f}{r.aic:>12.3f}"
                      f"{r.aic - best:>9.2f}{r.bic:>12.3f}")
@@ -796,11 +804,12 @@ def run_command(db: str, subject: str, learners: Sequence[str] | None = None,
                "ranking": [r.learner for r in sorted(results, key=lambda r: r.aic)]}
         print(json.dumps(doc, indent=2), file=out)
         return 0
-    print(f"subject {subject}" + (f", session {session}" if session else ", all sessions"), file=out)
+    scope = f", session {session}" if session else ", all sessions"
+    print(f"subject {subject}{scope}", file=out)
     for r in results:
         print(format_fit(r), file=out)
     if len(results) > 1:
-        print("ranking by AIC (lower is better; dAIC > 10: essentially no support, common practice)",
+        print("ranking by AIC (lower is better; dAIC > 10: little support, common practice)",
               file=out)
         print(format_ranking(results), file=out)
     return 0
@@ -871,7 +880,8 @@ def _bounds(free: Sequence[str], given: Mapping[str, Any], names: Sequence[str])
         where = f"bounds[{name}]"
         lo_d, hi_d = spec.domain
         floor = "0 < low" if spec.log else f"{lo_d:g} <= low"
-        expected = f"a pair (low, high) of finite numbers with {floor} < high <= {hi_d:g}"
+        ceiling = f" <= {hi_d:g}" if math.isfinite(hi_d) else ""
+        expected = f"a pair (low, high) of finite numbers with {floor} < high{ceiling}"
         if spec.log:
             expected += (f" ({name} is searched on a log scale; to fit it at 0 pin it with "
                          f"fixed={{'{name}': 0.0}})")
@@ -892,6 +902,7 @@ def _start_value(name: str, start: Mapping[str, float] | None, bounds: Mapping) 
     if start and name in start:
         value = _in_domain(name, start[name], f"start[{name}]")
         if not lo <= value <= hi:
-            raise BadArgument(f"start[{name}]", f"a value within its bounds [{lo:g}, {hi:g}]", value)
+            raise BadArgument(f"start[{name}]", f"a value within its bounds [{lo:g}, {hi:g}]",
+                              value)
         return value
     return min(max(PARAMETERS[name].default, lo), hi)

@@ -158,7 +158,26 @@ def _add_import(sub: argparse._SubParsersAction) -> None:
     p.set_defaults(func=run)
 
 
-COMMANDS = [_add_demo, _add_check, _add_import, _add_replay, _add_export, _add_simulate, _add_report]
+def _add_fit(sub: argparse._SubParsersAction) -> None:
+    p = sub.add_parser("fit", help="fit learner parameters to a subject's responses (needs scipy: the 'fit' extra)")
+    p.add_argument("--db", required=True, help="the SQLite store")
+    p.add_argument("--subject", required=True)
+    p.add_argument("--learner", action="append", metavar="NAME",
+                   help="learner to fit (repeatable: the fits are ranked by AIC; default: the rule file's)")
+    p.add_argument("--session", default=None, help="fit only this session (default: every session, in order)")
+    p.add_argument("--starts", type=int, default=4, help="optimiser starts per learner (default 4)")
+    p.add_argument("--json", action="store_true", help="print the fits as JSON")
+
+    def run(args: argparse.Namespace) -> int:
+        from .fit import run_command
+
+        return run_command(args.db, args.subject, args.learner, args.session, starts=args.starts,
+                           as_json=args.json)
+
+    p.set_defaults(func=run)
+
+
+COMMANDS = [_add_demo, _add_check, _add_import, _add_replay, _add_export, _add_simulate, _add_report, _add_fit]
 
 
 # --- daemon commands: serve, watch, status, keys -------------------------------------

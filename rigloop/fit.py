@@ -489,14 +489,11 @@ def fit_subject(
     pinned_learner = {k: v for k, v in pinned.items() if k not in OBSERVATION_PARAMS}
     pinned_obs = {k: v for k, v in pinned.items() if k in OBSERVATION_PARAMS}
     n_features = data.representation.n_features
-    evaluations = 0
     # values by learner parameters: a step in β, θ or lapse (most of a numerical gradient)
     # does not rerun the learner
     cache: dict[tuple, np.ndarray] = {}
 
     def nll(s: np.ndarray) -> float:
-        nonlocal evaluations
-        evaluations += 1
         theta = box.natural(s)
         kw = dict(pinned_learner)
         kw.update({n: float(theta[free.index(n)]) for n in lparams})

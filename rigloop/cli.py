@@ -16,7 +16,8 @@ from .errors import RigloopError
 
 def _add_demo(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser("demo", help="run the built-in demonstration end to end")
-    p.add_argument("--trials", type=int, default=None, help="trials per subject (default: the demo's own)")
+    p.add_argument("--trials", type=int, default=None, help="trials per block in part 1 (default: the demo's own)")
+    p.add_argument("--data", default=None, help="data directory for part 2 (default: a new temporary one)")
 
     def run(args: argparse.Namespace) -> int:
         from .demo import main as demo_main
@@ -41,7 +42,7 @@ def _add_check(sub: argparse._SubParsersAction) -> None:
 
 def _add_replay(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser("replay", help="feed stored trials through step; compare with the stored decisions")
-    p.add_argument("--db", required=True, help="the SQLite store (e.g. DATA_DIR/rigloop.db)")
+    p.add_argument("--db", required=True, help="the SQLite store (e.g. DATA_DIR/rigloop.sqlite)")
     p.add_argument("--subject", required=True)
     p.add_argument("--session", default=None, help="replay up to and including this session")
     p.add_argument("--rules", default=None, help="another rule file (path or example name) to compare with")
@@ -127,7 +128,8 @@ def _add_report(sub: argparse._SubParsersAction) -> None:
         with Store(args.db, create=False) as store:
             q = list(store.rows("quantities", subject=args.subject))
             d = list(store.rows("decisions", subject=args.subject))
-        out = plot_subject(q, d, args.out or f"{args.subject}.png", title=f"subject {args.subject}")
+            t = list(store.rows("trials", subject=args.subject))
+        out = plot_subject(q, d, args.out or f"{args.subject}.png", trials=t, title=f"subject {args.subject}")
         print(f"wrote {out} ({len(q):,} trials)")
         return 0
 

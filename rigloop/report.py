@@ -35,6 +35,7 @@ def plot_subject(
     decisions: Iterable[Mapping[str, Any]],
     path: str,
     *,
+    trials: Iterable[Mapping[str, Any]] | None = None,
     title: str | None = None,
     chance: float | None = 0.5,
 ) -> str:
@@ -42,7 +43,9 @@ def plot_subject(
 
     ``quantities``: per-trial rows with ``value[cue]``, ``sd[cue]``, ``delta_cue``,
     ``delta_outcome``, ``p_correct``, ``p_lo95``, ``p_hi95``. ``decisions``: the decision
-    rows that followed each trial (``block``, ``stage``, ``reward_prob``). Returns ``path``.
+    rows that followed each trial (``block``, ``stage``, ``reward_prob``). ``trials``: the
+    trial rows (``session``, ``reward_ul``), for the water panel (µL delivered, summed within
+    each session); without them that panel shows the reward probability decided. Returns ``path``.
     """
     import matplotlib
 
@@ -86,11 +89,22 @@ def plot_subject(
     ax.legend(loc="upper right", fontsize=8)
 
     ax = axes[3]
-    if d:
-        ax.step(np.arange(1, len(d) + 1), [float(r.get("reward_prob", np.nan)) for r in d], where="post",
-                color="tab:green", label="reward probability (next trial)")
-    ax.set_ylim(-0.05, 1.05)
-    ax.set_ylabel("reward\nprobability")
+    t = list(trials) if trials is not None else []
+    if t:
+        total, last_session, water = 0.0, None, []
+        for row in t:
+            if row.get("session") != last_session:
+                total, last_session = 0.0, row.get("session")
+            total += float(row.get("reward_ul") or 0.0)
+            water.append(total)
+        ax.plot(np.arange(1, len(water) + 1), water, color="tab:blue", lw=1.2)
+        ax.set_ylabel("µL delivered\n(this session)")
+    elif d:
+        p_next = np.array([float(r.get("reward_prob", np.nan)) for r in d])
+        k = min(20, len(p_next))
+        ax.plot(np.arange(1, len(d) + 1), np.convolve(p_next, np.ones(k) / k, mode="same"), color="tab:green")
+        ax.set_ylim(-0.05, 1.05)
+        ax.set_ylabel("reward probability\n(20-trial mean)")
     ax.set_xlabel("trial (all sessions, in order)")
 
     for i, label in _changes(d, "block")[1:]:
@@ -101,7 +115,7 @@ def plot_subject(
     for i, label in _changes(d, "stage")[1:]:
         for a in axes:
             a.axvline(i + 0.5, color="tab:orange", lw=1.2)
-        axes[3].annotate(f"stage {label}", (i + 0.5, 0.02), xycoords=("data", "axes fraction"),
+        axes[1].annotate(f"stage {label}", (i + 0.5, 0.02), xycoords=("data", "axes fraction"),
                          fontsize=7, color="tab:orange", rotation=90, va="bottom", ha="right")
     fig.suptitle(title or "rigloop report")
     fig.savefig(path, dpi=110)

@@ -8,10 +8,13 @@ and serial) and shows what it decided and why; then replays, exports and plots.
 from __future__ import annotations
 
 import shutil
+import sys
 import tempfile
 from pathlib import Path
 
 from . import demo_learners
+
+MARKER = ".rigloop-demo"
 
 
 def _banner(text: str) -> None:
@@ -28,8 +31,14 @@ def main(args) -> int:
 
     _banner("rigloop demo, part 2: the daemon beside three virtual rigs")
     data = Path(args.data) if getattr(args, "data", None) else Path(tempfile.mkdtemp(prefix="rigloop-demo-"))
-    if data.exists() and any(data.iterdir()) and getattr(args, "data", None):
+    if data.exists() and any(data.iterdir()):
+        if not (data / MARKER).exists():
+            print(f"rigloop demo: {data} is not empty and was not made by the demo; give a new directory",
+                  file=sys.stderr)
+            return 1
         shutil.rmtree(data)  # the demo's own directory from an earlier run
+    data.mkdir(parents=True, exist_ok=True)
+    (data / MARKER).write_text("made by `rigloop demo`; the demo may delete this directory\n")
     status = demo_daemon.run(data)
     print("")
     status |= demo_daemon.after(data)

@@ -13,3 +13,13 @@ def test_demo_runs_and_replays_identically(tmp_path, capsys):
     assert (tmp_path / "demo" / "quantities.csv").exists()
     assert (tmp_path / "demo" / "bk-m07.png").exists()
     assert "stage lever_shaping -> nogo_intro" in out
+
+
+def test_demo_refuses_a_directory_it_did_not_make(tmp_path, capsys):
+    """The demo never deletes a data directory that is not its own."""
+    precious = tmp_path / "lab-data"
+    precious.mkdir()
+    (precious / "rigloop.sqlite").write_bytes(b"not the demo's")
+    assert main(["demo", "--trials", "10", "--data", str(precious)]) == 1
+    assert (precious / "rigloop.sqlite").read_bytes() == b"not the demo's"
+    assert "was not made by the demo" in capsys.readouterr().err

@@ -19,7 +19,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .step import begin_session, step
+from .step import begin_session, session_seed, step
+from .store import SessionInfo
 from .subject import SubjectState, new_subject
 from .trial import CuePresentation, Decision, Outcome, Response, TrialEvent
 
@@ -171,66 +172,40 @@ def simulate_session(
     start_time: float = 1.8e9,
     trial_s: float = 8.0,
     max_trials: int = 500,
+    store=None,
+    snapshot_every: int = 0,
 ) -> SessionRun:
     """One session of ``animal`` under ``rules``, through ``begin_session`` and ``step``.
 
-    The session ends when a decision says so or after ``max_trials``.
+    The session ends when a decision says so or after ``max_trials``. With ``store``,
+    every trial is stored as the daemon would store it: the session row carries the
+    first decision, each trial commits with its decision and quantities, and with
+    ``snapshot_every`` = N > 0 the state after every N-th trial (and the last) is kept.
     """
-    if state is None:
-        state = new_subject(animal.subject, rules)
-    state, decision = begin_session(state, rules, session=session, rig=rig, wall_time=start_time)
-    run = SessionRun(state=state, first=decision)
-    t = start_time
-    while not decision.end_session and len(run.events) < max_trials:
-        event = animal.trial(decision, rig, t)
-        state, decision, update = step(state, event, rules)
-        run.events.append(event)
-        run.decisions.append(decision)
-        run.updates.append(update)
-        t += trial_s
-    run.state = state
-    return run
-
-
-def record_session(
-    store,
-    rules,
-    animal: SimulatedAnimal,
-    *,
-    session: str,
-    state: SubjectState | None = None,
-    rig: str = "sim-rig",
-    start_time: float = 1.8e9,
-    trial_s: float = 8.0,
-    max_trials: int = 500,
-    snapshot_every: int = 0,
-) -> SessionRun:
-    """``simulate_session``, storing every trial as the daemon would.
-
-    The session row carries the first decision; each trial commits with its decision
-    and quantities; with ``snapshot_every`` = N > 0 the state after every N-th trial
-    (and after the last) is stored as a snapshot.
-    """
-    from .step import session_seed
-    from .store import SessionInfo
-
     if state is None:
         state = new_subject(animal.subject, rules)
     seed = session_seed(animal.subject, session)
     state, decision = begin_session(state, rules, session=session, rig=rig, wall_time=start_time, seed=seed)
-    store.open_session(SessionInfo.new(animal.subject, session, rig, rules.name, rules.text, seed, start_time,
-                                       meta={"first_decision": decision.to_dict()}))
+    if store is not None:
+        store.open_session(SessionInfo.new(animal.subject, session, rig, rules.name, rules.text, seed, start_time,
+                                           meta={"first_decision": decision.to_dict()}))
     run = SessionRun(state=state, first=decision)
     t = start_time
     while not decision.end_session and len(run.events) < max_trials:
         event = animal.trial(decision, rig, t)
         state, decision, update = step(state, event, rules)
-        last = decision.end_session or len(run.events) + 1 >= max_trials
-        snap = state.to_bytes() if snapshot_every and (event.trial % snapshot_every == 0 or last) else None
-        store.commit_trial(event, decision, update.quantities, snap)
+        if store is not None:
+            last = decision.end_session or len(run.events) + 1 >= max_trials
+            snap = state.to_bytes() if snapshot_every and (event.trial % snapshot_every == 0 or last) else None
+            store.commit_trial(event, decision, update.quantities, snap)
         run.events.append(event)
         run.decisions.append(decision)
         run.updates.append(update)
         t += trial_s
     run.state = state
     return run
+
+
+def record_session(store, rules, animal: SimulatedAnimal, **kwargs) -> SessionRun:
+    """``simulate_session`` storing every trial in ``store`` (see there)."""
+    return simulate_session(rules, animal, store=store, **kwargs)

@@ -14,7 +14,7 @@ from collections.abc import Sequence
 from concurrent.futures import Executor, ProcessPoolExecutor
 from dataclasses import dataclass, field
 
-from .simulate import SimulatedAnimal, record_session, simulate_session
+from .simulate import SimulatedAnimal, simulate_session
 
 
 def animal_for(rules, subject: str, seed: int, task: str | None = None) -> SimulatedAnimal:
@@ -62,7 +62,7 @@ def simulate_subject(rules_text: str, rules_source: str, subject: str, seed: int
     try:
         for k in range(sessions):
             kw = dict(session=f"sim{k + 1:02d}", state=state, start_time=1.8e9 + 86400 * k, max_trials=max_trials)
-            run = record_session(store, rules, animal, **kw) if store else simulate_session(rules, animal, **kw)
+            run = simulate_session(rules, animal, store=store, **kw)
             state = run.state
             prev = run.first
             for event, d in zip(run.events, run.decisions, strict=True):

@@ -38,8 +38,8 @@ from .errors import BadArgument
 from .learners import TD, KalmanFilter, KalmanTD, RescorlaWagner
 from .learners import _shared as sh
 
-_BLOCK = 12  # steps between applying the stored corrections (see bench/replay_batch.py)
-_CHUNK = 128  # subjects per pass: a chunk's working set stays in a core's cache
+_BLOCK = 16  # steps between applying the stored corrections (a speed knob)
+_CHUNK = 192  # subjects per pass: a chunk's working set stays in a core's cache
 
 
 # --------------------------------------------------------------------------- results
@@ -288,76 +288,70 @@ def _gaussian_steps(A: np.ndarray, X: np.ndarray, r: np.ndarray, learn: np.ndarr
     A: (S, n + 1, n) [Σ; ŵ] per subject, updated; X: (S, T + 1, n) rows; r, learn: (S, T);
     g, tau2, noise: (S,) γ, τ², σ_r²; B: steps per block; out: (3, T, S) receives the
     values, errors and variances (subject-last).
+
+    Within a block from Σ₀, ŵ₀, step k (h zero on steps that do not learn, Dₖ the
+    diffusion added up to and including step k, uⱼ and cⱼ the earlier steps' corrections):
+        Σₖ⁻h = bₖ − Σⱼ uⱼ (uⱼ·h),  bₖ = Σ₀h + Dₖh        (Σₖ⁻ = Σ₀ + DₖI − Σⱼ uⱼuⱼᵀ)
+        δₖ = r − ŵ₀·h̃ − Σⱼ cⱼ (uⱼ·h̃),  h̃ = x − γx'      (ŵ = ŵ₀ + Σⱼ cⱼuⱼ)
+    so only the inner products uⱼ·x are sequential; bₖ, ŵ₀·h̃ and the reported values and
+    variances are computed for the whole block at once.
     """
     S, T1, n = X.shape
     T = T1 - 1
     P, W = A[:, :n], A[:, n]
+    At = A.transpose(0, 2, 1)
     # subject-last copies: every per-step array is (…, S), so numpy loops run S long
     XT = np.ascontiguousarray(X.transpose(1, 2, 0))            # (T + 1, n, S)
     rT = np.ascontiguousarray(r.T)                               # (T, S)
     lT = learn.T.astype(np.float64)                              # (T, S) 1.0 = learn
     values, errors, variances = out
-    U = np.empty((B, n, S))   # the stored corrections uⱼ (zero on steps that skip)
-    C = np.empty((B, S))      # their weight steps cⱼ = δⱼ/√sⱼ:  ŵ = ŵ₀ + Σⱼ cⱼ uⱼ
-    ux = np.empty((B, S))     # uⱼ·xₜ for the current step
-    uxn = np.empty((B, S))    # uⱼ·xₜ₊₁
-    a = np.empty((n, S))
+    U = np.empty((B, n, S))      # the corrections uⱼ = Σⱼ⁻hⱼ/√sⱼ (zero on steps that skip)
+    C = np.empty((B, S))         # their weight steps cⱼ = δⱼ/√sⱼ
+    UX = np.empty((B + 1, B, S))  # UX[k, j] = uⱼ·xₖ for j < k, else 0
     M = np.empty((S, n, n))
-    d = np.zeros(S)           # diffusion added since the block began
-    At = A.transpose(0, 2, 1)
     for t0 in range(0, T, B):
         m = min(B, T - t0)
-        # xₜᵀ[Σ₀; ŵ₀]ᵀ for the block's rows t0 … t0 + m in one batched product
-        G = np.matmul(X[:, t0 : t0 + m + 1], At)                   # (S, m + 1, n + 1)
-        GT = np.ascontiguousarray(G.transpose(1, 2, 0))           # (m + 1, n + 1, S)
-        xb = XT[t0 : t0 + m + 1]
-        lb = lT[t0 : t0 + m]
-        # h = x − γx', zero on steps that do not learn;  Σ₀h likewise
+        # rows xₜᵀ[Σ₀; ŵ₀]ᵀ for the block's rows t0 … t0 + m, in one batched product
+        GT = np.ascontiguousarray(np.matmul(X[:, t0 : t0 + m + 1], At).transpose(1, 2, 0))
+        xb, lb, tl = XT[t0 : t0 + m + 1], lT[t0 : t0 + m], tau2 * lT[t0 : t0 + m]
+        D = np.cumsum(tl, axis=0)                                 # (m, S) Dₖ
+        # h = (x − γx') on learning steps;  bₖ = Σ₀h + Dₖh
         H = (xb[:m] - g * xb[1:]) * lb[:, None, :]
-        PH = (GT[:m, :n] - g * GT[1:, :n]) * lb[:, None, :]
-        # xᵀΣ₀x and xᵀx for the reported variance
-        xPx = np.einsum("kns,kns->ks", xb[:m], GT[:m, :n])
-        xx = np.einsum("kns,kns->ks", xb[:m], xb[:m])
+        Bk = (GT[:m, :n] - g * GT[1:, :n]) * lb[:, None, :] + D[:, None, :] * H
+        # r − ŵ₀·h̃, the error before this block's corrections
+        rhs = rT[t0 : t0 + m] - (GT[:m, n] - g * GT[1 : m + 1, n])
+        UX[: m + 1] = 0.0
         for k in range(m):
-            t = t0 + k
-            x_next, h, lt = xb[k + 1], H[k], lb[k]
-            Uk = U[:k]
-            # uⱼ·x' for the stored corrections (uⱼ·x was last step's uⱼ·x')
-            np.einsum("kns,ns->ks", Uk, x_next, out=uxn[:k])
-            # V(x) = ŵ₀·x + Σⱼ cⱼ uⱼ·x;  V(x') likewise
-            vx = GT[k, n] + np.einsum("ks,ks->s", C[:k], ux[:k])
-            vn = GT[k + 1, n] + np.einsum("ks,ks->s", C[:k], uxn[:k])
-            # xᵀΣx = xᵀΣ₀x + d xᵀx − Σⱼ (uⱼ·x)²
-            np.subtract(xPx[k] + d * xx[k], np.einsum("ks,ks->s", ux[:k], ux[:k]),
-                        out=variances[t])
-            values[t] = vx
-            # δ = r + γV(x') − V(x)
-            delta = errors[t]
-            np.subtract(rT[t] + g * vn, vx, out=delta)
-            # Σ⁻h = Σ₀h + (d + τ²)h − Σⱼ uⱼ (uⱼ·h),  uⱼ·h = uⱼ·x − γ uⱼ·x'
-            uh = (ux[:k] - g * uxn[:k]) * lt
-            np.multiply(h, d + tau2 * lt, out=a)
-            np.add(a, PH[k], out=a)
-            np.subtract(a, np.einsum("ks,kns->ns", uh, Uk), out=a)
-            # s = hᵀΣ⁻h + σ_r²
-            rs = 1.0 / np.sqrt(np.einsum("ns,ns->s", h, a) + noise)
-            # u = Σ⁻h/√s, c = δ/√s: Σ ← Σ⁻ − u uᵀ and ŵ ← ŵ + c u (k = u/√s, kδ = c u)
+            ux, uxn, Uk = UX[k, :k], UX[k + 1, :k], U[:k]
+            x_next = xb[k + 1]
+            # uⱼ·x' (uⱼ·x is the previous step's uⱼ·x')
+            np.einsum("kns,ns->ks", Uk, x_next, out=uxn)
+            e = ux - g * uxn                                       # uⱼ·h̃
+            # δ = r − ŵ₀·h̃ − Σⱼ cⱼ uⱼ·h̃
+            delta = errors[t0 + k]
+            np.subtract(rhs[k], np.einsum("ks,ks->s", C[:k], e), out=delta)
+            # Σ⁻h = bₖ − Σⱼ uⱼ (uⱼ·h);  s = hᵀΣ⁻h + σ_r²
+            a = Bk[k] - np.einsum("ks,kns->ns", e * lb[k], Uk)
+            rs = 1.0 / np.sqrt(np.einsum("ns,ns->s", H[k], a) + noise)
+            # u = Σ⁻h/√s, c = δ/√s:  Σ ← Σ⁻ − uuᵀ, ŵ ← ŵ + cu  (gain k = u/√s)
             np.multiply(a, rs, out=U[k])
-            np.multiply(delta * rs, lt, out=C[k])
-            # Σ⁻ = Σ + τ²I, on learning steps only
-            d += tau2 * lt
-            # uₖ·x' for the next step, then swap the two inner-product buffers
-            np.einsum("ns,ns->s", U[k], x_next, out=uxn[k])
-            ux, uxn = uxn, ux
-        # apply the block: Σ ← Σ₀ + dI − UᵀU,  ŵ ← ŵ₀ + Σⱼ cⱼ uⱼ
+            np.multiply(delta, rs * lb[k], out=C[k])
+            np.einsum("ns,ns->s", U[k], x_next, out=UX[k + 1, k])
+        # reported per step, before its update: V(x) = ŵ₀·x + Σⱼ cⱼ uⱼ·x and
+        # xᵀΣx = xᵀΣ₀x + (Dₖ − τ²lₖ) xᵀx − Σⱼ (uⱼ·x)²
+        uxb = UX[:m, :m]
+        values[t0 : t0 + m] = GT[:m, n] + np.einsum("kjs,js->ks", uxb, C[:m])
+        variances[t0 : t0 + m] = (np.einsum("kns,kns->ks", xb[:m], GT[:m, :n])
+                                  + (D - tl) * np.einsum("kns,kns->ks", xb[:m], xb[:m])
+                                  - np.einsum("kjs,kjs->ks", uxb, uxb))
+        # apply the block: Σ ← Σ₀ + DI − UᵀU,  ŵ ← ŵ₀ + Σⱼ cⱼ uⱼ
         Us = np.ascontiguousarray(U[:m].transpose(2, 0, 1))          # (S, m, n)
         np.matmul(np.ascontiguousarray(U[:m].transpose(2, 1, 0)), Us, out=M)
         # (UᵀU is exactly symmetric: each entry sums the same products in the same order)
         np.subtract(P, M, out=P)
         W += np.matmul(np.ascontiguousarray(C[:m].T)[:, None, :], Us)[:, 0]
         diag = A.reshape(S, -1)[:, : n * n : n + 1]
-        diag += d[:, None]
-        d[...] = 0.0
+        diag += D[-1][:, None]
 
 
 class BatchKalmanTD(_BatchGaussian):

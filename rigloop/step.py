@@ -33,7 +33,9 @@ class Update:
     ``quantities`` is a flat map of regressors (stored and exported per trial):
     ``value[cue]`` / ``sd[cue]`` at onset before learning, ``delta_cue`` (prediction
     error at the first cue's onset), ``delta_outcome`` (at the reward, or at the time it
-    was due), ``p_correct`` with its 95% band, and ``surprise`` (the largest |δ|/sd).
+    was due), ``p_correct`` with its 95% band, and ``surprise`` (Bayesian learners: the
+    largest |δ|/sd in the trial, sd from the value's variance plus the observation noise —
+    exact for the Kalman filter, an approximation for Kalman TD, whose row is x − γx').
     ``values`` / ``errors`` are per time step (one entry for reward learners).
     """
 

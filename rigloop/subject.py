@@ -14,7 +14,7 @@ from __future__ import annotations
 import hashlib
 import math
 from collections.abc import Mapping
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, field
 from typing import Any
 
 import msgpack
@@ -279,7 +279,3 @@ class ModelView:
 
     def trials_in_condition(self, cond: str) -> int:
         return int(self._curve(cond).n)
-
-
-def with_context(state: SubjectState, **changes) -> SubjectState:
-    return replace(state, **changes)

@@ -21,7 +21,7 @@ import numpy as np
 
 from ..performance import dprime as _dprime
 from ..performance import sprt_bounds
-from .expr import Env, evaluate, fmt
+from .expr import Env, explain_if, fmt
 from .model import Block, Spec, Stage
 from .policies import choose_cue, reward_prob, staircase_step
 from .state import ScheduleState
@@ -258,7 +258,7 @@ def decide(spec: Spec, sched: ScheduleState, view, next_trial: int,
     end = False
     for crit in spec.session_end:
         block = spec.stages[sched.stage].blocks[sched.block]
-        hit, seen = evaluate(crit.when, ScheduleEnv(sched, view, block))
+        hit, seen = explain_if(crit.when, ScheduleEnv(sched, view, block))
         if hit:
             end = True
             reasons.append(f"session ends ({crit.name}): {'; '.join(seen)}")
@@ -311,7 +311,7 @@ def _moves(spec: Spec, sched: ScheduleState, view, reasons: list[str]) -> Schedu
     for move, verb in ((stage.step_back, "steps back"), (stage.advance, "advances")):
         if move is None:
             continue
-        hit, seen = evaluate(move.when, env)
+        hit, seen = explain_if(move.when, env)
         if hit:
             reasons.append(f"stage '{stage.name}' {verb} to '{move.to}': {'; '.join(seen)} "
                            f"after {sched.trials_in_stage} trials in the stage")
@@ -324,7 +324,7 @@ def _moves(spec: Spec, sched: ScheduleState, view, reasons: list[str]) -> Schedu
     if end.max_trials is not None and n >= end.max_trials:
         why = f"block '{block.name}' ended: {n} trials reached max_trials {end.max_trials}"
     elif end.when is not None:
-        hit, seen = evaluate(end.when, env)
+        hit, seen = explain_if(end.when, env)
         if hit:
             why = f"block '{block.name}' ended: {'; '.join(seen)} after {n} trials"
     if why is None:

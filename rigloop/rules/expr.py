@@ -20,6 +20,7 @@ from __future__ import annotations
 
 import ast
 import math
+import operator
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 
@@ -563,17 +564,30 @@ class Env:
         raise NotImplementedError
 
 
-def evaluate(expr: Expr, env: Env) -> tuple[float | bool, list[str]]:
+def evaluate(expr: Expr, env: Env, *, explain: bool = True) -> tuple[float | bool, list[str]]:
     """Evaluate a checked expression; return (value, what it saw).
 
     What it saw is one short phrase per comparison or condition evaluated, with the
-    numbers: ``"p_value_above(tone_hi, 0.6) = 0.973 >= 0.95"``.
+    numbers: ``"p_value_above(tone_hi, 0.6) = 0.973 >= 0.95"``. With ``explain=False``
+    no phrases are made (an empty list comes back): the engine tests every criterion on
+    every trial but needs the words only for the one that fires, and evaluation is pure,
+    so it evaluates that one again to explain it.
     """
-    seen: list[str] = []
+    seen: list[str] | None = [] if explain else None
     value = _Eval(expr, env, seen).run(expr.tree)
+    if seen is None:
+        return value, []
     if not seen and expr.type == BOOL:
         seen.append(f"{expr.text} = {fmt(value)}")
     return value, seen
+
+
+def explain_if(expr: Expr, env: Env) -> tuple[bool, list[str]]:
+    """(True, what it saw) when a criterion holds, else (False, []): cheap when it fails."""
+    hit, _ = evaluate(expr, env, explain=False)
+    if not hit:
+        return False, []
+    return evaluate(expr, env)
 
 
 class _Eval:
@@ -609,7 +623,7 @@ class _Eval:
 
     def _cond(self, n: Node) -> bool:
         r = bool(self.run(n))
-        if isinstance(n, (Name, Call, Unary)):
+        if self.seen is not None and isinstance(n, (Name, Call, Unary)):
             self.seen.append(f"{self.expr.source(n)} = {fmt(r)}")
         return r
 
@@ -625,6 +639,8 @@ class _Eval:
 
     def _compare(self, n: Compare) -> bool:
         values = [self.run(o) for o in n.operands]
+        if self.seen is None:
+            return all(_cmp(op, values[i], values[i + 1]) for i, op in enumerate(n.ops))
         parts = []
         for node, v in zip(n.operands, values):
             text = self.expr.source(node)
@@ -663,10 +679,14 @@ def _arith(op: str, a: float, b: float) -> float:
     raise ValueError(op)  # pragma: no cover
 
 
+_COMPARE = {"==": operator.eq, "!=": operator.ne, "<": operator.lt, "<=": operator.le, ">": operator.gt,
+            ">=": operator.ge}
+
+
 def _cmp(op: str, a, b) -> bool:
     if isinstance(a, float) and math.isnan(a) or isinstance(b, float) and math.isnan(b):
         return False
-    return {"==": a == b, "!=": a != b, "<": a < b, "<=": a <= b, ">": a > b, ">=": a >= b}[op]
+    return _COMPARE[op](a, b)
 
 
 def fmt(x) -> str:

@@ -116,7 +116,7 @@ def reward_prob(policy: RewardPolicy, block: Block, cue: str, env_for_cue) -> tu
     if policy.kind == "fixed" or not k.rewarded:
         return k.p, f"reward p = {fmt(k.p)} for {cue}: fixed by block '{block.name}'", []
     warnings: list[str] = []
-    value, _ = evaluate(policy.certainty, env_for_cue(cue))
+    value, _ = evaluate(policy.certainty, env_for_cue(cue), explain=False)
     c = float(value)
     if not math.isfinite(c):
         warnings.append(f"thinning certainty '{policy.certainty.text}' gave {fmt(c)} for {cue}; treated as 0")

@@ -14,7 +14,7 @@ from typing import Any
 from ..errors import BadArgument
 
 
-@dataclass(frozen=True, slots=True)
+@dataclass(frozen=True)  # no __slots__: evolve copies the instance dict in one step
 class ScheduleState:
     """One subject's place in the curriculum and its counters.
 
@@ -66,11 +66,12 @@ class ScheduleState:
     def evolve(self, **changes: Any) -> ScheduleState:
         """``dataclasses.replace`` without re-running ``__init__``: the engine calls it a
         few times per trial, and a 36-field init is most of a replace's cost."""
+        if not changes.keys() <= _NAME_SET:
+            raise TypeError(f"ScheduleState has no field(s) {', '.join(sorted(changes.keys() - _NAME_SET))}")
         new = object.__new__(ScheduleState)
-        for name in _NAMES:
-            object.__setattr__(new, name, changes.pop(name) if name in changes else getattr(self, name))
-        if changes:
-            raise TypeError(f"ScheduleState has no field(s) {', '.join(sorted(changes))}")
+        fields_ = new.__dict__
+        fields_.update(self.__dict__)
+        fields_.update(changes)
         return new
 
     def to_dict(self) -> dict[str, Any]:
@@ -98,4 +99,4 @@ class ScheduleState:
         return cls(**kw)
 
 
-_NAMES = tuple(f.name for f in fields(ScheduleState))
+_NAME_SET = frozenset(f.name for f in fields(ScheduleState))

@@ -118,7 +118,7 @@ def _array(name: str, value: Any, shape: tuple[int, ...], what: str) -> np.ndarr
         raise BadArgument(name, f"{what} of shape {shape}", value) from None
     if arr.shape != shape:
         raise BadArgument(name, f"{what} of shape {shape}", _Shown(f"shape {arr.shape}"))
-    if not np.all(np.isfinite(arr)):
+    if not np.isfinite(arr).all():
         raise BadArgument(name, f"{what} of shape {shape} with finite entries", _first_bad(arr))
     return arr
 
@@ -143,7 +143,7 @@ def rows(name: str, value: Any, n: int) -> np.ndarray:
         raise BadArgument(name, f"a float array of shape (T, {n})", value) from None
     if arr.ndim != 2 or arr.shape[1] != n:
         raise BadArgument(name, f"a float array of shape (T, {n})", _Shown(f"shape {arr.shape}"))
-    if not np.all(np.isfinite(arr)):
+    if not np.isfinite(arr).all():
         raise BadArgument(name, f"a float array of shape (T, {n}) with finite entries",
                           _first_bad(arr))
     return np.ascontiguousarray(arr)

@@ -1,22 +1,37 @@
-"""The streaming daemon: links -> step -> store -> reply/publish, in one loop.
+"""The streaming daemon: links -> step -> store -> reply/publish, the commit pipelined.
 
-One thread owns everything (context, sockets, serial ports, store, subject states);
-one ``Poller`` watches the ROUTER, the serial file descriptors and (with CURVE) the
-handshake monitor, so nothing is touched from two threads.
+The loop thread owns everything that talks to the outside (context, sockets, serial
+ports, subject states); one ``Poller`` watches the ROUTER, the serial file descriptors,
+(with CURVE) the handshake monitor, and the committer's pipe. The one other thread, the
+*committer*, only runs ``Store.commit_batch`` (the store takes a lock per call); it
+touches no socket and no daemon state.
 
-Each turn of the loop is a *group commit*:
+Trials go through a two-stage pipeline of *group commits*, at most one batch in flight:
 
 1. drain what is ready (at most ``batch_max`` messages from the ROUTER, plus every
    complete line from each serial port), decoding each with ``wire`` (every bad
    message gets an error reply and is counted by code);
-2. step the trials in arrival order (the same subject twice in one batch sees the
-   state after the first), checking retries against the store first; when stepping
-   has taken ``batch_budget_ms``, the batch is cut there (steps 3-4 run, then the rest);
-3. commit all of them in one transaction (``Store.commit_batch``: one fsync);
-4. only then reply to every rig, and publish decisions and updates to observers.
+2. step batch k+1 in arrival order on the newest in-memory states -- those already
+   include batch k's stepped trials while k commits (the same subject twice sees the
+   state after the first); replies to anything that is not a trial wait in the batch;
+3. when batch k's commit has returned (the committer writes one byte to a pipe the
+   poller watches; the loop notices it between trials, and never busy-waits), take in
+   its results, **only then** reply to batch k's rigs and publish its updates, and
+   hand batch k+1 to the committer. A batch is also handed over when stepping has
+   taken ``batch_budget_ms`` or the drain ends; if k is still committing then, the
+   loop blocks on the pipe until it returns.
 
-Opening or closing a session first commits what is pending, so the store sees
-everything in arrival order.
+So the fsync of batch k overlaps with stepping batch k+1 (sqlite3 releases the GIL while
+SQLite runs), and an ack still means the trial is durable.
+
+Anything that must see committed trials first waits for the batch in flight and sends
+its replies: opening or closing a session (which also commits the trials stepped
+before it, so the store sees everything in arrival order), and a retry's dedup lookup
+for a subject that has trials in flight. If an item of batch k is not stored while
+batch k+1 was already stepped on that subject's uncommitted state, batch k+1's trials
+of that subject are answered with an ``internal`` error (the rig retries) and the
+subject's state is reloaded from the store. A failed commit (``StoreError``) is fatal:
+nothing more is acknowledged, the process exits 1 and a restart recovers.
 
 Retries: a trial already stored is answered with the stored decision and
 ``duplicate=True``; nothing is counted twice. A trial number that skips ahead or a
@@ -26,8 +41,9 @@ Opening a session that is already open (a rig that restarted and re-sent its ope
 is answered with the session's *current* next decision (its first decision if no
 trial was stored yet), marked ``duplicate=True``, so the rig can resume.
 
-Shutdown (SIGTERM/SIGINT or ``stop()``): the batch in hand is finished, every loaded
-subject with an open session is snapshotted, sockets close with a bounded linger and
+Shutdown (SIGTERM/SIGINT or ``stop()``): the batch in hand is finished (its commit
+returns and its rigs are answered), every loaded subject with an open session is
+snapshotted, the committer thread stops, sockets close with a bounded linger and
 the context terminates; the process exits 0. Restart recovers each subject lazily
 from its newest snapshot plus the trials after it.
 
@@ -41,6 +57,7 @@ from __future__ import annotations
 import json
 import math
 import os
+import queue
 import signal
 import threading
 import time
@@ -251,6 +268,76 @@ class _Fatal(Exception):
     """The store failed a commit: stop serving (nothing of the batch was acknowledged)."""
 
 
+@dataclass(slots=True)
+class _Batch:
+    """One group commit: the stepped trials and every reply of the requests in it,
+    in arrival order (sent together once the commit returned)."""
+
+    trials: list[_Pending] = field(default_factory=list)
+    keys: dict[tuple[str, str, int], _Pending] = field(default_factory=dict)
+    overlay: dict[str, SubjectState] = field(default_factory=dict)  # newest uncommitted state per subject
+    out: list[_Out] = field(default_factory=list)
+    # filled in by the committer thread before it signals
+    results: list[Any] | None = None
+    error: BaseException | None = None
+    finished: bool = False
+
+
+class _Committer:
+    """The thread that makes batches durable, one at a time.
+
+    ``submit`` hands it a batch (the loop thread builds the items); the thread runs
+    ``Store.commit_batch``, stores the results (or the exception) on the batch, sets
+    ``finished`` and writes one byte to a pipe whose read end the loop's poller
+    watches. ``wait`` blocks on that pipe and returns the batch. Only the loop thread
+    calls ``submit``/``wait``; at most one batch is in flight."""
+
+    def __init__(self, store: Store):
+        self._store = store
+        self._jobs: queue.SimpleQueue = queue.SimpleQueue()  # [batch, items] or None (stop)
+        self._read_fd, self._write_fd = os.pipe()
+        self.busy: _Batch | None = None  # the batch in flight (loop thread only)
+        self._thread = threading.Thread(target=self._run, name="rigloop-commit", daemon=True)
+        self._thread.start()
+
+    def fileno(self) -> int:
+        return self._read_fd
+
+    def submit(self, batch: _Batch) -> None:
+        assert self.busy is None, "one batch in flight at most"
+        self.busy = batch
+        items = [(p.event, p.decision, p.update.quantities, p.snapshot) for p in batch.trials]
+        self._jobs.put([batch, items])
+
+    def wait(self) -> _Batch:
+        """The batch in flight, once its commit has returned (blocks until then)."""
+        batch = self.busy
+        assert batch is not None
+        os.read(self._read_fd, 1)
+        self.busy = None
+        return batch
+
+    def _run(self) -> None:
+        while True:
+            job = self._jobs.get()
+            if job is None:
+                return
+            batch, items = job
+            try:
+                batch.results = self._store.commit_batch(items)
+            except BaseException as err:  # handed to the loop thread, which decides
+                batch.error = err
+            batch.finished = True
+            os.write(self._write_fd, b"\x01")
+
+    def close(self) -> None:
+        """Stop the thread (after the batch it may be committing) and close the pipe."""
+        self._jobs.put(None)
+        self._thread.join()
+        os.close(self._read_fd)
+        os.close(self._write_fd)
+
+
 class Daemon:
     """The daemon. Build it with frozen ``Settings``; ``run()`` serves until ``stop()``
     or a signal. ``start_thread()`` runs it in a background thread for tests."""
@@ -289,7 +376,10 @@ class Daemon:
         self.errors_by_code: dict[str, int] = {}
         self._latency_ns: deque[int] = deque(maxlen=settings.latency_window)
         self._batch_peak = 0  # largest batch seen
-        self.busy_s = 0.0  # time spent handling batches (the rest is waiting for input)
+        self.busy_s = 0.0  # loop thread handling batches (the rest is waiting for input or the committer)
+        self.commit_wait_s = 0.0  # loop thread blocked on a commit still in flight
+        self._cur = _Batch()  # the batch being stepped
+        self._committer: _Committer | None = None
         self.started = time.time()
 
     # -- running ----------------------------------------------------------------
@@ -370,6 +460,8 @@ class Daemon:
         self.router = zlink.RouterLink(self.ctx, s.zmq, s.router_options(), curve=curve)
         self.poller = zlink.Poller()
         self.poller.register(self.router.socket)
+        self._committer = _Committer(self.store)
+        self.poller.register(self._committer.fileno())
         self._monitor = None
         if curve is not None:
             self._monitor = self.router.start_monitor()
@@ -436,10 +528,15 @@ class Daemon:
 
     def _shutdown(self) -> None:
         try:
+            self._settle()  # the batch in flight: its commit returns, its rigs are answered
             self._snapshot_open()
+        except _Fatal as err:
+            self.log.critical("store_failed", error=str(err.__cause__ or err))
+            self.exit_code = 1
         except RigloopError as err:
             self.log.error("shutdown_snapshot_failed", error=str(err))
-        self._teardown()
+        finally:
+            self._teardown()  # stops the committer thread before the store closes
         try:
             (self.data / STATE_FILE).unlink()
         except OSError:
@@ -460,6 +557,9 @@ class Daemon:
         if ctx is not None:
             ctx.term()  # every socket is closed with a bounded linger, so this returns
             self.ctx = None
+        if self._committer is not None:
+            self._committer.close()
+            self._committer = None
         store = getattr(self, "store", None)
         if store is not None:
             store.close()
@@ -483,8 +583,12 @@ class Daemon:
 
     def _loop(self) -> None:
         router = self.router
+        done_fd = self._committer.fileno()
         while not self._stop.is_set():
             ready = self.poller.poll(self._timeout_ms())
+            if done_fd in ready:  # the batch in flight is durable: answer it first
+                self._timed(self._settle)
+                ready.discard(done_fd)
             work: list[tuple[_Source, Any, int]] = []
             if router.socket in ready:
                 self._drain_router(work)
@@ -496,13 +600,18 @@ class Daemon:
                 for kind in router.read_monitor():
                     self.log.warning("handshake_refused", reason=kind)
             if work:
-                t0 = time.perf_counter()
-                self._process(work)
-                self.busy_s += time.perf_counter() - t0
+                self._timed(self._process, work)
             router.flush()
             for link in self.serial_links:
                 link.flush()
             self._tend_serial()
+
+    def _timed(self, fn: Any, *args: Any) -> None:
+        """Run ``fn`` and count its time in ``busy_s``, less the time spent blocked on a
+        commit still in flight (counted in ``commit_wait_s``)."""
+        t0, w0 = time.perf_counter(), self.commit_wait_s
+        fn(*args)
+        self.busy_s += time.perf_counter() - t0 - (self.commit_wait_s - w0)
 
     def _timeout_ms(self) -> float:
         timeout = 100.0
@@ -574,23 +683,21 @@ class Daemon:
     def _process(self, work: list[tuple[_Source, Any, int]]) -> None:
         self.counts["batches"] += 1
         self._batch_peak = max(self._batch_peak, len(work))
-        self._batch = []  # stepped trials
-        self._batch_keys: dict[tuple[str, str, int], _Pending] = {}
-        self._overlay: dict[str, SubjectState] = {}
-        out: list[_Out] = []
+        committer = self._committer
         budget = self.settings.batch_budget_ms / 1000.0
         started = time.perf_counter()
         for src, req, t in work:
-            if out and time.perf_counter() - started > budget:
-                # stepping takes ~1 ms a trial: commit and answer what is done rather than
-                # keep the first rigs of a big batch waiting for the last
-                self._commit_pending(out)
-                self._send_all(out)
-                out = []
+            cur = self._cur
+            if cur.out and (time.perf_counter() - started > budget
+                            or (cur.trials and committer.busy is not None and committer.busy.finished)):
+                # stepping takes ~1 ms a trial: hand over what is done when the committer
+                # is free again, or when the budget is spent, rather than keep the first
+                # rigs of a big batch waiting for the last
+                self._hand_over()
                 started = time.perf_counter()
             self.counts["requests"] += 1
             try:
-                reply = self._handle(src, req, t, out)
+                reply = self._handle(src, req, t)
             except WireError as err:
                 reply = self._error(_req_id(req), err.code if err.code in wire.ERROR_CODES else "bad_message",
                                     str(err), err.field)
@@ -603,21 +710,54 @@ class Daemon:
             except StoreError as err:
                 reply = self._error(_req_id(req), "internal", f"the store refused the request: {err}")
             if reply is not None:
-                out.append(_Out(src, reply, t))
-        self._commit_pending(out)
-        self._send_all(out)
+                self._cur.out.append(_Out(src, reply, t))  # _handle may have started a new batch
+        self._hand_over()
 
-    def _commit_pending(self, out: list[_Out]) -> None:
-        """Commit the stepped trials in one transaction; fill in their replies."""
-        batch = self._batch
-        if not batch:
-            return
-        try:
-            results = self.store.commit_batch([(p.event, p.decision, p.update.quantities, p.snapshot) for p in batch])
-        except StoreError as err:  # the store refuses further writes: stop, restart recovers
-            raise _Fatal(err) from err
+    # -- the pipeline -----------------------------------------------------------------
+
+    def _hand_over(self) -> None:
+        """Answer the batch in flight (waiting for its commit), then hand the batch being
+        stepped to the committer; a batch without trials is answered at once."""
+        self._settle()
+        batch, self._cur = self._cur, _Batch()
+        if batch.trials:
+            self._committer.submit(batch)
+        elif batch.out:
+            self._fill_replies(batch.out)  # trials dropped by _settle get their errors
+            self._send_all(batch.out)
+
+    def _flush(self) -> None:
+        """Commit and answer everything stepped so far (before writes outside a batch)."""
+        self._hand_over()
+        self._settle()
+
+    def _settle(self) -> bool:
+        """If a batch is in flight: wait for its commit, take in the results, and only
+        then send its replies and publish its updates. True if there was one."""
+        committer = self._committer
+        if committer is None or committer.busy is None:
+            return False
+        t0 = time.perf_counter()
+        batch = committer.wait()
+        self.commit_wait_s += time.perf_counter() - t0
+        if batch.error is not None:
+            if isinstance(batch.error, StoreError):  # the store refuses further writes: stop, restart recovers
+                raise _Fatal(batch.error) from batch.error
+            raise batch.error
+        self._take_results(batch)
+        self._send_all(batch.out)
+        return True
+
+    def _settle_for(self, subject: str) -> bool:
+        """Settle the batch in flight if it holds trials of ``subject`` (so the store
+        answers for them). True if it did."""
+        busy = self._committer.busy
+        return busy is not None and subject in busy.overlay and self._settle()
+
+    def _take_results(self, batch: _Batch) -> None:
+        """Apply a committed batch's results to the daemon's state; fill in its replies."""
         failed: set[str] = set()
-        for p, res in zip(batch, results, strict=True):
+        for p, res in zip(batch.trials, batch.results, strict=True):
             subject = p.event.subject
             if not res.ok:
                 p.decision, p.error = None, res.error
@@ -633,6 +773,31 @@ class Daemon:
         for subject in failed:  # the cached state may be ahead of the store: reload it next time
             self.states.pop(subject, None)
             self.log.error("trial_not_stored", subject=subject)
+        if failed:
+            self._drop_stepped(failed)
+        self._fill_replies(batch.out)
+
+    def _drop_stepped(self, subjects: set[str]) -> None:
+        """Trials of ``subjects`` in the batch being stepped were stepped on a state that
+        did not reach the store: take them out, to be answered with an error."""
+        cur = self._cur
+        if not any(s in cur.overlay for s in subjects):
+            return
+        keep = []
+        for p in cur.trials:
+            if p.event.subject in subjects:
+                p.decision, p.update, p.snapshot = None, None, None
+                p.error = StoreError(f"trial {p.event.trial} of session {p.event.session!r} was stepped on a trial "
+                                     f"of subject {p.event.subject!r} that could not be stored; send it again")
+                cur.keys.pop(p.event.key, None)
+            else:
+                keep.append(p)
+        cur.trials = keep
+        for s in subjects:
+            cur.overlay.pop(s, None)
+
+    def _fill_replies(self, out: list[_Out]) -> None:
+        """The reply of each trial in ``out``, from its commit result."""
         for o in out:
             p = o.trial
             if p is None or o.reply is not None:
@@ -642,13 +807,11 @@ class Daemon:
                 err = base.error
                 code = "conflict" if isinstance(err, ConflictingTrial) else "internal"
                 o.reply = self._error(p.req_id, code, str(err) if err else "the trial could not be stored")
+                p.decision = None
             else:
                 if p.echo_of is not None:
                     self.counts["duplicates"] += 1
                 o.reply = wire.DecisionReply(p.req_id, base.decision, p.echo_of is not None or base.duplicate)
-        self._batch = []
-        self._batch_keys = {}
-        self._overlay = {}
 
     def _send_all(self, out: list[_Out]) -> None:
         log_trials = self.settings.log_trials
@@ -682,14 +845,14 @@ class Daemon:
 
     # -- requests -------------------------------------------------------------------
 
-    def _handle(self, src: _Source, req: Any, t: int, out: list[_Out]) -> Any:
+    def _handle(self, src: _Source, req: Any, t: int) -> Any:
         if isinstance(req, WireError):
             self._count_error(req.code)
             return wire.ErrorReply.from_error(req)
         if isinstance(req, wire.TrialReport):
             pending = self._trial(src, req, t)
             if isinstance(pending, _Pending):
-                out.append(_Out(src, None, t, pending))
+                self._cur.out.append(_Out(src, None, t, pending))
                 return None
             return pending
         if isinstance(req, wire.Ping):
@@ -697,10 +860,10 @@ class Daemon:
         if isinstance(req, _StatusRequest):
             return _StatusReply(req.id, self.status())
         if isinstance(req, wire.OpenSession):
-            self._commit_pending(out)
+            self._flush()
             return self._open_session(src, req)
         if isinstance(req, wire.CloseSession):
-            self._commit_pending(out)
+            self._flush()
             return self._close_session(src, req)
         if isinstance(req, wire.QueryState):
             return self._query_state(req)
@@ -724,7 +887,12 @@ class Daemon:
         return None
 
     def _state(self, subject: str) -> SubjectState | None:
-        state = self._overlay.get(subject)
+        """The subject's newest state: stepped in this batch, else in the batch in flight,
+        else committed, else recovered from the store (a subject with no trial in flight)."""
+        state = self._cur.overlay.get(subject)
+        busy = self._committer.busy if self._committer is not None else None
+        if state is None and busy is not None:
+            state = busy.overlay.get(subject)
         if state is None:
             state = self.states.get(subject)
         if state is None:
@@ -746,7 +914,8 @@ class Daemon:
         if bad is not None:
             return bad
         key = ev.key
-        earlier = self._batch_keys.get(key)
+        cur = self._cur
+        earlier = cur.keys.get(key)
         if earlier is not None:
             if not _same_trial(ev, earlier.event):
                 return self._error(req.id, "conflict", str(ConflictingTrial(*key)), "trial")
@@ -754,6 +923,8 @@ class Daemon:
         info = self.open.get(ev.subject)
         state = self._state(ev.subject) if info is not None and info.session == ev.session else None
         if state is None or state.context is None or state.context.session != ev.session:
+            if self._settle_for(ev.subject):  # the store must answer for the trials in flight
+                return self._trial(src, req, t)
             stored = self.store.lookup(ev.subject, ev.session, ev.trial)
             if stored is not None:  # a retry for a session that has since closed
                 return self._duplicate(req.id, ev, stored)
@@ -764,6 +935,8 @@ class Daemon:
             return self._error(req.id, "unknown_session", f"subject {ev.subject!r} has no open session "
                                                           f"{ev.session!r}; open it first", "session")
         if ev.trial <= state.last_trial:
+            if self._settle_for(ev.subject):  # a retry of a trial in flight: answer from the store
+                return self._trial(src, req, t)
             stored = self.store.lookup(ev.subject, ev.session, ev.trial)
             if stored is None:
                 return self._error(req.id, "out_of_order", f"trial {ev.trial} is not stored and is behind the "
@@ -786,9 +959,9 @@ class Daemon:
         if new_state.trials_total % self.settings.snapshot_every == 0 or decision.end_session:
             snapshot = new_state.to_bytes()
         pending = _Pending(src, req.id, t, ev, decision, update, snapshot, new_state)
-        self._overlay[ev.subject] = new_state
-        self._batch.append(pending)
-        self._batch_keys[key] = pending
+        cur.overlay[ev.subject] = new_state
+        cur.trials.append(pending)
+        cur.keys[key] = pending
         return pending
 
     def _duplicate(self, req_id: Any, ev: TrialEvent, stored: tuple[TrialEvent, Decision]) -> Any:
@@ -975,6 +1148,7 @@ class Daemon:
             "open_sessions": open_sessions,
             "counts": dict(self.counts),
             "busy_s": round(self.busy_s, 3),
+            "commit_wait_s": round(self.commit_wait_s, 3),
             "errors_by_code": dict(sorted(self.errors_by_code.items())),
             "latency_ms": self.latency_ms(),
             "queues": {"router": self.router.statistics() if self.router else None,

@@ -399,3 +399,125 @@ def test_settings_from_toml(tmp_path):
     cfg.write_text('data = "d"\nrules = "x"\nbogus = 1\n', encoding="utf-8")
     with pytest.raises(ValueError, match="bogus"):
         Settings.from_toml(cfg)
+
+
+# --------------------------------------------------------------------------- pipelined commit
+
+
+def _wrap_commit(store, before=None, after=None):
+    """Wrap a real Store's ``commit_batch``: ``before(items)`` runs first (it may sleep),
+    ``after(items, results)`` gets what the real commit returned."""
+    real = store.commit_batch
+
+    def commit_batch(items):
+        if before is not None:
+            before(items)
+        results = real(items)
+        if after is not None:
+            results = after(items, results)
+        return results
+
+    store.commit_batch = commit_batch
+    return real
+
+
+def test_no_reply_is_sent_before_its_commit_returned(daemon):
+    """With commits slowed down (so stepping overlaps them) and four rigs at once, every
+    decision reaches its rig after the commit holding its trial returned (an ack means
+    the trial is durable), and the stored sessions equal an offline replay."""
+    import threading
+
+    d = daemon()
+    returned: dict[tuple, float] = {}
+
+    def after(items, results):
+        now = time.monotonic()
+        for (ev, *_), res in zip(items, results):
+            if res.ok:
+                returned[ev.key] = now
+        return results
+
+    _wrap_commit(d.store, before=lambda items: time.sleep(0.015), after=after)
+    received: list[tuple[tuple, float]] = []
+    failures: list[BaseException] = []
+
+    def drive(n: int) -> None:
+        try:
+            with ZmqRig(d.endpoints["zmq"], f"rig{n}", timeout_s=5.0, retries=2) as rig:
+                animal = SimulatedAnimal(f"p{n}", seed=20 + n)
+                decision = rig.open(animal.subject, "s1", RULES).decision
+                for _ in range(15):
+                    ev = animal.trial(decision, f"rig{n}", time.time())
+                    reply = rig.trial(ev)
+                    received.append((ev.key, time.monotonic()))
+                    decision = reply.decision
+        except BaseException as err:  # reported by the main thread
+            failures.append(err)
+
+    threads = [threading.Thread(target=drive, args=(n,)) for n in range(4)]
+    for th in threads:
+        th.start()
+    for th in threads:
+        th.join(60)
+    assert not failures, failures
+    assert len(received) == 60
+    for key, t in received:
+        assert key in returned, f"trial {key} was answered but no commit returned it"
+        assert t > returned[key], f"trial {key} was answered {returned[key] - t:.4f} s before its commit returned"
+    for n in range(4):
+        assert _replay_identical(d.settings.data, f"p{n}").trials == 15
+
+
+def test_trial_stepped_on_a_trial_that_was_not_stored_is_refused(daemon, rig_factory):
+    """Trial 3 is not stored (its commit result fails) while trial 4 was already stepped
+    on top of it: both get an ``internal`` error, nothing of either is stored, and the
+    rig's retries are then accepted as new trials on the state reloaded from the store."""
+    import threading
+
+    from rigloop.errors import StoreError
+    from rigloop.store import CommitResult
+
+    d = daemon()
+    rig = rig_factory(d.endpoints["zmq"])
+    animal = SimulatedAnimal("q1", seed=31)
+    decision = rig.open("q1", "s1", RULES).decision
+    for _ in range(2):
+        decision = rig.trial(animal.trial(decision, "rig1", time.time())).decision
+    ev3 = animal.trial(decision, "rig1", time.time())
+    ev4 = TrialEvent.from_dict({**ev3.to_dict(), "trial": 4})
+    committing = threading.Event()
+    fail_once = {ev3.key}
+    real = d.store.commit_batch
+
+    def commit_batch(items):
+        """The real commit of every item but trial 3 (the first time), which fails."""
+        target = [i for i, (ev, *_) in enumerate(items) if ev.key in fail_once]
+        if not target:
+            return real(items)
+        fail_once.clear()
+        committing.set()
+        time.sleep(0.3)  # trial 4 arrives and is stepped meanwhile
+        results = real([it for i, it in enumerate(items) if i not in target])
+        for i in target:
+            results.insert(i, CommitResult(None, False, StoreError("injected: not stored")))
+        return results
+
+    d.store.commit_batch = commit_batch
+    sock = zlink.raw_socket(rig.ctx, "dealer")
+    sock.connect(d.endpoints["zmq"])
+    try:
+        sock.send(wire.encode_request(wire.TrialReport(301, ev3)))
+        assert committing.wait(5), "trial 3 never reached the store"
+        sock.send(wire.encode_request(wire.TrialReport(302, ev4)))
+        replies = {r.id: r for r in (wire.decode_reply(_recv(sock)) for _ in range(2))}
+    finally:
+        sock.close(0)
+    for rid in (301, 302):
+        assert isinstance(replies[rid], wire.ErrorReply) and replies[rid].code == "internal", replies[rid]
+    assert "injected" in replies[301].message and "stepped on" in replies[302].message
+    with Store(os.path.join(d.settings.data, "rigloop.sqlite")) as store:
+        assert store.last_trial("q1", "s1") == 2
+    again = rig.trial(ev3)
+    assert not again.duplicate
+    rig.trial(animal.trial(again.decision, "rig1", time.time()))
+    assert _replay_identical(d.settings.data, "q1").trials == 4

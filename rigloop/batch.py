@@ -138,17 +138,23 @@ def _lengths(value: Any, S: int, T: int) -> np.ndarray:
     return arr.astype(np.intp)
 
 
-def _trials(Xs: Any, rs: Any, lengths: Any, S: int, n: int):
-    """Checked padded trials: X (S, T, n) with rows past each length zeroed, r (S, T)
-    likewise, valid (S, T) bool = t < length."""
+def _checked_trials(Xs: Any, rs: Any, lengths: Any, S: int, n: int):
+    """Checked padded trials as given: X (S, T, n), r (S, T) float64, L (S,) lengths."""
     X = np.asarray(Xs, dtype=np.float64) if not isinstance(Xs, np.ndarray) else Xs
     if X.ndim != 3 or X.shape[0] != S or X.shape[2] != n:
         raise BadArgument("Xs", f"a float array of shape ({S}, T, {n})", sh._Shown(f"shape {np.shape(Xs)}"))
     T = X.shape[1]
     L = _lengths(lengths, S, T)
-    valid = np.arange(T)[None, :] < L[:, None]
     r = _float_array("rs", rs, (S, T))
     X = _float_array("Xs", X, (S, T, n))
+    return X, r, L
+
+
+def _trials(Xs: Any, rs: Any, lengths: Any, S: int, n: int):
+    """Checked padded trials: X (S, T, n) with rows past each length zeroed, r (S, T)
+    likewise, valid (S, T) bool = t < length."""
+    X, r, L = _checked_trials(Xs, rs, lengths, S, n)
+    valid = np.arange(X.shape[1])[None, :] < L[:, None]
     if not valid.all():
         # padding is ignored whatever it holds: the row after a subject's last is terminal
         X = np.where(valid[:, :, None], X, 0.0)
@@ -172,6 +178,29 @@ def _same(learners: Sequence[Any], cls: type) -> int:
 def _nan_outside(arr: np.ndarray, keep: np.ndarray) -> np.ndarray:
     arr[~keep] = np.nan
     return arr
+
+
+# --------------------------------------------------------------------------- the kernel switch
+
+_KERNELS: list = []  # [the batch_kernels module, or None without numba], filled on first use
+
+
+def _kernels():
+    """The compiled kernels (``rigloop.batch_kernels``) if numba imports and
+    RIGLOOP_NO_NUMBA is not set, else None (the numpy path)."""
+    if not _KERNELS:
+        try:
+            from . import batch_kernels
+        except ImportError:
+            batch_kernels = None
+        _KERNELS.append(batch_kernels)
+    kernels = _KERNELS[0]
+    return kernels if kernels is not None and kernels.enabled() else None
+
+
+def backend() -> str:
+    """Which path the Kalman batches take now: 'numba' (compiled kernels) or 'numpy'."""
+    return "numpy" if _kernels() is None else "numba"
 
 
 # --------------------------------------------------------------------------- Gaussian core
@@ -278,6 +307,22 @@ class _BatchGaussian:
                             self._noise[c], self._block, out[:, :, c])
         values, errors, variances = (_nan_outside(o.T.copy(), report) for o in out)
         return values, errors, variances
+
+    def _run_kernel(self, kernels, X: np.ndarray, x_after: np.ndarray, r: np.ndarray,
+                    lengths: np.ndarray, skip_empty: bool):
+        """The same steps through the compiled kernel, subject by subject.
+
+        X: (S, T, n) rows, step t of subject s going from X[s, t] to X[s, t + 1] and from
+        its last row X[s, lengths[s] − 1] to x_after[s] (n,); r: (S, T); lengths: (S,)
+        steps per subject (0: untouched); skip_empty: featureless rows learn nothing.
+        Returns (values, errors, variances), each (S, T), nan past each length.
+        """
+        S, T, _ = X.shape
+        out = np.full((3, S, T), np.nan)
+        kernels.gaussian_steps(self._A, np.ascontiguousarray(X), np.ascontiguousarray(x_after),
+                               np.ascontiguousarray(r), lengths.astype(np.intp), self._gamma,
+                               self._tau2, self._noise, skip_empty, out[0], out[1], out[2])
+        return out[0], out[1], out[2]
 
 
 def _gaussian_steps(A: np.ndarray, X: np.ndarray, r: np.ndarray, learn: np.ndarray,
@@ -394,10 +439,15 @@ class BatchKalmanTD(_BatchGaussian):
         ``KalmanTD.update`` does. Returns (S,) values, errors, variances.
         """
         S, n = self._S, self._n
-        rows = np.stack([_float_array("X", X, (S, n)), _float_array("X_next", X_next, (S, n))], 1)
+        X, X_next = _float_array("X", X, (S, n)), _float_array("X_next", X_next, (S, n))
         r = _float_array("r", r, (S,))
         active = _mask("active", active, S)
-        learn = active & rows[:, 0].any(1) if skip_empty else active
+        kernels = _kernels()
+        if kernels is not None:
+            out = self._run_kernel(kernels, X[:, None], X_next, r[:, None], active, bool(skip_empty))
+            return BatchResult(*(o[:, 0] for o in out))
+        rows = np.stack([X, X_next], 1)
+        learn = active & X.any(1) if skip_empty else active
         out = self._run(rows, r[:, None], learn[:, None], active[:, None], self._gamma)
         return BatchResult(*(o[:, 0] for o in out))
 
@@ -405,6 +455,11 @@ class BatchKalmanTD(_BatchGaussian):
         """One trial per subject, as ``KalmanTD.learn_trial``: Xs (S, T, n) padded rows,
         rs (S, T) with rs[s, t] received on the step from row t to row t + 1, lengths
         (S,) rows used per subject (the row after them terminal). Returns (S, T) results."""
+        kernels = _kernels()
+        if kernels is not None:
+            X, r, L = _checked_trials(Xs, rs, lengths, self._S, self._n)
+            zero = np.zeros((self._S, self._n))
+            return BatchResult(*self._run_kernel(kernels, X, zero, r, L, True))
         X, r, valid = _trials(Xs, rs, lengths, self._S, self._n)
         S, T, n = X.shape
         rows = np.zeros((S, T + 1, n))
@@ -436,16 +491,27 @@ class BatchKalmanFilter(_BatchGaussian):
         """One observation per active subject: X (S, n) rows, r (S,) rewards, as
         ``KalmanFilter.update`` (every row observed, an all-zero one too)."""
         S, n = self._S, self._n
-        rows = np.zeros((S, 2, n))
-        rows[:, 0] = _float_array("X", X, (S, n))
+        X = _float_array("X", X, (S, n))
         r = _float_array("r", r, (S,))
         active = _mask("active", active, S)
+        kernels = _kernels()
+        if kernels is not None:
+            zero = np.zeros((S, n))
+            out = self._run_kernel(kernels, X[:, None], zero, r[:, None], active, False)
+            return BatchResult(*(o[:, 0] for o in out))
+        rows = np.zeros((S, 2, n))
+        rows[:, 0] = X
         out = self._run(rows, r[:, None], active[:, None], active[:, None], self._gamma)
         return BatchResult(*(o[:, 0] for o in out))
 
     def learn_trials(self, Xs: Any, rs: Any, lengths: Any) -> BatchResult:
         """``KalmanFilter.learn_trial`` for every subject: Xs (S, T, n), rs (S, T), the
         first lengths[s] rows observed in order. Returns (S, T) results."""
+        kernels = _kernels()
+        if kernels is not None:
+            X, r, L = _checked_trials(Xs, rs, lengths, self._S, self._n)
+            zero = np.zeros((self._S, self._n))
+            return BatchResult(*self._run_kernel(kernels, X, zero, r, L, False))
         X, r, valid = _trials(Xs, rs, lengths, self._S, self._n)
         S, T, n = X.shape
         rows = np.zeros((S, T + 1, n))
@@ -616,4 +682,5 @@ class BatchTD:
         return BatchResult(_nan_outside(values, valid), _nan_outside(errors, valid))
 
 
-__all__ = ["BatchKalmanFilter", "BatchKalmanTD", "BatchRescorlaWagner", "BatchResult", "BatchTD"]
+__all__ = ["BatchKalmanFilter", "BatchKalmanTD", "BatchRescorlaWagner", "BatchResult", "BatchTD",
+           "backend"]

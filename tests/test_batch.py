@@ -1,15 +1,55 @@
-"""Batched learners equal the single-subject learners step for step (oracle tests)."""
+"""Batched learners equal the single-subject learners step for step (oracle tests), on the
+numpy path and on the compiled (numba) path."""
+
+import contextlib
 
 import numpy as np
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
+from rigloop import batch as batch_module
 from rigloop.batch import BatchKalmanFilter, BatchKalmanTD, BatchRescorlaWagner, BatchTD
 from rigloop.errors import BadArgument
 from rigloop.learners import TD, KalmanFilter, KalmanTD, RescorlaWagner
 
 TOL = 1e-12
+
+try:
+    import numba  # noqa: F401  (only to learn whether the compiled path can run)
+    NO_NUMBA = None
+except ImportError:
+    NO_NUMBA = "numba is not installed (pip install rigloop[fast]): only the numpy path runs"
+
+
+@pytest.fixture(params=["numpy", "numba"])
+def path(request, monkeypatch):
+    """Run the test on the numpy path (RIGLOOP_NO_NUMBA=1) and on the compiled kernel."""
+    if request.param == "numba":
+        if NO_NUMBA:
+            pytest.skip(NO_NUMBA)
+        monkeypatch.delenv("RIGLOOP_NO_NUMBA", raising=False)
+    else:
+        monkeypatch.setenv("RIGLOOP_NO_NUMBA", "1")
+    assert batch_module.backend() == request.param
+    return request.param
+
+
+PATHS = [pytest.param("numpy"),
+         pytest.param("numba", marks=pytest.mark.skipif(bool(NO_NUMBA), reason=str(NO_NUMBA)))]
+
+
+@contextlib.contextmanager
+def on_path(name):
+    """The Kalman batches take the ``name`` path inside this block (for hypothesis tests,
+    which cannot use the function-scoped ``path`` fixture)."""
+    with pytest.MonkeyPatch.context() as mp:
+        if name == "numpy":
+            mp.setenv("RIGLOOP_NO_NUMBA", "1")
+        else:
+            mp.delenv("RIGLOOP_NO_NUMBA", raising=False)
+        assert batch_module.backend() == name
+        yield
 
 
 def random_trials(rng, S, T, n, p_on=0.3, lead_zero=True):
@@ -55,7 +95,7 @@ def assert_state_matches(singles, batch):
 
 
 @pytest.mark.parametrize("block,chunk", [(12, 128), (3, 2), (1, 1), (50, 5)])
-def test_kalman_td_trials_equal_single_learners(block, chunk):
+def test_kalman_td_trials_equal_single_learners(block, chunk, path):
     """learn_trials over varying lengths, featureless rows and per-subject parameters equals
     KalmanTD.learn_trial per subject (values, errors, variances, w, cov) to 1e-12, for any
     block and chunk size."""
@@ -73,7 +113,7 @@ def test_kalman_td_trials_equal_single_learners(block, chunk):
         assert_state_matches(singles, batch)
 
 
-def test_kalman_td_steps_equal_update_and_learn_trial():
+def test_kalman_td_steps_equal_update_and_learn_trial(path):
     """learn_steps(skip_empty=False) is KalmanTD.update per active subject; with the default
     skip_empty=True a featureless row reports its error r + γV(x') and learns nothing; an
     inactive subject is unchanged and reports nan."""
@@ -107,7 +147,7 @@ def test_kalman_td_steps_equal_update_and_learn_trial():
         assert_state_matches(skipping, b_skip)
 
 
-def test_kalman_td_zero_diffusion_is_bayesian_regression():
+def test_kalman_td_zero_diffusion_is_bayesian_regression(path):
     """τ² = 0: every subject's batch posterior is Σ = (I/c + HᵀH/σ²)⁻¹, μ = Σ Hᵀr/σ² over the
     steps it learned from (h = x − γx', featureless rows skipped), to 1e-10."""
     # Geist & Pietquin (2010) JAIR 39:483 [S abstract]; batch oracle [C, methods.md §4]
@@ -131,7 +171,7 @@ def test_kalman_td_zero_diffusion_is_bayesian_regression():
         np.testing.assert_allclose(batch.w[s], cov @ Hs.T @ Rs / noise, rtol=0, atol=1e-10)
 
 
-def test_kalman_td_real_valued_dense_rows():
+def test_kalman_td_real_valued_dense_rows(path):
     """Dense real-valued rows (not cue indicators) give the same numbers as the single learner."""
     rng = np.random.default_rng(5)
     S, n, T = 5, 6, 9
@@ -152,7 +192,7 @@ def test_kalman_td_real_valued_dense_rows():
 
 
 @pytest.mark.parametrize("block", [12, 2])
-def test_kalman_filter_equals_single_learners(block):
+def test_kalman_filter_equals_single_learners(block, path):
     """BatchKalmanFilter.learn_trials and learn_steps equal KalmanFilter.learn_trial and
     update per subject (an all-zero row is observed too: it diffuses)."""
     rng = np.random.default_rng(20 + block)
@@ -246,7 +286,7 @@ def trained(cls, n, rng, **params):
     (BatchRescorlaWagner, RescorlaWagner, {"alpha": [0.1, 0.2, 0.05]}),
     (BatchRescorlaWagner, RescorlaWagner, {"alpha": 0.25}),
 ])
-def test_from_learners_to_learners_round_trip_is_exact(batch_cls, cls, params):
+def test_from_learners_to_learners_round_trip_is_exact(batch_cls, cls, params, path):
     """to_learners(from_learners(ls)) gives learners whose state() equals the originals' bit
     for bit (arrays and parameters, scalar rates stay scalar)."""
     rng = np.random.default_rng(40)
@@ -272,7 +312,7 @@ def test_from_learners_rejects_mixed_lists():
 # --------------------------------------------------------------------------- arguments
 
 
-def test_bad_arguments_name_the_argument():
+def test_bad_arguments_name_the_argument(path):
     """Wrong shapes, lengths out of range and bad per-subject parameters raise BadArgument
     naming the argument, what was expected and what came; nothing changes."""
     batch = BatchKalmanTD(3, 2)
@@ -309,12 +349,18 @@ def batch_cases(draw):
     return S, n, T, seed, block, chunk, dense
 
 
+@pytest.mark.parametrize("name", PATHS)
 @settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.too_slow])
-@given(batch_cases())
-def test_kalman_td_batch_property(case):
+@given(case=batch_cases())
+def test_kalman_td_batch_property(name, case):
     """For any sizes, blocks, chunks, parameters and rows (0/1 or real), the batch equals the
-    single learners to 1e-12 and every covariance stays exactly symmetric and PSD."""
-    S, n, T, seed, block, chunk, dense = case
+    single learners to 1e-12 and every covariance stays exactly symmetric and PSD, on
+    both paths."""
+    with on_path(name):
+        check_kalman_td_case(*case)
+
+
+def check_kalman_td_case(S, n, T, seed, block, chunk, dense):
     rng = np.random.default_rng(seed)
     params = kalman_params(rng, S)
     singles = [KalmanTD(n, **{k: v[s] for k, v in params.items()}) for s in range(S)]
@@ -334,3 +380,64 @@ def test_kalman_td_batch_property(case):
     # PSD up to rounding: the smallest eigenvalue is not below −1e-12 × the largest
     eig = np.linalg.eigvalsh(cov)
     assert np.all(eig[:, 0] >= -1e-12 * np.maximum(eig[:, -1], 1.0))
+
+
+# --------------------------------------------------------------------------- the compiled path
+
+
+@pytest.mark.skipif(bool(NO_NUMBA), reason=str(NO_NUMBA))
+def test_parallel_and_serial_kernels_give_the_same_numbers(monkeypatch):
+    """A call large enough for the threaded kernel gives bit for bit the numbers of the
+    serial kernel (each subject's arithmetic is the same) and of the single learners to
+    1e-12."""
+    from rigloop import batch_kernels
+
+    monkeypatch.delenv("RIGLOOP_NO_NUMBA", raising=False)
+    rng = np.random.default_rng(60)
+    S, n, T = 300, 4, 10
+    assert S * T >= batch_kernels.PARALLEL_MIN_STEPS  # the threaded kernel runs (2+ threads)
+    params = kalman_params(rng, S)
+    singles = [KalmanTD(n, **{k: v[s] for k, v in params.items()}) for s in range(S)]
+    threaded = BatchKalmanTD(S, n, **params)
+    serial = BatchKalmanTD(S, n, **params)
+    for _ in range(2):
+        Xs, rs, lengths = random_trials(rng, S, T, n)
+        got = threaded.learn_trials(Xs, rs, lengths)
+        monkeypatch.setattr(batch_kernels, "PARALLEL_MIN_STEPS", 10**9)
+        ref = serial.learn_trials(Xs, rs, lengths)
+        monkeypatch.undo()
+        for name in ("values", "errors", "variances"):
+            np.testing.assert_array_equal(getattr(got, name), getattr(ref, name))
+        for s in range(S):
+            L = lengths[s]
+            assert_trial_matches(singles[s].learn_trial(Xs[s, :L], rs[s, :L]), got, s, L)
+    np.testing.assert_array_equal(threaded.w, serial.w)
+    np.testing.assert_array_equal(threaded.cov, serial.cov)
+    assert_state_matches(singles, threaded)
+
+
+def test_without_numba_the_numpy_path_runs(monkeypatch):
+    """If numba cannot be imported, backend() is 'numpy' and the batch still equals the
+    single learners."""
+    monkeypatch.delenv("RIGLOOP_NO_NUMBA", raising=False)
+    monkeypatch.setattr(batch_module, "_KERNELS", [None])  # as after a failed import
+    assert batch_module.backend() == "numpy"
+    rng = np.random.default_rng(61)
+    S, n, T = 3, 4, 6
+    params = kalman_params(rng, S)
+    singles = [KalmanTD(n, **{k: v[s] for k, v in params.items()}) for s in range(S)]
+    batch = BatchKalmanTD(S, n, **params)
+    Xs, rs, lengths = random_trials(rng, S, T, n)
+    got = batch.learn_trials(Xs, rs, lengths)
+    for s in range(S):
+        L = lengths[s]
+        assert_trial_matches(singles[s].learn_trial(Xs[s, :L], rs[s, :L]), got, s, L)
+    assert_state_matches(singles, batch)
+
+
+def test_no_numba_variable_switches_the_path(monkeypatch):
+    """RIGLOOP_NO_NUMBA=1 forces the numpy path; unset (or '0') allows the kernel."""
+    monkeypatch.setenv("RIGLOOP_NO_NUMBA", "1")
+    assert batch_module.backend() == "numpy"
+    monkeypatch.setenv("RIGLOOP_NO_NUMBA", "0")
+    assert batch_module.backend() == ("numpy" if NO_NUMBA else "numba")

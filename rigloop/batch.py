@@ -215,11 +215,14 @@ class _BatchGaussian:
 
     def __init__(self, n_subjects: int, n_features: int, diffusion: Any, noise: Any,
                  prior_var: Any, gamma: Any = 0.0, *, block: int = _BLOCK,
-                 chunk: int = _CHUNK):
+                 chunk: int = _CHUNK, parallel: bool = False):
         S = self._S = sh.count("n_subjects", n_subjects)
         n = self._n = sh.count("n_features", n_features)
         self._block = sh.count("block", block)
         self._chunk = sh.count("chunk", chunk)
+        if not isinstance(parallel, (bool, np.bool_)):
+            raise BadArgument("parallel", "True or False", parallel)
+        self._parallel = bool(parallel)
         self._tau2 = _per_subject("diffusion", diffusion, S, sh.nonnegative)
         self._noise = _per_subject("noise", noise, S, sh.positive)
         self._c = _per_subject("prior_var", prior_var, S, sh.nonnegative)
@@ -321,7 +324,8 @@ class _BatchGaussian:
         out = np.full((3, S, T), np.nan)
         kernels.gaussian_steps(self._A, np.ascontiguousarray(X), np.ascontiguousarray(x_after),
                                np.ascontiguousarray(r), lengths.astype(np.intp), self._gamma,
-                               self._tau2, self._noise, skip_empty, out[0], out[1], out[2])
+                               self._tau2, self._noise, skip_empty, out[0], out[1], out[2],
+                               parallel=self._parallel)
         return out[0], out[1], out[2]
 
 
@@ -405,15 +409,18 @@ class BatchKalmanTD(_BatchGaussian):
     gamma, diffusion (τ²), noise (σ_r²), prior_var (c): a number for every subject or
     a sequence of S numbers. ``w`` (S, n), ``cov`` (S, n, n). ``block``: time steps
     between applying the stored covariance corrections (a speed knob; same numbers).
+    ``chunk``: subjects per pass of the numpy path. ``parallel``: the compiled kernel
+    spreads large calls over numba's threads (same numbers, bit for bit; off by default:
+    on a shared 2-core machine it measured no faster, and slower under load).
     """
 
     _single = KalmanTD
 
     def __init__(self, n_subjects: int, n_features: int, gamma: Any = 0.95,
                  diffusion: Any = 0.01, noise: Any = 1.0, prior_var: Any = 1.0, *,
-                 block: int = _BLOCK, chunk: int = _CHUNK):
+                 block: int = _BLOCK, chunk: int = _CHUNK, parallel: bool = False):
         super().__init__(n_subjects, n_features, diffusion, noise, prior_var, gamma,
-                         block=block, chunk=chunk)
+                         block=block, chunk=chunk, parallel=parallel)
 
     @property
     def gamma(self) -> np.ndarray:
@@ -425,7 +432,7 @@ class BatchKalmanTD(_BatchGaussian):
     @classmethod
     def from_learners(cls, learners: Sequence[KalmanTD], **speed: int) -> BatchKalmanTD:
         """A batch holding copies of these learners (same n), subject s = learners[s];
-        ``speed``: ``block`` / ``chunk`` as in the constructor."""
+        ``speed``: ``block`` / ``chunk`` / ``parallel`` as in the constructor."""
         return cls._from(learners, ("gamma", "diffusion", "noise", "prior_var"), **speed)
 
     def learn_steps(self, X: Any, X_next: Any, r: Any, active: Any = None, *,
@@ -478,9 +485,9 @@ class BatchKalmanFilter(_BatchGaussian):
 
     def __init__(self, n_subjects: int, n_features: int, diffusion: Any = 0.01,
                  noise: Any = 1.0, prior_var: Any = 1.0, *, block: int = _BLOCK,
-                 chunk: int = _CHUNK):
+                 chunk: int = _CHUNK, parallel: bool = False):
         super().__init__(n_subjects, n_features, diffusion, noise, prior_var, 0.0,
-                         block=block, chunk=chunk)
+                         block=block, chunk=chunk, parallel=parallel)
 
     @classmethod
     def from_learners(cls, learners: Sequence[KalmanFilter], **speed: int) -> BatchKalmanFilter:

@@ -18,11 +18,14 @@ different order from BLAS, so numbers agree with the single learners to rounding
 tests pin 1e-12). The first call compiles (a few seconds); ``cache=True`` keeps the
 machine code on disk beside this file for later processes.
 
-Subjects are independent, so a large call runs its subjects over numba's threads (a
-``prange``; ``NUMBA_NUM_THREADS=1`` keeps it on one). Small calls, calls in a process
-forked after import (numba's OpenMP layer is not fork-safe) and calls while another
-thread holds the parallel kernel run the serial one instead, so no thread waits and
-nothing hangs.
+Subjects are independent. By default a call runs them one after another on the calling
+thread (``nogil``: callers may run batches in threads of their own). With
+``parallel=True`` a large call spreads them over numba's threads (a ``prange``,
+``NUMBA_NUM_THREADS``); small calls, calls in a process forked after import (numba's
+OpenMP layer is not fork-safe) and calls while another thread holds the threaded kernel
+run serially instead, so no thread waits and nothing hangs. The threaded kernel is not
+the default: on a shared 2-core machine it measured no faster than the serial one, and
+about 2× slower while other processes kept the cores busy (its threads wait on each other).
 """
 
 from __future__ import annotations
@@ -138,17 +141,18 @@ def _subject(A, X, x_after, r, L, g, tau2, noise, skip_empty, values, errors, va
 
 
 def gaussian_steps(A, X, x_after, r, lengths, g, tau2, noise, skip_empty,
-                   values, errors, variances) -> None:
+                   values, errors, variances, *, parallel: bool = False) -> None:
     """The Kalman steps of S subjects, in place.
 
     A: (S, n + 1, n) [Σ; ŵ] per subject, updated; X: (S, T, n) rows; x_after: (S, n) the
     row after each subject's last (zero: terminal); r: (S, T); lengths: (S,) intp steps
     per subject (0: untouched); g, tau2, noise: (S,) γ (0 for the reward learner), τ²,
     σ_r²; skip_empty: bool. values, errors, variances: (S, T), written for t < lengths[s].
-    Every array float64 and C-contiguous (lengths intp).
+    Every array float64 and C-contiguous (lengths intp). parallel: use the threaded
+    kernel where it is safe and the call is large enough (same numbers, bit for bit).
     """
     args = (A, X, x_after, r, lengths, g, tau2, noise, skip_empty, values, errors, variances)
-    if (X.shape[0] > 1 and X.shape[0] * X.shape[1] >= PARALLEL_MIN_STEPS and not _forked[0]
+    if (parallel and X.shape[0] > 1 and X.shape[0] * X.shape[1] >= PARALLEL_MIN_STEPS and not _forked[0]
             and numba.get_num_threads() > 1 and _parallel_lock.acquire(blocking=False)):
         try:
             _steps_parallel(*args)

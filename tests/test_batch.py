@@ -331,6 +331,8 @@ def test_bad_arguments_name_the_argument(path):
         BatchKalmanTD(3, 2, noise=[1.0, 0.0, 1.0])
     with pytest.raises(BadArgument, match=r"^'gamma' must be a number or a sequence of 3 numbers"):
         BatchKalmanTD(3, 2, gamma=[0.9, 0.9])
+    with pytest.raises(BadArgument, match=r"^'parallel' must be True or False \(got 'yes'\)$"):
+        BatchKalmanTD(3, 2, parallel="yes")
     np.testing.assert_array_equal(batch.w, before)
 
 
@@ -387,25 +389,29 @@ def check_kalman_td_case(S, n, T, seed, block, chunk, dense):
 
 @pytest.mark.skipif(bool(NO_NUMBA), reason=str(NO_NUMBA))
 def test_parallel_and_serial_kernels_give_the_same_numbers(monkeypatch):
-    """A call large enough for the threaded kernel gives bit for bit the numbers of the
-    serial kernel (each subject's arithmetic is the same) and of the single learners to
-    1e-12."""
+    """parallel=True on a call large enough for the threaded kernel gives bit for bit the
+    numbers of the serial kernel (each subject's arithmetic is the same) and those of the
+    single learners to 1e-12."""
+    import numba
+
     from rigloop import batch_kernels
 
     monkeypatch.delenv("RIGLOOP_NO_NUMBA", raising=False)
+    calls = []
+    threaded_kernel = batch_kernels._steps_parallel
+    monkeypatch.setattr(batch_kernels, "_steps_parallel",
+                        lambda *a: calls.append(1) or threaded_kernel(*a))
     rng = np.random.default_rng(60)
     S, n, T = 300, 4, 10
-    assert S * T >= batch_kernels.PARALLEL_MIN_STEPS  # the threaded kernel runs (2+ threads)
+    assert S * T >= batch_kernels.PARALLEL_MIN_STEPS
     params = kalman_params(rng, S)
     singles = [KalmanTD(n, **{k: v[s] for k, v in params.items()}) for s in range(S)]
-    threaded = BatchKalmanTD(S, n, **params)
+    threaded = BatchKalmanTD(S, n, **params, parallel=True)
     serial = BatchKalmanTD(S, n, **params)
     for _ in range(2):
         Xs, rs, lengths = random_trials(rng, S, T, n)
         got = threaded.learn_trials(Xs, rs, lengths)
-        monkeypatch.setattr(batch_kernels, "PARALLEL_MIN_STEPS", 10**9)
         ref = serial.learn_trials(Xs, rs, lengths)
-        monkeypatch.undo()
         for name in ("values", "errors", "variances"):
             np.testing.assert_array_equal(getattr(got, name), getattr(ref, name))
         for s in range(S):
@@ -414,6 +420,7 @@ def test_parallel_and_serial_kernels_give_the_same_numbers(monkeypatch):
     np.testing.assert_array_equal(threaded.w, serial.w)
     np.testing.assert_array_equal(threaded.cov, serial.cov)
     assert_state_matches(singles, threaded)
+    assert len(calls) == (2 if numba.get_num_threads() > 1 else 0)
 
 
 def test_without_numba_the_numpy_path_runs(monkeypatch):

@@ -24,6 +24,13 @@ step then needs Σ₀h (all of the block's Σ₀xₜ come from one batched matri
 block start) and k inner products with the stored uⱼ, O(nk) instead of O(n²); at the
 block's end the corrections are applied in one batched product Σ ← Σ₀ + dI − UᵀU.
 Per-step work runs on subject-last (n, S) arrays, so every numpy loop is S long.
+
+The compiled path. When numba imports (``pip install rigloop[fast]``) the Kalman
+batches run ``rigloop.batch_kernels`` instead: plain loops, subject by subject, the
+single learner's step exactly (one subject's Σ stays in L1 cache for all its steps);
+about 5× the numpy path at n = 32 (tools/bench/replay_batch.py). Its first call in a
+process compiles or loads it from numba's disk cache. Without numba, or with
+RIGLOOP_NO_NUMBA=1 in the environment, the numpy path runs; ``backend()`` says which.
 """
 
 from __future__ import annotations
@@ -451,7 +458,8 @@ class BatchKalmanTD(_BatchGaussian):
         active = _mask("active", active, S)
         kernels = _kernels()
         if kernels is not None:
-            out = self._run_kernel(kernels, X[:, None], X_next, r[:, None], active, bool(skip_empty))
+            out = self._run_kernel(kernels, X[:, None], X_next, r[:, None], active,
+                                   bool(skip_empty))
             return BatchResult(*(o[:, 0] for o in out))
         rows = np.stack([X, X_next], 1)
         learn = active & X.any(1) if skip_empty else active

@@ -152,8 +152,9 @@ def gaussian_steps(A, X, x_after, r, lengths, g, tau2, noise, skip_empty,
     kernel where it is safe and the call is large enough (same numbers, bit for bit).
     """
     args = (A, X, x_after, r, lengths, g, tau2, noise, skip_empty, values, errors, variances)
-    if (parallel and X.shape[0] > 1 and X.shape[0] * X.shape[1] >= PARALLEL_MIN_STEPS and not _forked[0]
-            and numba.get_num_threads() > 1 and _parallel_lock.acquire(blocking=False)):
+    big = X.shape[0] > 1 and X.shape[0] * X.shape[1] >= PARALLEL_MIN_STEPS
+    if (parallel and big and not _forked[0] and numba.get_num_threads() > 1
+            and _parallel_lock.acquire(blocking=False)):
         try:
             _steps_parallel(*args)
         finally:

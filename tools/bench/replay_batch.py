@@ -124,8 +124,8 @@ def available_paths() -> list[Path]:
 
         paths.append(Path("kernel", "BatchKalmanTD, kernel", kernel=True))
         if numba.get_num_threads() > 1:
-            paths.append(Path("kernel_parallel", f"  parallel=True, {numba.get_num_threads()} threads",
-                              kernel=True, parallel=True))
+            label = f"  parallel=True, {numba.get_num_threads()} threads"
+            paths.append(Path("kernel_parallel", label, kernel=True, parallel=True))
     return paths
 
 
@@ -185,7 +185,8 @@ def measure(subjects: int, trials: int, reps: int, seed: int = 7) -> dict:
         "best_path": best,
         "speedup_numpy": tl / med["numpy"],
         "speedup_kernel": tl / med["kernel"] if "kernel" in med else None,
-        "speedup_kernel_parallel": tl / med["kernel_parallel"] if "kernel_parallel" in med else None,
+        "speedup_kernel_parallel": (tl / med["kernel_parallel"]
+                                    if "kernel_parallel" in med else None),
         "subject_steps_per_s_by_path": {name: steps / med[name] for name in med},
         "seconds_by_path": med,
         "max_abs_diff": max_diff,
@@ -221,8 +222,8 @@ def main(argv: list[str] | None = None) -> int:
     print(f"Kalman TD replay, n = {result['n']}, {result['subjects']} subjects × {result['trials']} trials "
           f"= {result['subject_steps']:,} subject-steps, median of {result['reps']}")
     print(f"{'':28}{'seconds':>10}{'subject-steps/s':>18}{'speedup':>10}")
-    print(f"{'per-subject loop':28}{result['loop_s']:>10.3f}{result['loop_subject_steps_per_s']:>18,.0f}"
-          f"{'1.0×':>10}")
+    loop_rate = result["loop_subject_steps_per_s"]
+    print(f"{'per-subject loop':28}{result['loop_s']:>10.3f}{loop_rate:>18,.0f}{'1.0×':>10}")
     for name, label in result["labels"].items():
         sec = result["seconds_by_path"][name]
         print(f"{label:28}{sec:>10.3f}{result['subject_steps_per_s_by_path'][name]:>18,.0f}"
@@ -230,11 +231,12 @@ def main(argv: list[str] | None = None) -> int:
     if result["kernel_warmup_s_excluded"] is None:
         print("kernel: numba not installed (pip install rigloop[fast]); numpy path only")
     else:
-        print(f"kernel compile / cache load before timing: {result['kernel_warmup_s_excluded']:.2f} s "
-              f"(excluded)")
+        warm = result["kernel_warmup_s_excluded"]
+        print(f"kernel compile / cache load before timing: {warm:.2f} s (excluded)")
     print(f"best: {result['labels'][result['best_path']]}, speedup {result['speedup']:.1f}× "
-          f"(target ≥ {TARGET_SPEEDUP:.0f}×), {result['subject_steps_per_s']:,.0f} subject-steps/s "
-          f"(target ≥ {TARGET_RATE:,.0f}/s); max |Δw| = {result['max_abs_diff']:.2e} (≤ {TOLERANCE:g})")
+          f"(target ≥ {TARGET_SPEEDUP:.0f}×), {result['subject_steps_per_s']:,.0f} "
+          f"subject-steps/s (target ≥ {TARGET_RATE:,.0f}/s); "
+          f"max |Δw| = {result['max_abs_diff']:.2e} (≤ {TOLERANCE:g})")
     print("target met" if result["met"] else "target NOT met")
     return 0
 

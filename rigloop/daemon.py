@@ -14,12 +14,11 @@ Trials go through a two-stage pipeline of *group commits*, at most one batch in 
 2. step batch k+1 in arrival order on the newest in-memory states -- those already
    include batch k's stepped trials while k commits (the same subject twice sees the
    state after the first); replies to anything that is not a trial wait in the batch;
-3. when batch k's commit has returned (the committer writes one byte to a pipe the
-   poller watches; the loop notices it between trials, and never busy-waits), take in
+3. when stepping has taken ``batch_budget_ms`` or the drain is done, wait for batch
+   k's commit to return (the committer writes one byte to a pipe; the loop blocks on
+   it, or the poller wakes on it when the loop is idle -- never a busy-wait), take in
    its results, **only then** reply to batch k's rigs and publish its updates, and
-   hand batch k+1 to the committer. A batch is also handed over when stepping has
-   taken ``batch_budget_ms`` or the drain ends; if k is still committing then, the
-   loop blocks on the pipe until it returns.
+   hand batch k+1 to the committer.
 
 So the fsync of batch k overlaps with stepping batch k+1 (sqlite3 releases the GIL while
 SQLite runs), and an ack still means the trial is durable.
@@ -280,17 +279,16 @@ class _Batch:
     # filled in by the committer thread before it signals
     results: list[Any] | None = None
     error: BaseException | None = None
-    finished: bool = False
 
 
 class _Committer:
     """The thread that makes batches durable, one at a time.
 
     ``submit`` hands it a batch (the loop thread builds the items); the thread runs
-    ``Store.commit_batch``, stores the results (or the exception) on the batch, sets
-    ``finished`` and writes one byte to a pipe whose read end the loop's poller
-    watches. ``wait`` blocks on that pipe and returns the batch. Only the loop thread
-    calls ``submit``/``wait``; at most one batch is in flight."""
+    ``Store.commit_batch``, stores the results (or the exception) on the batch and
+    writes one byte to a pipe whose read end the loop's poller watches. ``wait``
+    blocks on that pipe and returns the batch. Only the loop thread calls
+    ``submit``/``wait``; at most one batch is in flight."""
 
     def __init__(self, store: Store):
         self._store = store
@@ -327,7 +325,6 @@ class _Committer:
                 batch.results = self._store.commit_batch(items)
             except BaseException as err:  # handed to the loop thread, which decides
                 batch.error = err
-            batch.finished = True
             os.write(self._write_fd, b"\x01")
 
     def close(self) -> None:
@@ -683,16 +680,13 @@ class Daemon:
     def _process(self, work: list[tuple[_Source, Any, int]]) -> None:
         self.counts["batches"] += 1
         self._batch_peak = max(self._batch_peak, len(work))
-        committer = self._committer
         budget = self.settings.batch_budget_ms / 1000.0
         started = time.perf_counter()
         for src, req, t in work:
-            cur = self._cur
-            if cur.out and (time.perf_counter() - started > budget
-                            or (cur.trials and committer.busy is not None and committer.busy.finished)):
-                # stepping takes ~1 ms a trial: hand over what is done when the committer
-                # is free again, or when the budget is spent, rather than keep the first
-                # rigs of a big batch waiting for the last
+            if self._cur.out and time.perf_counter() - started > budget:
+                # stepping takes ~1 ms a trial: hand over what is done rather than keep the
+                # first rigs of a big batch waiting for the last. (Handing over as soon as
+                # the committer is free made commits of ~3 trials and cost capacity.)
                 self._hand_over()
                 started = time.perf_counter()
             self.counts["requests"] += 1

@@ -160,14 +160,7 @@ class RouterLink:
             s.setsockopt(zmq.HEARTBEAT_TTL, options.heartbeat_ttl)
             s.setsockopt(zmq.HANDSHAKE_IVL, options.handshake_ivl)
             self.curve = curve is not None
-            if curve is not None:
-                s.setsockopt(zmq.ZAP_DOMAIN, ZAP_DOMAIN.encode())
-                s.setsockopt(zmq.ZAP_ENFORCE_DOMAIN, 1)
-                s.curve_secretkey = curve.secret
-                s.curve_publickey = curve.public
-                s.curve_server = True
-            s.bind(endpoint)
-            self.endpoint = s.getsockopt_string(zmq.LAST_ENDPOINT)
+            self.endpoint = _bind_server(s, endpoint, curve)
         except BaseException:
             s.close(0)
             raise
@@ -316,14 +309,7 @@ class PubLink:
         try:
             s.setsockopt(zmq.LINGER, linger)
             s.setsockopt(zmq.SNDHWM, sndhwm)
-            if curve is not None:
-                s.setsockopt(zmq.ZAP_DOMAIN, ZAP_DOMAIN.encode())
-                s.setsockopt(zmq.ZAP_ENFORCE_DOMAIN, 1)
-                s.curve_secretkey = curve.secret
-                s.curve_publickey = curve.public
-                s.curve_server = True
-            s.bind(endpoint)
-            self.endpoint = s.getsockopt_string(zmq.LAST_ENDPOINT)
+            self.endpoint = _bind_server(s, endpoint, curve)
         except BaseException:
             s.close(0)
             raise
@@ -496,3 +482,16 @@ def raw_socket(ctx: zmq.Context, kind: str) -> zmq.Socket:
     s = ctx.socket(getattr(zmq, kind.upper()))
     s.setsockopt(zmq.LINGER, 0)
     return s
+
+
+def _bind_server(s, endpoint: str, curve) -> str:
+    """Bind a server socket, as a CURVE server on our enforced ZAP domain when ``curve``
+    is given (a missing authenticator then fails closed); returns the bound endpoint."""
+    if curve is not None:
+        s.setsockopt(zmq.ZAP_DOMAIN, ZAP_DOMAIN.encode())
+        s.setsockopt(zmq.ZAP_ENFORCE_DOMAIN, 1)
+        s.curve_secretkey = curve.secret
+        s.curve_publickey = curve.public
+        s.curve_server = True
+    s.bind(endpoint)
+    return s.getsockopt_string(zmq.LAST_ENDPOINT)

@@ -299,7 +299,7 @@ class RouterLink:
 
 
 class PubLink:
-    """The PUB socket observers subscribe to; topic = subject id. PUB never blocks:
+    """The PUB socket for observers; topic = subject id. PUB never blocks:
     a slow observer loses messages at its HWM, rigs are never held up."""
 
     def __init__(self, ctx: zmq.Context, endpoint: str, *, sndhwm: int = 10_000, linger: int = 0,

@@ -108,6 +108,22 @@ def plain(value: float | np.ndarray) -> float | list[float]:
     return value.tolist() if isinstance(value, np.ndarray) else float(value)
 
 
+# --------------------------------------------------------------------------- the delta rule
+
+
+def add_scaled(w: np.ndarray, alpha: Any, scalar: bool, v: np.ndarray, delta: float, tmp: np.ndarray) -> None:
+    """w ← w + α δ v in place (α a scalar, or per feature); ``tmp`` is an (n,) scratch buffer.
+
+    The point learners' one update: Rescorla–Wagner with v = x, TD(λ) with v = its trace z.
+    """
+    if scalar:
+        np.multiply(v, alpha * delta, out=tmp)
+    else:
+        np.multiply(alpha, delta, out=tmp)
+        np.multiply(tmp, v, out=tmp)
+    np.add(w, tmp, out=w)
+
+
 # --------------------------------------------------------------------------- arrays
 
 

@@ -58,14 +58,8 @@ class RescorlaWagner(Learner):
         return delta
 
     def _step(self, x: np.ndarray, delta: float) -> None:
-        tmp = self._tmp
         # w ← w + α δ x
-        if self._scalar:
-            np.multiply(x, self._alpha * delta, out=tmp)
-        else:
-            np.multiply(self._alpha, delta, out=tmp)
-            np.multiply(tmp, x, out=tmp)
-        np.add(self._w, tmp, out=self._w)
+        sh.add_scaled(self._w, self._alpha, self._scalar, x, delta, self._tmp)
 
     def learn_trial(self, X: Any, r: Any) -> TrialResult:
         """One update per row: X (k, n) rows (usually k = 1, the trial's compound), r (k,)."""

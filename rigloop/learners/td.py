@@ -87,7 +87,6 @@ class TD(Learner):
 
     def _step(self, x: np.ndarray, delta: float) -> None:
         z = self._z
-        tmp = self._tmp
         # z ← γλz + x   (λ = 0: z = x exactly, which makes this TD(0))
         if self._gl:
             np.multiply(z, self._gl, out=z)
@@ -95,12 +94,7 @@ class TD(Learner):
         else:
             np.copyto(z, x)
         # w ← w + α δ z
-        if self._scalar:
-            np.multiply(z, self._alpha * delta, out=tmp)
-        else:
-            np.multiply(self._alpha, delta, out=tmp)
-            np.multiply(tmp, z, out=tmp)
-        np.add(self._w, tmp, out=self._w)
+        sh.add_scaled(self._w, self._alpha, self._scalar, z, delta, self._tmp)
 
     def learn_trial(self, X: Any, r: Any) -> TrialResult:
         """One trial: X (T, n) successive time-step rows, r (T,) with r[t] received on the

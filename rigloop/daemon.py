@@ -6,7 +6,10 @@ ports, subject states); one ``Poller`` watches the ROUTER, the serial file descr
 *committer*, only runs ``Store.commit_batch`` (the store takes a lock per call); it
 touches no socket and no daemon state.
 
-Trials go through a two-stage pipeline of *group commits*, at most one batch in flight:
+When a batch is done and nothing else is waiting (no message on the ROUTER, no line on
+a serial port), the loop commits it itself and answers at once: a rig alone pays for no
+hand-off between threads. When more input is waiting, trials go through a two-stage
+pipeline of *group commits*, at most one batch in flight:
 
 1. drain what is ready (at most ``batch_max`` messages from the ROUTER, plus every
    complete line from each serial port), decoding each with ``wire`` (every bad
@@ -110,6 +113,7 @@ class Settings:
     insecure: bool = False
     batch_max: int = 64
     batch_budget_ms: float = 8.0
+    inline_commit: bool = True  # commit on the loop thread when no other input waits
     snapshot_every: int = 50
     serial_baudrate: int = 115200
     serial_max_line: int = 512
@@ -304,8 +308,12 @@ class _Committer:
     def submit(self, batch: _Batch) -> None:
         assert self.busy is None, "one batch in flight at most"
         self.busy = batch
-        items = [(p.event, p.decision, p.update.quantities, p.snapshot) for p in batch.trials]
-        self._jobs.put([batch, items])
+        self._jobs.put([batch, self.items(batch)])
+
+    @staticmethod
+    def items(batch: _Batch) -> list[tuple]:
+        """What ``Store.commit_batch`` takes for the batch's stepped trials."""
+        return [(p.event, p.decision, p.update.quantities, p.snapshot) for p in batch.trials]
 
     def wait(self) -> _Batch:
         """The batch in flight, once its commit has returned (blocks until then)."""
@@ -369,12 +377,13 @@ class Daemon:
         self._rules_cache = RulesCache()
         self._by_sha = {r.sha256: r for r in self.rules.values()}
         self.counts: dict[str, int] = {"requests": 0, "trials": 0, "duplicates": 0, "sessions_opened": 0,
-                                       "sessions_closed": 0, "batches": 0, "errors": 0, "replies_dropped": 0}
+                                       "sessions_closed": 0, "batches": 0, "commits_here": 0, "commits_handed_over": 0,
+                                       "errors": 0, "replies_dropped": 0}
         self.errors_by_code: dict[str, int] = {}
         self._latency_ns: deque[int] = deque(maxlen=settings.latency_window)
         self._batch_peak = 0  # largest batch seen
         self.busy_s = 0.0  # loop thread handling batches (the rest is waiting for input or the committer)
-        self.commit_wait_s = 0.0  # loop thread blocked on a commit still in flight
+        self.commit_wait_s = 0.0  # loop thread waiting on commits (one in flight, or its own when idle)
         self._cur = _Batch()  # the batch being stepped
         self._committer: _Committer | None = None
         self.started = time.time()
@@ -604,8 +613,8 @@ class Daemon:
             self._tend_serial()
 
     def _timed(self, fn: Any, *args: Any) -> None:
-        """Run ``fn`` and count its time in ``busy_s``, less the time spent blocked on a
-        commit still in flight (counted in ``commit_wait_s``)."""
+        """Run ``fn`` and count its time in ``busy_s``, less the time spent waiting on a
+        commit (one in flight, or one run here when idle; counted in ``commit_wait_s``)."""
         t0, w0 = time.perf_counter(), self.commit_wait_s
         fn(*args)
         self.busy_s += time.perf_counter() - t0 - (self.commit_wait_s - w0)
@@ -687,7 +696,7 @@ class Daemon:
                 # stepping takes ~1 ms a trial: hand over what is done rather than keep the
                 # first rigs of a big batch waiting for the last. (Handing over as soon as
                 # the committer is free made commits of ~3 trials and cost capacity.)
-                self._hand_over()
+                self._hand_over(more=True)
                 started = time.perf_counter()
             self.counts["requests"] += 1
             try:
@@ -709,16 +718,37 @@ class Daemon:
 
     # -- the pipeline -----------------------------------------------------------------
 
-    def _hand_over(self) -> None:
-        """Answer the batch in flight (waiting for its commit), then hand the batch being
-        stepped to the committer; a batch without trials is answered at once."""
+    def _hand_over(self, more: bool = False) -> None:
+        """Answer the batch in flight (waiting for its commit), then commit the batch being
+        stepped: here, if nothing else waits to be stepped (``more`` is False and no input
+        is ready), else on the committer thread while the loop steps on. A batch without
+        trials is answered at once."""
         self._settle()
         batch, self._cur = self._cur, _Batch()
         if batch.trials:
-            self._committer.submit(batch)
+            if more or not self.settings.inline_commit or self._input_ready():
+                self.counts["commits_handed_over"] += 1
+                self._committer.submit(batch)
+            else:
+                self.counts["commits_here"] += 1
+                self._commit_here(batch)
         elif batch.out:
             self._fill_replies(batch.out)  # trials dropped by _settle get their errors
             self._send_all(batch.out)
+
+    def _input_ready(self) -> bool:
+        """Whether a message or a serial line is already waiting (a zero-timeout poll)."""
+        return bool(self.poller.poll(0))
+
+    def _commit_here(self, batch: _Batch) -> None:
+        """Commit ``batch`` on the loop thread, then answer it (the idle path)."""
+        t0 = time.perf_counter()
+        try:
+            batch.results = self.store.commit_batch(self._committer.items(batch))
+        except BaseException as err:  # decided in _finish, as for a batch from the committer
+            batch.error = err
+        self.commit_wait_s += time.perf_counter() - t0
+        self._finish(batch)
 
     def _flush(self) -> None:
         """Commit and answer everything stepped so far (before writes outside a batch)."""
@@ -734,13 +764,18 @@ class Daemon:
         t0 = time.perf_counter()
         batch = committer.wait()
         self.commit_wait_s += time.perf_counter() - t0
+        self._finish(batch)
+        return True
+
+    def _finish(self, batch: _Batch) -> None:
+        """A batch whose commit returned: take in its results, then answer its rigs and
+        publish its updates. A failed commit stops the daemon (restart recovers)."""
         if batch.error is not None:
             if isinstance(batch.error, StoreError):  # the store refuses further writes: stop, restart recovers
                 raise _Fatal(batch.error) from batch.error
             raise batch.error
         self._take_results(batch)
         self._send_all(batch.out)
-        return True
 
     def _settle_for(self, subject: str) -> bool:
         """Settle the batch in flight if it holds trials of ``subject`` (so the store

@@ -88,6 +88,8 @@ def test_zmq_session_matches_offline_replay(daemon, rig_factory):
     assert result.trials == 60
     status = rig.status()
     assert status["counts"]["trials"] == 60
+    # one rig waits for each reply, so nothing else is ever waiting: the loop commits itself
+    assert (status["counts"]["commits_here"], status["counts"]["commits_handed_over"]) == (60, 0)
     assert status["latency_ms"]["n"] >= 60
     assert status["latency_ms"]["p50"] is not None
     assert read_state_file(d.settings.data)["zmq"] == d.endpoints["zmq"]
@@ -477,7 +479,7 @@ def test_trial_stepped_on_a_trial_that_was_not_stored_is_refused(daemon, rig_fac
     from rigloop.errors import StoreError
     from rigloop.store import CommitResult
 
-    d = daemon()
+    d = daemon(inline_commit=False)  # trial 3 commits on the committer thread while 4 is stepped
     rig = rig_factory(d.endpoints["zmq"])
     animal = SimulatedAnimal("q1", seed=31)
     decision = rig.open("q1", "s1", RULES).decision

@@ -870,7 +870,8 @@ class Daemon:
                     published.append(p)
         if self.pub is not None:
             for p in published:
-                self._publish_trial(p)
+                if self.pub.wants(p.event.subject):  # no observer: no summary to build
+                    self._publish_trial(p)
 
     # -- requests -------------------------------------------------------------------
 
@@ -1042,7 +1043,7 @@ class Daemon:
         self.open[subject] = info
         self.counts["sessions_opened"] += 1
         self.log.info("session_opened", subject=subject, session=session, rig=req.rig, rules=name)
-        if self.pub is not None:
+        if self.pub is not None and self.pub.wants(subject):
             self.pub.publish(subject, wire_pack({"type": "session_opened", "subject": subject, "session": session,
                                                   "rig": req.rig, "decision": first.to_dict(),
                                                   "summary": self._summary(state, rules, first)}))
@@ -1085,7 +1086,7 @@ class Daemon:
             return bad
         if info.closed_at is None:
             self._close(info, float(getattr(req, "wall_time", None) or self.clock()), reason="closed by the rig")
-            if self.pub is not None:
+            if self.pub is not None and self.pub.wants(req.subject):
                 self.pub.publish(req.subject, wire_pack({"type": "session_closed", "subject": req.subject,
                                                           "session": req.session}))
         return wire.Ack(req.id, "close")

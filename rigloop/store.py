@@ -122,9 +122,14 @@ CREATE TABLE snapshots (
 # --------------------------------------------------------------------------- values
 
 
+_CANONICAL = json.JSONEncoder(sort_keys=True, separators=(",", ":"), allow_nan=False)
+
+
 def canonical_json(data: Any) -> str:
-    """The one text form of stored JSON: sorted keys, no spaces, exact floats, no NaN."""
-    return json.dumps(data, sort_keys=True, separators=(",", ":"), allow_nan=False)
+    """The one text form of stored JSON: sorted keys, no spaces, exact floats, no NaN.
+
+    (One shared encoder: ``json.dumps`` with these options builds a new one per call.)"""
+    return _CANONICAL.encode(data)
 
 
 def rules_digest(text: str) -> str:
@@ -775,7 +780,9 @@ def _quantities(quantities: Mapping[str, float | None]) -> dict[str, float | Non
         if not isinstance(name, str) or not name or not name.isprintable() or name in _RESERVED_QUANTITY_NAMES:
             raise BadArgument("quantities", "names that are non-empty printable strings other than "
                               "subject, session, trial, seq", name)
-        if value is None:
+        if type(value) is float and math.isfinite(value):  # the common case, without the ABC check below
+            out[name] = value
+        elif value is None:
             out[name] = None
         elif isinstance(value, bool) or not isinstance(value, numbers.Real) or not math.isfinite(value):
             # numbers.Real admits numpy scalars (float32, int64) as well as int and float

@@ -161,3 +161,32 @@ def test_serial_writes_never_block_when_the_rig_stops_reading(tmp_path):
         link.close()
         port.close()
         assert not os.path.exists(port.path)
+
+
+def _until(predicate, timeout=2.0):
+    deadline = time.monotonic() + timeout
+    while time.monotonic() < deadline:
+        if predicate():
+            return True
+        time.sleep(0.01)
+    return predicate()
+
+
+def test_publisher_sees_subscriptions_by_prefix(ctx):
+    """The publisher knows which topics observers want: nobody at first, a subject's
+    subscriber by prefix, everything for an empty topic, nobody again once they leave."""
+    pub = zlink.PubLink(ctx, "tcp://127.0.0.1:*")
+    try:
+        assert not pub.wants("m1")
+        one = zlink.SubLink(ctx, pub.endpoint, topics=("m1",))
+        assert _until(lambda: pub.wants("m1"))
+        assert pub.wants("m10") and not pub.wants("m2")  # prefix match, as SUB filters
+        everyone = zlink.SubLink(ctx, pub.endpoint)
+        assert _until(lambda: pub.wants("m2"))
+        pub.publish("m2", b"hello")
+        assert everyone.recv(2000) == ("m2", b"hello")
+        everyone.close()
+        one.close()
+        assert _until(lambda: not pub.wants("m1") and not pub.wants("m2"))
+    finally:
+        pub.close()

@@ -299,12 +299,18 @@ class RouterLink:
 
 
 class PubLink:
-    """The PUB socket for observers; topic = subject id. PUB never blocks:
-    a slow observer loses messages at its HWM, rigs are never held up."""
+    """The publishing socket for observers; topic = subject id. It never blocks: a slow
+    observer loses messages at its HWM, rigs are never held up.
+
+    An XPUB rather than a PUB, so the daemon can see the subscriptions and skip building
+    messages nobody has asked for (``wants``). Sending is the same as PUB's; libzmq
+    passes on the first subscription to a topic and the last unsubscription (also when
+    a subscriber disconnects), so a set of topics mirrors what is subscribed.
+    """
 
     def __init__(self, ctx: zmq.Context, endpoint: str, *, sndhwm: int = 10_000, linger: int = 0,
                  curve: CurveServerKeys | None = None):
-        s = ctx.socket(zmq.PUB)
+        s = ctx.socket(zmq.XPUB)
         self.socket = s
         try:
             s.setsockopt(zmq.LINGER, linger)
@@ -314,6 +320,27 @@ class PubLink:
             s.close(0)
             raise
         self.published = 0
+        self.topics: set[bytes] = set()  # subscribed topic prefixes (b"" = everything)
+
+    def _read_subscriptions(self) -> None:
+        """Take in (un)subscriptions that arrived: b"\x01topic" adds, b"\x00topic" removes."""
+        while True:
+            try:
+                msg = self.socket.recv(zmq.NOBLOCK)
+            except zmq.Again:
+                return
+            if msg[:1] == b"\x01":
+                self.topics.add(msg[1:])
+            elif msg[:1] == b"\x00":
+                self.topics.discard(msg[1:])
+
+    def wants(self, topic: str) -> bool:
+        """Whether some observer is subscribed to ``topic`` (by prefix, as PUB filters)."""
+        self._read_subscriptions()
+        if not self.topics:
+            return False
+        t = topic.encode()
+        return any(t.startswith(prefix) for prefix in self.topics)
 
     def publish(self, topic: str, payload: bytes) -> None:
         try:

@@ -203,30 +203,54 @@ def _pairs(pairs: list[tuple[Any, Any]]) -> dict[str, Any]:
 
 
 def _check_tree(body: dict[str, Any]) -> None:
-    """Depth, length and type limits over the whole decoded tree (no recursion)."""
-    stack: list[tuple[Any, str, int]] = [(body, "", 1)]
+    """Depth, length and type limits over the whole decoded tree (no recursion).
+
+    A node's place is kept as a tuple of keys and indices and spelt out as a path
+    (``event.cues[0]``) only for the error message, so a good frame costs one type
+    test per value."""
+    stack: list[tuple[Any, tuple, int]] = [(body, (), 1)]
     while stack:
-        node, path, depth = stack.pop()
-        if isinstance(node, dict):
-            children = [(v, f"{path}.{k}" if path else k) for k, v in node.items()]
-        elif isinstance(node, list):
-            if len(node) > MAX_LIST:
-                raise MessageError("too_large", f"{path!r} holds {len(node)} entries; the limit is {MAX_LIST}", field=path)
-            children = [(v, f"{path}[{i}]") for i, v in enumerate(node)]
+        node, where, depth = stack.pop()
+        if type(node) is dict:
+            items = node.items()
         else:
-            continue
-        if depth >= MAX_DEPTH and children and any(isinstance(v, (dict, list)) for v, _ in children):
-            raise MessageError("too_large", f"frame nests containers deeper than {MAX_DEPTH} levels", field=path or None)
-        for value, where in children:
-            if isinstance(value, str):
+            if len(node) > MAX_LIST:
+                path = _path(where)
+                raise MessageError("too_large", f"{path!r} holds {len(node)} entries; the limit is {MAX_LIST}", field=path)
+            items = enumerate(node)
+        nested = depth >= MAX_DEPTH
+        for key, value in items:
+            kind = type(value)
+            if kind is str:
                 if len(value) > MAX_STR:
-                    raise MessageError("too_large", f"{where!r} is {len(value)} characters; the limit is {MAX_STR}", field=where)
-            elif isinstance(value, (bytes, bytearray)):
-                raise MessageError("bad_field", f"{where!r} must not be binary data; send text or numbers", field=where)
-            elif isinstance(value, (dict, list)):
-                stack.append((value, where, depth + 1))
-            elif value is not None and not isinstance(value, (bool, int, float)):
-                raise MessageError("bad_field", f"{where!r} must not be a msgpack extension type", field=where)
+                    path = _path((*where, key))
+                    raise MessageError("too_large", f"{path!r} is {len(value)} characters; the limit is {MAX_STR}",
+                                       field=path)
+            elif kind is dict or kind is list:
+                if nested:
+                    raise MessageError("too_large", f"frame nests containers deeper than {MAX_DEPTH} levels",
+                                       field=_path(where) or None)
+                stack.append((value, (*where, key), depth + 1))
+            elif value is None or kind is bool or kind is int or kind is float:
+                continue
+            elif kind is bytes or kind is bytearray:
+                path = _path((*where, key))
+                raise MessageError("bad_field", f"{path!r} must not be binary data; send text or numbers", field=path)
+            else:
+                path = _path((*where, key))
+                raise MessageError("bad_field", f"{path!r} must not be a msgpack extension type", field=path)
+
+
+def _path(where: tuple) -> str:
+    """``("event", "cues", 0)`` -> ``"event.cues[0]"``: map keys joined by dots, list
+    indices in brackets."""
+    out = ""
+    for key in where:
+        if type(key) is int:
+            out += f"[{key}]"
+        else:
+            out = f"{out}.{key}" if out else key
+    return out
 
 
 def _kind(value: Any) -> str:

@@ -5,10 +5,16 @@ features, Kalman TD, durable group commits). One client process drives ``--rigs`
 DEALER sockets from a single poll loop; each rig runs its own simulated animal, has one
 trial in flight at a time (send, wait for the decision, make the next trial from it)
 and resends the same trial after ``--timeout`` (Lazy Pirate). Each rig starts a trial
-at most every ``--interval`` seconds (default 0.18 s: 100 rigs offer ~555 trials/s,
-each rig far faster than a real trial); ``--interval 0`` runs closed-loop flat out, which
-measures capacity (latency is then rigs / throughput, by Little's law). At the end the store is
-read back: every trial a rig got a decision for must be stored exactly once.
+every ``--interval`` seconds on average (default 0.18 s: 100 rigs offer ~555 trials/s,
+each rig far faster than a real trial), each interval drawn uniformly within
+``--jitter`` of it (default ±25%, as tasks jitter their inter-trial intervals) and each
+rig starting at a random moment of the first interval, as independent rigs do.
+``--jitter 0`` keeps every rig in lockstep from one common start: all 100 trials arrive
+together every interval, a worst case no room of real rigs sustains (latency is then
+set by the time to step a whole burst). ``--interval 0`` runs closed-loop flat out,
+which measures capacity (latency is then rigs / throughput, by Little's law). At the
+end the store is read back: every trial a rig got a decision for must be stored
+exactly once.
 
 Reported: ``trials_per_s`` (acknowledged trials over the measured time), ``p99_ms``
 (send-to-decision at the rig, all rigs), ``lost`` (acknowledged trials missing
@@ -22,6 +28,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import random
 import statistics
 import sys
 import tempfile
@@ -58,6 +65,7 @@ class Rig:
         self.wall = time.time()
         self.acked: list[tuple[str, int]] = []
         self.due = 0.0  # when the next trial may start (pacing)
+        self.rng = random.Random(n)  # this rig's interval jitter
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -66,6 +74,8 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--rigs", type=int, default=100)
     ap.add_argument("--interval", type=float, default=0.18,
                     help="each rig starts a trial at most this often (s); 0 = as fast as replies come")
+    ap.add_argument("--jitter", type=float, default=0.25,
+                    help="each interval is drawn uniformly within this fraction of --interval; 0 = lockstep")
     ap.add_argument("--timeout", type=float, default=2.0, help="resend a request after this many seconds")
     ap.add_argument("--retries", type=int, default=10)
     ap.add_argument("--dir", default=None)
@@ -103,8 +113,15 @@ def main(argv: list[str] | None = None) -> int:
             r.wall += 4.0
             send(r, wire.TrialReport(next(ids), event))
 
+        def interval(r: Rig) -> float:
+            return args.interval * (1.0 + args.jitter * (2.0 * r.rng.random() - 1.0))
+
+        t_start = time.perf_counter()
         for r in rigs:
-            open_next(r)
+            if args.jitter:
+                r.due = t_start + args.interval * r.rng.random()  # independent rigs start at different moments
+            else:
+                open_next(r)
         latencies: list[float] = []
         abandoned = 0
         acked = 0
@@ -137,12 +154,12 @@ def main(argv: list[str] | None = None) -> int:
                         if t >= measuring_from:
                             latencies.append((t - r.first_sent) * 1e3)
                     r.rid = 0
-                    r.due = r.first_sent + args.interval
+                    r.due = r.first_sent + interval(r)
                     break
             now = time.perf_counter()
             for r in rigs:
-                if not r.rid and r.decision is not None and now >= r.due and now < end:
-                    if r.decision.end_session:
+                if not r.rid and now >= r.due and now < end:
+                    if r.decision is None or r.decision.end_session:
                         open_next(r)
                     else:
                         next_trial(r)
@@ -192,6 +209,8 @@ def main(argv: list[str] | None = None) -> int:
     result = {
         "rigs": args.rigs,
         "seconds": args.seconds,
+        "interval_s": args.interval,
+        "jitter": args.jitter,
         "trials_per_s": round(rate, 1),
         "p50_ms": round(statistics.median(lat), 3) if lat else None,
         "p99_ms": round(p99, 3) if p99 is not None else None,

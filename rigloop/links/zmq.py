@@ -324,7 +324,7 @@ class PubLink:
 
     def _read_subscriptions(self) -> None:
         """Take in (un)subscriptions that arrived: b"\x01topic" adds, b"\x00topic" removes."""
-        while True:
+        while self.socket.get(zmq.EVENTS) & zmq.POLLIN:  # cheaper than a receive that fails
             try:
                 msg = self.socket.recv(zmq.NOBLOCK)
             except zmq.Again:

@@ -68,11 +68,41 @@ def trial_rng(seed: int, trial: int) -> np.random.Generator:
     return np.random.default_rng([seed & 0xFFFFFFFFFFFFFFFF, trial])
 
 
+class _LazyTrialRng:
+    """``trial_rng(seed, trial)``, built on its first use.
+
+    Building the generator (a SeedSequence) costs more than most decisions, and most
+    decisions draw nothing; the draws, when made, are those of ``trial_rng``.
+    """
+
+    __slots__ = ("_seed", "_trial", "_rng")
+
+    def __init__(self, seed: int, trial: int):
+        self._seed, self._trial, self._rng = seed, trial, None
+
+    def _generator(self) -> np.random.Generator:
+        if self._rng is None:
+            self._rng = trial_rng(self._seed, self._trial)
+        return self._rng
+
+    def random(self, *args, **kwargs):
+        return self._generator().random(*args, **kwargs)
+
+    def integers(self, *args, **kwargs):
+        return self._generator().integers(*args, **kwargs)
+
+    def permutation(self, *args, **kwargs):
+        return self._generator().permutation(*args, **kwargs)
+
+    def __getattr__(self, name: str):
+        return getattr(self._generator(), name)
+
+
 def _decide(state: SubjectState, rules, learner, curves, schedule, next_trial: int, extra_warnings=()):
     ctx = state.context
     rep = representation_for(rules)
     view = ModelView(learner, rep, curves, rules.performance.chance, rules.performance.sigma2)
-    schedule, plan = rules.decide(schedule, view, next_trial, trial_rng(ctx.seed, next_trial))
+    schedule, plan = rules.decide(schedule, view, next_trial, _LazyTrialRng(ctx.seed, next_trial))
     kwargs = plan.as_kwargs()
     if extra_warnings:
         kwargs["warnings"] = tuple(extra_warnings) + tuple(kwargs.get("warnings", ()))

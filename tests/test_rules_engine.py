@@ -234,3 +234,39 @@ def test_observe_is_pure():
     s1 = r.observe(s0, event(1, "light_left", "correct", ul=5.0, value="left", kind="choice"))
     assert s0.to_dict() == before and s1 != s0
     assert s1.right_bias == pytest.approx(0.5 - 0.5 / 15)
+
+
+class _CountingRng:
+    """A generator that counts its uniform draws."""
+
+    def __init__(self, seed):
+        self.rng, self.draws = np.random.default_rng(seed), 0
+
+    def random(self, *args):
+        self.draws += 1
+        return self.rng.random(*args)
+
+    def __getattr__(self, name):
+        return getattr(self.rng, name)
+
+
+@pytest.mark.parametrize("p_a, draws", [(1.0, 0), (0.0, 0), (0.7, 1)])
+def test_the_arming_draw_is_made_only_when_it_can_matter(p_a, draws):
+    """A reward probability of 0 or 1 arms (or not) without a draw; one inside (0, 1) draws once."""
+    r = rules_for("sequence", "fixed", p_a=p_a, p_b=0.0 if p_a else 0.5)
+    s = r.open_session(r.start_subject(), "s1", T0)
+    rng = _CountingRng(3)
+    _, plan = r.decide(s, StaticView(), 1, rng)
+    assert plan.cue == "a" and rng.draws == draws
+    assert plan.reward_armed == (p_a == 1.0 or (p_a > 0 and np.random.default_rng(3).random() < p_a))
+
+
+def test_apply_limits_arms_on_the_given_draw():
+    """apply_limits compares its u with the final probability, whatever u is."""
+    from rigloop.rules.welfare import DEFAULTS, Offer, apply_limits
+
+    kw = dict(session_min=1.0, unrewarded_in_row=0, ul_session=0.0, ul_today=2000.0, rewarded={"a": 3.0},
+              rescue_ul=3.0)
+    for u, p, armed in [(0.2, 0.6, True), (0.6, 0.6, False), (1.0, 1.0, False), (-1.0, 0.0, True)]:
+        offer, _, _ = apply_limits(DEFAULTS, Offer("a", p, 3.0, False, False), u, **kw)
+        assert offer.reward_armed is armed

@@ -68,6 +68,18 @@ def test_randomness_depends_on_seed_and_trial_only():
     assert (a == b).all() and not (a == c).all()
 
 
+def test_lazy_trial_generator_draws_what_trial_rng_draws():
+    """The generator step hands the rules is built on first use and draws as trial_rng does."""
+    from rigloop.step import _LazyTrialRng
+
+    lazy, real = _LazyTrialRng(123, 7), trial_rng(123, 7)
+    assert lazy._rng is None
+    assert lazy.permutation(6).tolist() == real.permutation(6).tolist()
+    assert lazy.random() == real.random()
+    assert lazy.integers(5) == real.integers(5)
+    assert lazy.normal() == real.normal()
+
+
 def test_wrong_trial_number_is_rejected_and_changes_nothing(rules, run):
     state, _ = _opened(rules)
     bad = TrialEvent.from_dict({**run.events[0].to_dict(), "trial": 2})

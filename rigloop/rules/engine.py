@@ -7,7 +7,8 @@ All three are pure functions of their arguments and return new values:
   staircase, SPRT and water tallies;
 * ``decide`` checks the session-end criteria, then stage moves, then the block's
   end; then the next-cue policy draws the cue, one uniform draw arms the reward
-  against the reward policy's probability, and the welfare limits have the last word.
+  against the reward policy's probability (drawn only when that probability is
+  strictly between 0 and 1), and the welfare limits have the last word.
 """
 
 from __future__ import annotations
@@ -25,7 +26,7 @@ from .expr import Env, explain_if, fmt
 from .model import Block, Spec, Stage
 from .policies import choose_cue, reward_prob, staircase_step
 from .state import ScheduleState
-from .welfare import Offer, apply_limits
+from .welfare import Offer, limit_offer
 
 
 @dataclass(frozen=True, slots=True)
@@ -277,11 +278,10 @@ def decide(spec: Spec, sched: ScheduleState, view, next_trial: int,
         p, why_p, pw = reward_prob(block.reward, block, cue, lambda c: ScheduleEnv(sched, view, block, c))
         reasons.append(why_p)
         warnings.extend(pw)
-    u = float(rng.random()) if not end else 1.0
     ul = block.contingency[cue].ul if cue is not None else 0.0
     rewarded = {c: block.contingency[c].ul for c in block.rewarded_cues()}
-    offer, overrides, wwarn = apply_limits(
-        spec.welfare, Offer(cue, p, ul, False, end), u,
+    offer, overrides, wwarn = limit_offer(
+        spec.welfare, Offer(cue, p, ul, False, end), _uniform_below(rng),
         session_min=session_minutes(sched), unrewarded_in_row=sched.unrewarded_in_row,
         ul_session=sched.ul_session, ul_today=sched.ul_today, rewarded=rewarded,
         rescue_ul=spec.welfare.rescue_ul or _largest_ul(spec),
@@ -301,6 +301,24 @@ def decide(spec: Spec, sched: ScheduleState, view, next_trial: int,
         overrides=tuple(overrides), warnings=tuple(warnings),
     )
     return sched, plan
+
+
+def _uniform_below(rng: np.random.Generator):
+    """``below(p)``: is the trial's uniform draw u in [0, 1) below p?
+
+    u is the decision's last draw, so it is made only when p lies strictly inside
+    (0, 1); for p >= 1 the answer is yes and for p <= 0 (or NaN) no, whatever u is,
+    and no other draw of the trial depends on whether u was made.
+    """
+
+    def below(p: float) -> bool:
+        if p >= 1.0:
+            return True
+        if not p > 0.0:
+            return False
+        return float(rng.random()) < p
+
+    return below
 
 
 def _moves(spec: Spec, sched: ScheduleState, view, reasons: list[str]) -> ScheduleState:

@@ -13,6 +13,7 @@ bounds below, which no rule file can pass.
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass, fields
 from typing import Any
 
@@ -164,6 +165,30 @@ def apply_limits(
     so raising the probability never needs a new draw. ``rewarded`` maps each cue the
     block rewards to its contingency volume.
     """
+    return limit_offer(
+        limits, offer, lambda p: u < p, session_min=session_min, unrewarded_in_row=unrewarded_in_row,
+        ul_session=ul_session, ul_today=ul_today, rewarded=rewarded, rescue_ul=rescue_ul,
+    )
+
+
+def limit_offer(
+    limits: WelfareLimits,
+    offer: Offer,
+    below: Callable[[float], bool],
+    *,
+    session_min: float,
+    unrewarded_in_row: int,
+    ul_session: float,
+    ul_today: float,
+    rewarded: dict[str, float],
+    rescue_ul: float,
+) -> tuple[Offer, list[str], list[str]]:
+    """:func:`apply_limits` with the uniform draw behind ``below(p)`` (is u < p?).
+
+    ``below`` is called at most once, and only when the draw decides the arming (no
+    limit forced the reward, a volume is offered, the session goes on), so the engine
+    can leave the trial's generator untouched on every other decision.
+    """
     overrides: list[str] = []
     warnings: list[str] = []
     cue, p, ul, end = offer.cue, offer.reward_prob, offer.reward_ul, offer.end_session
@@ -207,7 +232,7 @@ def apply_limits(
         if ul > limits.max_reward_ul:
             overrides.append(f"welfare: reward {fmt(ul)} µL exceeds the limit -> {fmt(limits.max_reward_ul)} µL")
             ul = limits.max_reward_ul
-    armed = (forced or u < p) and ul > 0 and not end
+    armed = not end and ul > 0 and (forced or below(p))
     if end:
         cue, p, ul, armed = None, 0.0, 0.0, False
 

@@ -46,7 +46,9 @@ Time-bin convention (timed kinds), written once here and pinned in the tests:
   ``cue@j`` to ``gamma ** (L - 1 - j)`` (methods.md section 3).
 
 All array work is vectorised (no Python loop over bins); this runs once per trial on
-the hot path. Invalid input raises :class:`rigloop.errors.BadArgument` naming the argument.
+the hot path. A trial's rows depend only on its binned layout (cue onset and end bins,
+outcome rows and amounts, T), so each representation keeps the rows of the layouts it
+has seen in a small bounded cache; the arrays it hands out are read-only for good. Invalid input raises :class:`rigloop.errors.BadArgument` naming the argument.
 """
 
 from __future__ import annotations
@@ -63,6 +65,7 @@ from .errors import BadArgument
 REPRESENTATIONS = ("identity", "presence", "serial_compound", "trace")
 MAX_STEPS = 10_000  # a trial longer than this many bins is a unit mistake, not a trial
 _EPS = 1e-9  # relative to one bin: absorbs float error in t/dt at bin edges
+_LAYOUTS_MAX = 256  # binned trial layouts kept per representation (a task has a handful)
 
 
 # --------------------------------------------------------------------------- cue list
@@ -170,6 +173,8 @@ class Representation:
     dt: float
     n_bins: int | None = None
     decay: float | None = None
+    # binned layout -> (X, r, onset steps); see _timed_rows
+    _layouts: dict = field(default_factory=dict, init=False, repr=False, compare=False, hash=False)
 
     @property
     def timed(self) -> bool:
@@ -226,20 +231,58 @@ class Representation:
                 raise BadArgument("duration", expected, duration)
 
         if self.kind == "identity":
-            X = np.zeros((1, self.n_features))
-            X[0, cols] = 1.0
-            r = np.array([math.fsum(amounts)])
-            return _frozen(X, r, {self.cues.cues[c]: 0 for c in sorted(cols)})
+            return self._identity_rows(cols, amounts)
+        return self._timed_rows(cols, onsets, offsets, times, amounts, duration)
 
+    def _identity_rows(self, cols: list[int], amounts: list[float]) -> TrialRows:
+        X = np.zeros((1, self.n_features))
+        X[0, cols] = 1.0
+        r = np.array([math.fsum(amounts)])
+        return _frozen(X, r, {self.cues.cues[c]: 0 for c in sorted(cols)})
+
+    def _timed_rows(
+        self,
+        cols: list[int],
+        onsets: list[float],
+        offsets: list[float],
+        times: list[float],
+        amounts: list[float],
+        duration: float,
+    ) -> TrialRows:
+        """Rows of checked times: bin them, then build (or reuse) the rows of that layout.
+
+        The rows depend on the times only through their bins, so jittered times that
+        bin alike share one entry of a small per-representation cache.
+        """
         dt = self.dt
         if duration / dt > MAX_STEPS:
             expected = f"at most {MAX_STEPS} bins of dt = {dt:g} s long"
             raise BadArgument("duration", expected, duration)
-        on = np.array([_bin(t, dt) for t in onsets], dtype=np.intp)
-        end = np.array([_end_bin(t, dt) for t in offsets], dtype=np.intp)
-        end = np.maximum(end, on + 1)
-        T = max(1, math.ceil(duration / dt - _EPS), int(end.max(initial=0)))
-        cols = np.asarray(cols, dtype=np.intp)
+        on = [_bin(t, dt) for t in onsets]
+        end = [max(_end_bin(t, dt), b + 1) for t, b in zip(offsets, on, strict=True)]
+        T = max(1, math.ceil(duration / dt - _EPS), max(end, default=0))
+        # outcome at tau in bin b is received on the transition b-1 -> b: r[clip(b - 1, 0, T - 1)]
+        slots = [min(max(_bin(t, dt) - 1, 0), T - 1) for t in times]
+        # cues in cue-list order, whatever the presentation order; outcomes in the given
+        # order (it is the order their amounts are summed in)
+        layout = (tuple(sorted(zip(cols, on, end, strict=True))), tuple(zip(slots, amounts, strict=True)), T)
+        hit = self._layouts.get(layout)
+        if hit is None:
+            hit = self._build_rows(*layout)
+            if len(self._layouts) >= _LAYOUTS_MAX:
+                self._layouts.clear()
+            self._layouts[layout] = hit
+        X, r, onset_steps = hit
+        return TrialRows(X, r, dict(onset_steps))
+
+    def _build_rows(
+        self, cues: tuple[tuple[int, int, int], ...], outcomes: tuple[tuple[int, float], ...], T: int
+    ) -> tuple[np.ndarray, np.ndarray, tuple[tuple[str, int], ...]]:
+        """X, r and the onset steps of one binned layout: cues ``(column block, onset bin,
+        end bin)`` sorted by block, outcomes ``(row of r, amount)``; arrays read-only."""
+        cols = np.array([c for c, _, _ in cues], dtype=np.intp)
+        on = np.array([b for _, b, _ in cues], dtype=np.intp)
+        end = np.array([e for _, _, e in cues], dtype=np.intp)
         X = np.zeros((T, self.n_features))
         t = np.arange(T)[:, None]  # (T, 1) against (m,) present cues
 
@@ -258,20 +301,39 @@ class Representation:
             column = cols[which] * self.n_bins + np.minimum(since, self.n_bins - 1)
             X[on[which] + since, column] = 1.0
 
-        # outcome at tau in bin b is received on the transition b-1 -> b: r[clip(b - 1, 0, T - 1)]
         r = np.zeros(T)
-        if times:
-            b = np.floor(np.asarray(times) / dt + _EPS).astype(np.intp)
-            np.add.at(r, np.clip(b - 1, 0, T - 1), np.asarray(amounts))
-        # in cue-list order, whatever the presentation order
-        pairs = sorted(zip(cols.tolist(), on.tolist(), strict=True))
-        onset_steps = {self.cues.cues[c]: s for c, s in pairs}
-        return _frozen(X, r, onset_steps)
+        if outcomes:
+            np.add.at(r, np.array([k for k, _ in outcomes], dtype=np.intp), np.array([a for _, a in outcomes]))
+        onset_steps = tuple((self.cues.cues[c], b) for c, b, _ in cues)
+        return _locked(X), _locked(r), onset_steps
 
     def event_rows(self, event: Any) -> TrialRows:
         """Rows of a :class:`rigloop.trial.TrialEvent` (its cues, reward and duration)."""
         cues = [(c.cue, c.onset, c.offset) for c in event.cues]
         return self.rows(cues, event.outcome_events(), event.duration)
+
+    def _event_rows(self, event: Any, reward_unit: float) -> TrialRows:
+        """:meth:`event_rows` with rewards in units of ``reward_unit`` µL, for ``step``.
+
+        A TrialEvent checked its times on construction (finite, >= 0, each offset after
+        its onset, the duration covering every event), so only what it cannot know is
+        checked here: that its cues are columns of this representation, that its
+        scaled reward is finite, and (for timed kinds) that the trial is not too long.
+        """
+        index = self.cues.index
+        cols = [index(c.cue) for c in event.cues]
+        times: list[float] = []
+        amounts: list[float] = []
+        for t, amount in event.outcome_events():
+            times.append(t)
+            amounts.append(amount / reward_unit)
+        if not all(math.isfinite(a) for a in amounts):
+            return self.rows([(c.cue, c.onset, c.offset) for c in event.cues], list(zip(times, amounts)), event.duration)
+        if self.kind == "identity":
+            return self._identity_rows(cols, amounts)
+        onsets = [c.onset for c in event.cues]
+        offsets = [c.offset for c in event.cues]
+        return self._timed_rows(cols, onsets, offsets, times, amounts, event.duration)
 
     def _check_cues(
         self, cues: Sequence[tuple[str, float, float]]
@@ -310,10 +372,16 @@ class Representation:
         return times, amounts
 
 
+def _locked(a: np.ndarray) -> np.ndarray:
+    """A read-only view of a read-only array: its write flag cannot be set back on."""
+    a.setflags(write=False)
+    view = a.view()
+    view.setflags(write=False)
+    return view
+
+
 def _frozen(X: np.ndarray, r: np.ndarray, onset_steps: dict[str, int]) -> TrialRows:
-    X.setflags(write=False)
-    r.setflags(write=False)
-    return TrialRows(X, r, onset_steps)
+    return TrialRows(_locked(X), _locked(r), onset_steps)
 
 
 def make_representation(

@@ -197,11 +197,7 @@ def step(state: SubjectState, event: TrialEvent, rules) -> tuple[SubjectState, D
         quantities[f"value[{cue}]"] = float(mean)
         quantities[f"sd[{cue}]"] = math.sqrt(max(float(var), 0.0))
 
-    rows = rep.rows(
-        [(c.cue, c.onset, c.offset) for c in event.cues],
-        [(t, amount / unit) for t, amount in event.outcome_events()],
-        event.duration,
-    )
+    rows = rep._event_rows(event, unit)
     result = learner.learn_trial(rows.X, rows.r)
     values, errors = np.asarray(result.values), np.asarray(result.errors)
 

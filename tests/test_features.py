@@ -197,6 +197,53 @@ def test_rows_are_read_only_and_event_rows_match():
         rows.X[0, 0] = 5.0
 
 
+@pytest.mark.parametrize("kind", REPRESENTATIONS)
+def test_jittered_times_in_the_same_bins_give_the_same_rows(kind):
+    """Rows depend on times only through their bins: a jittered trial that bins alike gives
+    equal rows (shared, and read-only for good); a trial that bins differently does not."""
+    kw = {"serial_compound": {"n_bins": 3}, "trace": {"decay": 0.7}}.get(kind, {})
+    r = rep(kind, **kw)
+    a = r.rows([("tone_hi", 0.5, 1.5)], [(1.5, 1.0)], duration=2.5)
+    b = r.rows([("tone_hi", 0.51, 1.49)], [(1.52, 1.0)], duration=2.43)
+    np.testing.assert_array_equal(a.X, b.X)
+    np.testing.assert_array_equal(a.r, b.r)
+    assert a.onset_steps == b.onset_steps and a.onset_steps is not b.onset_steps
+    for arr in (b.X, b.r):
+        with pytest.raises(ValueError):
+            arr.setflags(write=True)
+    if kind != "identity":
+        c = r.rows([("tone_hi", 0.75, 1.5)], [(1.5, 1.0)], duration=2.5)
+        assert not np.array_equal(a.X, c.X)
+
+
+def test_the_layout_cache_stays_bounded():
+    """However many distinct layouts a representation sees, it keeps a bounded number."""
+    from rigloop.features import _LAYOUTS_MAX
+
+    r = rep("presence", dt=0.01)
+    for k in range(3 * _LAYOUTS_MAX):
+        r.rows([("tone_hi", 0.0, 0.01 * (k + 1))])
+    assert 0 < len(r._layouts) <= _LAYOUTS_MAX
+    rows = r.rows([("tone_hi", 0.0, 0.05)])
+    assert rows.X[:, 0].tolist() == [1.0] * 5
+
+
+def test_step_rows_match_event_rows():
+    """The rows step builds from a checked event equal event_rows with rewards in units."""
+    event = TrialEvent(
+        subject="m01", rig="box1", session="s1", trial=1,
+        cues=(CuePresentation("light", 0.3, 1.0), CuePresentation("tone_hi", 0.0, 1.0)),
+        outcome=Outcome(reward_ul=4.0, reward_time=1.1), duration=1.5,
+    )  # fmt: skip
+    for kind in REPRESENTATIONS:
+        kw = {"serial_compound": {"n_bins": 3}, "trace": {"decay": 0.7}}.get(kind, {})
+        r = rep(kind, **kw)
+        a = r._event_rows(event, 2.0)
+        b = r.rows([(c.cue, c.onset, c.offset) for c in event.cues], [(1.1, 2.0)], 1.5)
+        assert a.X.tobytes() == b.X.tobytes() and a.r.tobytes() == b.r.tobytes()
+        assert list(a.onset_steps.items()) == list(b.onset_steps.items())
+
+
 # --------------------------------------------------------------------------- properties
 
 cue_times = st.tuples(

@@ -209,3 +209,27 @@ def test_copy_equals_state_round_trip(name):
         np.testing.assert_array_equal(a.state()[key], value)
     a.w[0] += 1.0
     assert learner.w[0] != a.w[0]
+
+
+@pytest.mark.parametrize("name", sorted(LEARNERS))
+def test_copy_shares_no_array_and_learns_identically(name):
+    """copy() builds no new parameters but owns every array; it then learns bit for bit as
+    the original (and as a learner rebuilt with full checks)."""
+    rng = np.random.default_rng(5)
+    params = {"td": {"alpha": [0.1, 0.2, 0.3, 0.4], "gamma": 0.9, "lam": 0.5},
+              "rescorla_wagner": {"alpha": [0.1, 0.2, 0.3, 0.4]}}.get(name, {})
+    learner = make_learner(name, 4, **params)
+    value = learner.kind == "value"
+    X = (rng.random((6, 4)) < 0.5).astype(float)
+    r = np.ones(6) if value else np.ones(1)
+    learner.learn_trial(X if value else X[:1], r)
+    copy, rebuilt = learner.copy(), type(learner).from_state(learner.state())
+    for slot in {s for c in type(learner).__mro__ for s in getattr(c, "__slots__", ())}:
+        mine, theirs = getattr(learner, slot, None), getattr(copy, slot, None)
+        if isinstance(mine, np.ndarray) and mine.size:
+            assert not np.shares_memory(mine, theirs), slot
+    assert copy.params() == learner.params()
+    for other in (copy, rebuilt):
+        a = learner.copy().learn_trial(X if value else X[:1], r)
+        b = other.learn_trial(X if value else X[:1], r)
+        assert a.values.tobytes() == b.values.tobytes() and a.errors.tobytes() == b.errors.tobytes()

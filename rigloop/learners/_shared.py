@@ -103,6 +103,14 @@ def rate(name: str, value: Any, n: int) -> float | np.ndarray:
     return nonnegative(name, value)
 
 
+def rate_copy(value: float | np.ndarray) -> float | np.ndarray:
+    """A checked learning rate for another learner: a float as is, an array copied (read-only)."""
+    if isinstance(value, np.ndarray):
+        value = value.copy()
+        value.setflags(write=False)
+    return value
+
+
 def plain(value: float | np.ndarray) -> float | list[float]:
     """A parameter as plain Python data (float, or list of floats)."""
     return value.tolist() if isinstance(value, np.ndarray) else float(value)
@@ -251,9 +259,14 @@ class Learner:
 
     def __init__(self, n_features: int):
         self._n = count("n_features", n_features)
-        self._shape = (self._n,)
-        self._w = np.zeros(self._n)
-        self._tmp = np.empty(self._n)
+        self._allocate()
+
+    def _allocate(self) -> None:
+        """Fresh arrays for ``_n`` features (weights zero); subclasses add their own."""
+        n = self._n
+        self._shape = (n,)
+        self._w = np.zeros(n)
+        self._tmp = np.empty(n)
 
     @property
     def n_features(self) -> int:
@@ -263,10 +276,19 @@ class Learner:
         """An independent learner in exactly this state, without re-validating it.
 
         ``step`` copies the animal's learner once per trial; this is the cheap path
-        (``from_state(state())`` gives the same result with full checks)."""
-        new = type(self)(self._n, **self.params())
+        (``from_state(state())`` gives the same result with full checks). The copy
+        takes the already checked parameters and fresh arrays of its own, so nothing
+        mutable is shared."""
+        new = object.__new__(type(self))
+        new._n = self._n
+        self._copy_params(new)
+        new._allocate()
         self._copy_into(new)
         return new
+
+    def _copy_params(self, new) -> None:  # pragma: no cover - abstract
+        """Set ``new``'s parameters to this learner's (checked values, not re-checked)."""
+        raise NotImplementedError
 
     def _copy_into(self, new) -> None:
         new._w[...] = self._w

@@ -67,18 +67,26 @@ class _Gaussian(Learner):
         self._c = sh.nonnegative("prior_var", prior_var)
         # scalars that enter ufuncs as 0-d arrays: a Python float costs more per call
         self._tau2_0d = np.array(self._tau2)
+        self._diag[...] = self._c
+
+    def _allocate(self) -> None:
         n = self._n
+        self._shape = (n,)
+        self._tmp = np.empty(n)
         self._A = np.zeros((n + 1, n))
         self._P = self._A[:n]
         self._w = self._A[n]
         # the diagonal of Σ as a strided view of the flat buffer: Σ + τ²I without building I
         self._diag = self._A.reshape(-1)[: n * n : n + 1]
-        self._diag[...] = self._c
         self._q = np.empty(n + 1)
         self._u = self._q[:n]
         self._q_col = self._q.reshape(n + 1, 1)
         self._u_row = self._u.reshape(1, n)
         self._M = np.empty((n + 1, n))
+
+    def _copy_params(self, new) -> None:
+        new._tau2, new._noise, new._c = self._tau2, self._noise, self._c
+        new._tau2_0d = np.array(self._tau2)
 
     @property
     def diffusion(self) -> float:

@@ -48,9 +48,17 @@ class KalmanTD(_Gaussian):
         super().__init__(n_features, diffusion, noise, prior_var)
         self._gamma = sh.unit("gamma", gamma)
         self._gamma_0d = np.array(self._gamma)  # a 0-d array costs less per ufunc call
+
+    def _allocate(self) -> None:
+        super()._allocate()
         self._h = np.empty(self._n)
         self._zero = np.zeros(self._n)
         self._zero.setflags(write=False)
+
+    def _copy_params(self, new) -> None:
+        super()._copy_params(new)
+        new._gamma = self._gamma
+        new._gamma_0d = np.array(self._gamma)
 
     @property
     def gamma(self) -> float:

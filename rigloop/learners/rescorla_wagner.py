@@ -35,6 +35,9 @@ class RescorlaWagner(Learner):
         self._alpha = sh.rate("alpha", alpha, self._n)
         self._scalar = not isinstance(self._alpha, np.ndarray)
 
+    def _copy_params(self, new) -> None:
+        new._alpha, new._scalar = sh.rate_copy(self._alpha), self._scalar
+
     @property
     def alpha(self) -> float | np.ndarray:
         return self._alpha

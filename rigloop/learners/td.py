@@ -39,9 +39,16 @@ class TD(Learner):
         self._gamma = sh.unit("gamma", gamma)
         self._lam = sh.unit("lam", lam)
         self._gl = self._gamma * self._lam
+
+    def _allocate(self) -> None:
+        super()._allocate()
         self._z = np.zeros(self._n)
         self._zero = np.zeros(self._n)
         self._zero.setflags(write=False)
+
+    def _copy_params(self, new) -> None:
+        new._alpha, new._scalar = sh.rate_copy(self._alpha), self._scalar
+        new._gamma, new._lam, new._gl = self._gamma, self._lam, self._gl
 
     @property
     def alpha(self) -> float | np.ndarray:

@@ -15,6 +15,7 @@ Pure: standard library and numpy only (Phi and its inverse from ``statistics.Nor
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
@@ -34,9 +35,10 @@ _NEWTON_TOL = 1e-12
 
 
 def _number(name: str, value: Any) -> float:
-    if isinstance(value, bool) or not isinstance(value, int | float | np.integer | np.floating):
-        raise BadArgument(name, "a finite number", value)
-    value = float(value)
+    if type(value) is not float:  # a float, the common case, needs only the finiteness test
+        if isinstance(value, bool) or not isinstance(value, int | float | np.integer | np.floating):
+            raise BadArgument(name, "a finite number", value)
+        value = float(value)
     if not math.isfinite(value):
         raise BadArgument(name, "a finite number", value)
     return value
@@ -57,12 +59,16 @@ def _positive(name: str, value: Any) -> float:
 
 
 def _count(name: str, value: Any) -> int:
+    if type(value) is int and value >= 0:
+        return value
     if isinstance(value, bool) or not isinstance(value, int | np.integer) or value < 0:
         raise BadArgument(name, "a whole number >= 0", value)
     return int(value)
 
 
 def _binary(name: str, value: Any) -> int:
+    if value is True or value is False:
+        return int(value)
     if isinstance(value, bool | np.bool_):
         return int(value)
     if isinstance(value, int | np.integer) and value in (0, 1):
@@ -82,8 +88,16 @@ def _logit(p: float) -> float:
     return math.log(p / (1.0 - p))
 
 
+@functools.lru_cache(maxsize=64)
 def _z_two_sided(level: float) -> float:
+    # Phi^-1((1 + level)/2); a rule file uses a level or two, so each is computed once
     return _NORMAL.inv_cdf(0.5 + level / 2.0)
+
+
+@functools.lru_cache(maxsize=64)
+def _z_one_sided(level: float) -> float:
+    # Phi^-1(level)
+    return _NORMAL.inv_cdf(level)
 
 
 # --------------------------------------------------------------------------- filter step
@@ -124,6 +138,9 @@ def _filter_step(
 
 
 # --------------------------------------------------------------------------- learning curve
+
+
+_CURVE_KEYS = frozenset({"chance", "sigma2", "var0", "x", "var", "n"})
 
 
 class LearningCurve:
@@ -181,7 +198,7 @@ class LearningCurve:
         """Lower credible bound of p. One-sided: z = Phi^-1(level) (1.645 at 0.95);
         two-sided: the lower end of :meth:`interval` (z = 1.960 at 0.95)."""
         level = _open_unit("level", level)
-        z = _NORMAL.inv_cdf(level) if one_sided else _z_two_sided(level)
+        z = _z_one_sided(level) if one_sided else _z_two_sided(level)
         return _logistic(self.mu + self.x - z * self.sd)
 
     def prob_above_chance(self) -> float:
@@ -201,7 +218,7 @@ class LearningCurve:
 
     @classmethod
     def from_state(cls, d: Mapping[str, Any]) -> LearningCurve:
-        keys = {"chance", "sigma2", "var0", "x", "var", "n"}
+        keys = _CURVE_KEYS
         if not isinstance(d, Mapping) or set(d) != keys:
             got = sorted(d) if isinstance(d, Mapping) else d
             raise BadArgument("state", f"a map with keys {', '.join(sorted(keys))}", got)

@@ -378,3 +378,31 @@ def test_smoother_never_less_certain_than_the_filter(ys, chance, sigma2):
     assert (s.lo <= s.p).all() and (s.p <= s.hi).all()
     assert np.isfinite(s.x).all()
     assert ((0 <= s.prob_above_chance) & (s.prob_above_chance <= 1)).all()
+
+
+@pytest.mark.parametrize(
+    "key, value, argument",
+    [("x", float("nan"), "state.x"), ("var", 0.0, "state.var"), ("var", -1.0, "state.var"),
+     ("n", -1, "state.n"), ("n", 1.0, "state.n"), ("n", True, "state.n"), ("x", "1", "state.x"),
+     ("x", True, "state.x"), ("chance", 1.0, "chance"), ("sigma2", float("inf"), "sigma2")],
+)
+def test_curve_state_checks_name_the_bad_entry(key, value, argument):
+    """from_state checks every entry, whatever its type (fast path for plain floats included)."""
+    state = {**LearningCurve(0.5, 0.05).state(), key: value}
+    with pytest.raises(BadArgument) as info:
+        LearningCurve.from_state(state)
+    assert info.value.argument == argument
+
+
+def test_credible_levels_give_the_normal_quantiles():
+    """The cached quantiles are Phi^-1 of the level (one-sided) and of (1 + level)/2."""
+    from statistics import NormalDist
+
+    from rigloop.performance import _logistic
+
+    c = LearningCurve(0.5, 0.05)
+    c.update(True)
+    for level in (0.5, 0.9, 0.95, 0.99, 0.95):
+        z1, z2 = NormalDist().inv_cdf(level), NormalDist().inv_cdf(0.5 + level / 2.0)
+        assert c.lower(level) == _logistic(c.mu + c.x - z1 * c.sd)
+        assert c.interval(level) == (_logistic(c.mu + c.x - z2 * c.sd), _logistic(c.mu + c.x + z2 * c.sd))

@@ -175,6 +175,8 @@ class Representation:
     decay: float | None = None
     # binned layout -> (X, r, onset steps); see _timed_rows
     _layouts: dict = field(default_factory=dict, init=False, repr=False, compare=False, hash=False)
+    # cue -> its read-only onset row; see _onset
+    _onsets: dict = field(default_factory=dict, init=False, repr=False, compare=False, hash=False)
 
     @property
     def timed(self) -> bool:
@@ -202,6 +204,13 @@ class Representation:
         i = self.cues.index(cue)
         x = np.zeros(self.n_features)
         x[i * self.n_bins if self.kind == "serial_compound" else i] = 1.0
+        return x
+
+    def _onset(self, cue: str) -> np.ndarray:
+        """:meth:`onset_row` as a shared read-only array (one per cue), for the hot path."""
+        x = self._onsets.get(cue)
+        if x is None:
+            x = self._onsets[cue] = _locked(self.onset_row(cue))
         return x
 
     # -- trial -> rows ---------------------------------------------------------

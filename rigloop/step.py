@@ -98,10 +98,17 @@ class _LazyTrialRng:
         return getattr(self._generator(), name)
 
 
-def _decide(state: SubjectState, rules, learner, curves, schedule, next_trial: int, extra_warnings=()):
-    ctx = state.context
-    rep = representation_for(rules)
-    view = ModelView(learner, rep, curves, rules.performance.chance, rules.performance.sigma2)
+def _decide(subject: str, ctx: SessionContext, rules, rep, learner, curves, schedule, next_trial: int,
+            extra_warnings=(), fresh_curves=None):
+    """The rules' decision about ``next_trial``, as a Decision (valve time included).
+
+    ``fresh_curves`` are LearningCurve objects this step already holds for some
+    conditions (equal to ``curves``' entries), so the view need not rebuild them.
+    """
+    perf = rules.performance
+    view = ModelView(learner, rep, curves, perf.chance, perf.sigma2)
+    if fresh_curves:
+        view._hold_curves(fresh_curves)
     schedule, plan = rules.decide(schedule, view, next_trial, _LazyTrialRng(ctx.seed, next_trial))
     kwargs = plan.as_kwargs()
     if extra_warnings:
@@ -110,7 +117,7 @@ def _decide(state: SubjectState, rules, learner, curves, schedule, next_trial: i
     if ctx.valve is not None and kwargs["reward_ul"] > 0:
         slope, offset = ctx.valve
         valve_ms = max(0.0, slope * kwargs["reward_ul"] + offset)
-    decision = Decision(subject=state.subject, session=ctx.session, trial=next_trial, valve_ms=valve_ms, **kwargs)
+    decision = Decision(subject=subject, session=ctx.session, trial=next_trial, valve_ms=valve_ms, **kwargs)
     return schedule, decision
 
 
@@ -145,7 +152,8 @@ def begin_session(
     ctx = SessionContext(session=session, rig=rig, seed=int(seed), rules_sha256=rules.sha256, valve=valve)
     schedule = rules.open_session(state.schedule, session, float(wall_time))
     state = replace(state, learner=learner, learner_key=key, curves=curves, context=ctx, last_trial=0)
-    schedule, decision = _decide(state, rules, learner, curves, schedule, 1, warnings)
+    schedule, decision = _decide(state.subject, ctx, rules, representation_for(rules), learner, curves, schedule, 1,
+                                 warnings)
     state = replace(state, schedule=schedule, context=replace(ctx, first_decision=decision.to_dict()))
     return state, decision
 
@@ -188,18 +196,18 @@ def step(state: SubjectState, event: TrialEvent, rules) -> tuple[SubjectState, D
 
     rep = representation_for(rules)
     learner = state.learner_copy()
-    unit = rules.reward_unit_ul
+    cue_ids = event.cue_ids
 
     # value and sd of each presented cue at its onset, before this trial's learning
     quantities: dict[str, float | None] = {}
-    for cue in event.cue_ids:
-        mean, var = learner.predict(rep.onset_row(cue))
+    for cue in cue_ids:
+        mean, var = learner._predict(rep._onset(cue))
         quantities[f"value[{cue}]"] = float(mean)
         quantities[f"sd[{cue}]"] = math.sqrt(max(float(var), 0.0))
 
-    rows = rep._event_rows(event, unit)
-    result = learner.learn_trial(rows.X, rows.r)
-    values, errors = np.asarray(result.values), np.asarray(result.errors)
+    rows = rep._event_rows(event, rules.reward_unit_ul)
+    result = learner._learn(rows.X, rows.r)
+    values, errors = result.values, result.errors
 
     if rep.timed:
         first = event.cues[0].cue if event.cues else None
@@ -216,28 +224,33 @@ def step(state: SubjectState, event: TrialEvent, rules) -> tuple[SubjectState, D
         quantities["delta_cue"] = float(values[0]) if len(values) else None
         quantities["delta_outcome"] = float(errors[0]) if len(errors) else None
     if result.variances is not None:
-        sd = np.sqrt(np.maximum(np.asarray(result.variances), 0.0) + float(getattr(learner, "noise", 0.0)))
+        sd = np.sqrt(np.maximum(result.variances, 0.0) + float(getattr(learner, "noise", 0.0)))
         quantities["surprise"] = float(np.max(np.abs(errors) / np.where(sd > 0, sd, 1.0))) if len(errors) else None
 
     # learning curves: every presented cue and the pooled condition
     scored = _scored(event)
     curves = dict(state.curves)
+    fresh: dict[str, LearningCurve] = {}
     if scored is not None:
         chance, sigma2 = rules.performance.chance, rules.performance.sigma2
-        for cond in (ALL, *event.cue_ids):
+        for cond in (ALL, *cue_ids):
             curve = state.curve(cond, chance, sigma2)
             curve.update(scored)
             curves[cond] = curve.state()
-    all_curve = curves.get(ALL)
+            fresh[cond] = curve
+    all_curve = fresh.get(ALL)
+    if all_curve is None and curves.get(ALL) is not None:
+        all_curve = LearningCurve.from_state(curves[ALL])
     if all_curve is not None:
-        c = LearningCurve.from_state(all_curve)
-        lo, hi = c.interval(0.95)
-        quantities.update({"p_correct": float(c.p()), "p_lo95": float(lo), "p_hi95": float(hi)})
+        lo, hi = all_curve.interval(0.95)
+        quantities.update({"p_correct": float(all_curve.p()), "p_lo95": float(lo), "p_hi95": float(hi)})
 
     schedule = rules.observe(state.schedule, event)
-    next_state = replace(state, learner=learner, curves=curves, schedule=schedule,
-                         last_trial=event.trial, trials_total=state.trials_total + 1)
-    schedule, decision = _decide(next_state, rules, learner, curves, schedule, event.trial + 1)
-    next_state = replace(next_state, schedule=schedule)
+    schedule, decision = _decide(state.subject, ctx, rules, rep, learner, curves, schedule, event.trial + 1,
+                                 fresh_curves=fresh)
+    next_state = SubjectState(
+        subject=state.subject, learner=learner, learner_key=state.learner_key, curves=curves, schedule=schedule,
+        context=ctx, last_trial=event.trial, trials_total=state.trials_total + 1, notes=state.notes,
+    )
     update = Update(state.subject, ctx.session, event.trial, quantities, values, errors)
     return next_state, decision, update

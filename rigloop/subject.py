@@ -236,11 +236,16 @@ class ModelView:
         self._sigma2 = sigma2
         self._cache: dict[tuple, Any] = {}
 
+    def _hold_curves(self, curves: Mapping[str, LearningCurve]) -> None:
+        """Use these curves (equal to the ones their states give) instead of rebuilding them."""
+        for cond, curve in curves.items():
+            self._cache[("c", cond)] = curve
+
     def _value(self, cue: str) -> tuple[float, float]:
         key = ("v", cue)
         hit = self._cache.get(key)
         if hit is None:
-            mean, var = self._learner.predict(self._rep.onset_row(cue))
+            mean, var = self._learner._predict(self._rep._onset(cue))
             hit = (float(mean), math.sqrt(max(float(var), 0.0)))
             self._cache[key] = hit
         return hit

@@ -180,6 +180,20 @@ def test_onset_row_equals_the_row_of_a_lone_cue_at_onset(kind):
     assert r.onset_row("tone_lo").sum() == 1.0
 
 
+@pytest.mark.parametrize("kind", REPRESENTATIONS)
+def test_shared_onset_rows_equal_onset_row_and_stay_read_only(kind):
+    kw = {"serial_compound": {"n_bins": 3}, "trace": {"decay": 0.7}}.get(kind, {})
+    r = rep(kind, **kw)
+    for cue in CUES:
+        x = r._onset(cue)
+        assert x is r._onset(cue)
+        np.testing.assert_array_equal(x, r.onset_row(cue))
+        with pytest.raises(ValueError):
+            x.setflags(write=True)
+    with pytest.raises(BadArgument, match="'cue' must be one of"):
+        r._onset("noise")
+
+
 def test_rows_are_read_only_and_event_rows_match():
     """TrialRows is frozen through and through; a TrialEvent gives the same rows as its parts."""
     event = TrialEvent(

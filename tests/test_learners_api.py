@@ -233,3 +233,21 @@ def test_copy_shares_no_array_and_learns_identically(name):
         a = learner.copy().learn_trial(X if value else X[:1], r)
         b = other.learn_trial(X if value else X[:1], r)
         assert a.values.tobytes() == b.values.tobytes() and a.errors.tobytes() == b.errors.tobytes()
+
+
+@pytest.mark.parametrize("name", sorted(LEARNERS))
+def test_unchecked_paths_equal_the_checked_ones(name):
+    """_predict and _learn (step's paths for rows it built itself) give what predict and
+    learn_trial give, bit for bit."""
+    rng = np.random.default_rng(8)
+    a = make_learner(name, 4)
+    value = a.kind == "value"
+    X = (rng.random((5, 4)) < 0.5).astype(float)
+    X, r = (X, rng.random(5)) if value else (X[:1], rng.random(1))
+    b = a.copy()
+    ra, rb = a.learn_trial(X, r), b._learn(X, r)
+    for x, y in ((ra.values, rb.values), (ra.errors, rb.errors), (ra.variances, rb.variances)):
+        assert (x is None and y is None) or x.tobytes() == y.tobytes()
+    assert a.w.tobytes() == b.w.tobytes()
+    for x in X:
+        assert a.predict(x) == b._predict(x)

@@ -310,7 +310,10 @@ class Learner:
 
     def predict(self, x: Any) -> tuple[float, float]:
         """(mean, variance) of xᵀw for a row x of shape (n,); variance 0.0 for point learners."""
-        x = row("x", x, self._n)
+        return self._predict(row("x", x, self._n))
+
+    def _predict(self, x: np.ndarray) -> tuple[float, float]:
+        """:meth:`predict` of a row already known to be a finite float64 (n,) array."""
         return float(x @ self._w), 0.0
 
     def params(self) -> dict[str, Any]:  # pragma: no cover - abstract

@@ -111,7 +111,10 @@ class _Gaussian(Learner):
 
     def predict(self, x: Any) -> tuple[float, float]:
         """(xᵀŵ, xᵀΣx) for a row x of shape (n,): the belief about its value now."""
-        x = sh.row("x", x, self._n)
+        return self._predict(sh.row("x", x, self._n))
+
+    def _predict(self, x: np.ndarray) -> tuple[float, float]:
+        # (xᵀŵ, xᵀΣx)
         return float(x @ self._w), float(x @ (self._P @ x))
 
     def _observe(self, h: np.ndarray, r: float) -> float:
@@ -202,7 +205,10 @@ class KalmanFilter(_Gaussian):
     def learn_trial(self, X: Any, r: Any) -> TrialResult:
         """One update per row: X (k, n) rows (usually k = 1, the trial's compound), r (k,)."""
         X = sh.rows("X", X, self._n)
-        r = sh.vector("r", r, X.shape[0])
+        return self._learn(X, sh.vector("r", r, X.shape[0]))
+
+    def _learn(self, X: np.ndarray, r: np.ndarray) -> TrialResult:
+        """:meth:`learn_trial` of rows already checked (finite float64, C-contiguous)."""
         k = X.shape[0]
         values, errors, variances = np.empty(k), np.empty(k), np.empty(k)
         for t in range(k):

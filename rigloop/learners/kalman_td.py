@@ -92,7 +92,10 @@ class KalmanTD(_Gaussian):
         """One trial: X (T, n) successive time-step rows, r (T,) with r[t] received on the
         step from row t to row t+1; the row after the last is terminal (all zero)."""
         X = sh.rows("X", X, self._n)
-        r = sh.vector("r", r, X.shape[0])
+        return self._learn(X, sh.vector("r", r, X.shape[0]))
+
+    def _learn(self, X: np.ndarray, r: np.ndarray) -> TrialResult:
+        """:meth:`learn_trial` of rows already checked (finite float64, C-contiguous)."""
         T = X.shape[0]
         values, errors, variances = np.empty(T), np.empty(T), np.empty(T)
         h = self._h

@@ -67,7 +67,10 @@ class RescorlaWagner(Learner):
     def learn_trial(self, X: Any, r: Any) -> TrialResult:
         """One update per row: X (k, n) rows (usually k = 1, the trial's compound), r (k,)."""
         X = sh.rows("X", X, self._n)
-        r = sh.vector("r", r, X.shape[0])
+        return self._learn(X, sh.vector("r", r, X.shape[0]))
+
+    def _learn(self, X: np.ndarray, r: np.ndarray) -> TrialResult:
+        """:meth:`learn_trial` of rows already checked (finite float64, C-contiguous)."""
         values = np.empty(X.shape[0])
         errors = np.empty(X.shape[0])
         for t in range(X.shape[0]):

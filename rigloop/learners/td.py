@@ -108,7 +108,10 @@ class TD(Learner):
         step from row t to row t+1; the row after the last is terminal (all zero).
         The trace resets first."""
         X = sh.rows("X", X, self._n)
-        r = sh.vector("r", r, X.shape[0])
+        return self._learn(X, sh.vector("r", r, X.shape[0]))
+
+    def _learn(self, X: np.ndarray, r: np.ndarray) -> TrialResult:
+        """:meth:`learn_trial` of rows already checked (finite float64, C-contiguous)."""
         self.reset_trace()
         T = X.shape[0]
         values, errors = np.empty(T), np.empty(T)

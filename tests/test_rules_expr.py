@@ -2,6 +2,7 @@
 
 import builtins
 import math
+import zlib
 
 import pytest
 from hypothesis import HealthCheck, given, settings
@@ -236,3 +237,65 @@ def test_fuzz_well_formed_expressions_evaluate(a, op, b):
         return
     value, seen = X.evaluate(e, ProbeEnv())
     assert isinstance(value, bool) and seen
+
+
+class _VariedEnv(X.Env):
+    """Different numbers per name and call (NaN and inf among them); records its calls."""
+
+    VALUES = (0.0, 3.0, -1.5, math.nan, math.inf, 0.75, 40.0)
+
+    def __init__(self, seed):
+        self.seed, self.calls = seed, []
+
+    def _pick(self, key):
+        return self.VALUES[(zlib.crc32(repr(key).encode()) + self.seed) % len(self.VALUES)]
+
+    def name(self, name):
+        self.calls.append(name)
+        return self.seed % 2 == 0 if X.NAMES[name].type == X.BOOL else self._pick(name)
+
+    def call(self, func, args):
+        self.calls.append((func, tuple(args)))
+        return self._pick((func, tuple(args)))
+
+
+_conds = st.recursive(
+    st.one_of(
+        st.tuples(_num_leaf, st.sampled_from([">", "<=", "==", "!="]), st.sampled_from(["0.5", "-2"])).map(" ".join),
+        st.tuples(_nums, st.sampled_from([">", ">=", "<", "<=", "==", "!="]), _nums).map(" ".join),
+        st.tuples(_nums, st.sampled_from(["<", "<="]), _nums, st.sampled_from(["<", "<="]), _nums).map(" ".join),
+        st.sampled_from(["sprt_accept", "not sprt_reject", "true", "sprt_accept == false"]),
+    ),
+    lambda c: st.one_of(
+        st.tuples(c, st.sampled_from(["and", "or"]), c).map(lambda t: f"({t[0]} {t[1]} {t[2]})"),
+        c.map(lambda x: f"not ({x})"),
+    ),
+    max_leaves=4,
+)
+
+
+def _outcome(run):
+    try:
+        return run()
+    except Exception as err:  # compare what is raised, too
+        return (type(err), str(err))
+
+
+@pytest.mark.filterwarnings("ignore::hypothesis.errors.HypothesisWarning")  # the strategy's long repr
+@settings(max_examples=300, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(_conds)
+def test_compiled_evaluation_equals_the_interpreter(text):
+    """The compiled test of a criterion makes the same env calls in the same order and gives
+    the same value (type included) as the interpreter that explains it."""
+    if len(text) > X.MAX_LENGTH:
+        return
+    try:
+        e = X.parse(text, X.Context(("tone_hi",), cue_var=True))
+    except X.ExprError:
+        return
+    for seed in range(2 * len(_VariedEnv.VALUES)):
+        a, b = _VariedEnv(seed), _VariedEnv(seed)
+        fast = _outcome(lambda: X.evaluate(e, a, explain=False)[0])
+        slow = _outcome(lambda: X._Eval(e, b, None).run(e.tree))
+        assert type(fast) is type(slow) and (fast == slow or (fast != fast and slow != slow)), seed
+        assert a.calls == b.calls

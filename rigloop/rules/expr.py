@@ -4,7 +4,9 @@ A criterion such as ``p_value_above(tone_hi, 0.6) >= 0.95 and trials_in_block >=
 is parsed by :func:`ast.parse` (mode ``eval``) only as a tokeniser; the Python tree is
 walked once, every node is checked against a whitelist and converted into this
 module's own small node types, and the result is type-checked against a fixed table
-of names and functions. Evaluation is a tiny interpreter over that checked tree.
+of names and functions. Evaluation is a tiny interpreter over that checked tree; the
+unexplained test of a criterion, run on every trial, uses the same tree turned once
+into nested Python closures (still no eval/exec).
 
 Grammar (Python syntax, a strict subset):
   numbers, ``true``/``false``, ``+ - * / %``, ``**`` with a constant exponent,
@@ -573,10 +575,10 @@ def evaluate(expr: Expr, env: Env, *, explain: bool = True) -> tuple[float | boo
     every trial but needs the words only for the one that fires, and evaluation is pure,
     so it evaluates that one again to explain it.
     """
-    seen: list[str] | None = [] if explain else None
+    if not explain:
+        return _evaluator(expr)(env), []
+    seen: list[str] = []
     value = _Eval(expr, env, seen).run(expr.tree)
-    if seen is None:
-        return value, []
     if not seen and expr.type == BOOL:
         seen.append(f"{expr.text} = {fmt(value)}")
     return value, seen
@@ -655,6 +657,126 @@ class _Eval:
             phrase += f" {op} {part}"
         self.seen.append(phrase)
         return result
+
+
+# --------------------------------------------------------------------------- compiled evaluation
+#
+# Criteria are tested on every trial and explained only when one holds. For the test,
+# each checked tree is turned once into nested closures (plain Python functions, no
+# eval) that make the same env calls in the same order and return the same values as
+# _Eval without phrases; _Eval stays the one path that explains.
+
+_COMPILED: dict[int, tuple[Expr, Callable]] = {}  # id(expr) -> (expr, its evaluator)
+_COMPILED_MAX = 1024
+
+
+def _evaluator(expr: Expr) -> Callable[[Env], float | bool]:
+    """The compiled form of ``expr``, made on first use and kept (bounded, by identity)."""
+    hit = _COMPILED.get(id(expr))
+    if hit is not None and hit[0] is expr:
+        return hit[1]
+    run = _compile(expr.tree)
+    if len(_COMPILED) >= _COMPILED_MAX:
+        _COMPILED.clear()
+    _COMPILED[id(expr)] = (expr, run)  # holding expr keeps its id from being reused
+    return run
+
+
+def _compile(n: Node) -> Callable[[Env], float | bool]:
+    """A function of the env that gives what ``_Eval.run(n)`` gives without phrases."""
+    if isinstance(n, Const):
+        value = n.value
+        return lambda env: value
+    if isinstance(n, Name):
+        name = n.name
+        return lambda env: env.name(name)
+    if isinstance(n, Call):
+        return _compile_call(n)
+    if isinstance(n, Unary):
+        operand = _compile(n.operand)
+        if n.op == "not":
+            return lambda env: not operand(env)
+        if n.op == "-":
+            return lambda env: -operand(env)
+        return lambda env: +operand(env)
+    if isinstance(n, Binary):
+        left, right, op = _compile(n.left), _compile(n.right), n.op
+        return lambda env: _arith(op, float(left(env)), float(right(env)))
+    if isinstance(n, BoolOp):
+        return _compile_boolop(n)
+    if isinstance(n, Compare):
+        return _compile_compare(n)
+    raise TypeError(f"not a checked node: {n!r}")  # pragma: no cover - the checker forbids it
+
+
+def _compile_call(n: Call) -> Callable[[Env], float]:
+    # arguments: a cue id as is, anything else as a float, left to right
+    parts = tuple((a.cue, None) if isinstance(a, CueRef) else (None, _compile(a)) for a in n.args)
+    func = n.func
+
+    def args_of(env) -> list:
+        return [cue if run is None else float(run(env)) for cue, run in parts]
+
+    if func == "min":
+        return lambda env: min(args_of(env))
+    if func == "max":
+        return lambda env: max(args_of(env))
+    if func == "abs":
+        return lambda env: abs(args_of(env)[0])
+    return lambda env: float(env.call(func, args_of(env)))
+
+
+def _compile_boolop(n: BoolOp) -> Callable[[Env], bool]:
+    parts = tuple(_compile(v) for v in n.values)
+    if n.op == "and":
+
+        def all_hold(env) -> bool:
+            for run in parts:
+                if not run(env):
+                    return False
+            return True
+
+        return all_hold
+
+    def any_holds(env) -> bool:
+        for run in parts:
+            if run(env):
+                return True
+        return False
+
+    return any_holds
+
+
+def _compile_compare(n: Compare) -> Callable[[Env], bool]:
+    if len(n.ops) == 1:
+        # every operand is evaluated, then compared; NaN on either side is false
+        left, right, compare = _compile(n.operands[0]), n.operands[1], _COMPARE[n.ops[0]]
+        if isinstance(right, Const):
+            b = right.value  # a checked constant: finite
+
+            def compare_const(env) -> bool:
+                a = left(env)
+                if isinstance(a, float) and math.isnan(a):
+                    return False
+                return bool(compare(a, b))
+
+            return compare_const
+        right_run = _compile(right)
+
+        def compare_two(env) -> bool:
+            a, b = left(env), right_run(env)
+            if isinstance(a, float) and math.isnan(a) or isinstance(b, float) and math.isnan(b):
+                return False
+            return bool(compare(a, b))
+
+        return compare_two
+    runs, ops = tuple(_compile(o) for o in n.operands), n.ops
+
+    def compare_chain(env) -> bool:
+        values = [run(env) for run in runs]
+        return all(_cmp(op, values[i], values[i + 1]) for i, op in enumerate(ops))
+
+    return compare_chain
 
 
 def _arith(op: str, a: float, b: float) -> float:

@@ -98,20 +98,28 @@ class KalmanTD(_Gaussian):
         """:meth:`learn_trial` of rows already checked (finite float64, C-contiguous)."""
         T = X.shape[0]
         values, errors, variances = np.empty(T), np.empty(T), np.empty(T)
-        h = self._h
+        # h_t = x_t − γx_{t+1} for all rows in two calls (x_T = 0, the terminal row); each
+        # entry is the same product and difference as row by row
+        H = np.empty_like(X)
+        np.multiply(X[1:], self._gamma_0d, H[:-1])
+        H[T - 1 :] = 0.0
+        np.subtract(X, H, H)
+        represented = X.any(axis=1).tolist()
+        rewards = r.tolist()
+        w, h, tmp, P = self._w, self._h, self._tmp, self._P
         for t in range(T):
             x = X[t]
-            x_next = X[t + 1] if t + 1 < T else self._zero
-            values[t] = float(x @ self._w)
-            variances[t] = self._variance(x)
-            if not x.any():
+            values[t] = x @ w
+            # xᵀΣx
+            np.dot(P, x, out=tmp)
+            variances[t] = x @ tmp
+            if not represented[t]:
                 # featureless state: report the error, learn nothing (see module docstring)
-                errors[t] = float(r[t]) + self._gamma * float(x_next @ self._w)
+                x_next = X[t + 1] if t + 1 < T else self._zero
+                errors[t] = rewards[t] + self._gamma * float(x_next @ w)
                 continue
-            # h = x − γx'
-            np.multiply(x_next, self._gamma_0d, h)
-            np.subtract(x, h, h)
-            errors[t] = delta = self._observe(h, float(r[t]))
+            h[...] = H[t]
+            errors[t] = delta = self._observe(h, rewards[t])
             if delta != delta:
                 raise sh.nonfinite([("X", X), ("r", r)])
         return TrialResult(values, errors, variances)

@@ -176,6 +176,27 @@ def _delta_at(errors: np.ndarray, step: int) -> float:
     return float(errors[min(max(step, 0), len(errors) - 1)])
 
 
+def _surprise(errors: np.ndarray, variances: np.ndarray, noise: float) -> float | None:
+    """The largest |δ_t| / sd_t of a trial, sd_t = sqrt(max(var_t, 0) + noise) (1 where that
+    is not > 0); None without time steps.
+
+    A loop over Python floats: a trial has a handful of time steps, where numpy's cost
+    per call exceeds the arithmetic. Each term is computed as the array form computes
+    it; only a NaN result (an infinite variance) is left to the array form, whose
+    reduction decides which NaN comes out.
+    """
+    best = None
+    for delta, var in zip(errors.tolist(), variances.tolist(), strict=True):
+        sd = math.sqrt(max(var, 0.0) + noise)
+        q = abs(delta) / (sd if sd > 0 else 1.0)
+        if best is None or q > best or q != q:
+            best = q
+    if best is not None and best != best:
+        sd = np.sqrt(np.maximum(variances, 0.0) + noise)
+        best = float(np.max(np.abs(errors) / np.where(sd > 0, sd, 1.0)))
+    return best
+
+
 def step(state: SubjectState, event: TrialEvent, rules) -> tuple[SubjectState, Decision, Update]:
     """Fold one finished trial into the state and decide the next trial.
 
@@ -224,8 +245,7 @@ def step(state: SubjectState, event: TrialEvent, rules) -> tuple[SubjectState, D
         quantities["delta_cue"] = float(values[0]) if len(values) else None
         quantities["delta_outcome"] = float(errors[0]) if len(errors) else None
     if result.variances is not None:
-        sd = np.sqrt(np.maximum(result.variances, 0.0) + float(getattr(learner, "noise", 0.0)))
-        quantities["surprise"] = float(np.max(np.abs(errors) / np.where(sd > 0, sd, 1.0))) if len(errors) else None
+        quantities["surprise"] = _surprise(errors, result.variances, float(getattr(learner, "noise", 0.0)))
 
     # learning curves: every presented cue and the pooled condition
     scored = _scored(event)

@@ -116,3 +116,26 @@ def test_changing_learner_between_sessions_starts_model_afresh(rules, run):
     state2, first = begin_session(state, other, session="s2", rig="box1", wall_time=1.9e9)
     assert any("starts from its prior" in w for w in first.warnings)
     assert state2.learner.name == other.learner.name
+
+
+def test_surprise_equals_its_array_form():
+    """max |δ| / sd over a trial, with sd = sqrt(max(var, 0) + noise) (1 where not > 0),
+    matches the numpy expression bit for bit, odd values included."""
+    import numpy as np
+
+    from rigloop.step import _surprise
+
+    def array_form(errors, variances, noise):
+        sd = np.sqrt(np.maximum(variances, 0.0) + noise)
+        return float(np.max(np.abs(errors) / np.where(sd > 0, sd, 1.0))) if len(errors) else None
+
+    rng = np.random.default_rng(1)
+    odd = [0.0, -0.0, 1.0, -1.0, np.inf, 1e-300, 1e300, 0.3]
+    with np.errstate(all="ignore"):
+        for _ in range(2000):
+            T = int(rng.integers(0, 7))
+            errors = rng.choice(odd + list(rng.normal(size=3)), size=T)
+            variances = rng.choice(odd + [-np.inf, np.nan] + list(rng.normal(size=3)), size=T)
+            noise = float(rng.choice([0.0, 0.2]))
+            a, b = array_form(errors, variances, noise), _surprise(errors, variances, noise)
+            assert (a is None and b is None) or np.float64(a).tobytes() == np.float64(b).tobytes()

@@ -248,7 +248,8 @@ def decide(spec: Spec, sched: ScheduleState, view, next_trial: int,
     """The next trial's plan, and the schedule after any block/stage move it made."""
     reasons: list[str] = []
     warnings: list[str] = list(sched.notes)
-    sched = sched.evolve(notes=())
+    if sched.notes:
+        sched = sched.evolve(notes=())
     if sched.stage not in spec.stages or sched.block not in spec.stages[sched.stage].blocks:
         warnings.append(f"stage/block '{sched.stage}'/'{sched.block}' not in the rule file; starting over")
         sched = enter_stage(spec, sched, spec.first_stage, sessions=max(1, sched.sessions_in_stage))
@@ -257,9 +258,9 @@ def decide(spec: Spec, sched: ScheduleState, view, next_trial: int,
                            reasons=("session already ended",), warnings=tuple(warnings))
 
     end = False
+    env = ScheduleEnv(sched, view, spec.stages[sched.stage].blocks[sched.block])
     for crit in spec.session_end:
-        block = spec.stages[sched.stage].blocks[sched.block]
-        hit, seen = explain_if(crit.when, ScheduleEnv(sched, view, block))
+        hit, seen = explain_if(crit.when, env)
         if hit:
             end = True
             reasons.append(f"session ends ({crit.name}): {'; '.join(seen)}")
@@ -279,11 +280,10 @@ def decide(spec: Spec, sched: ScheduleState, view, next_trial: int,
         reasons.append(why_p)
         warnings.extend(pw)
     ul = block.contingency[cue].ul if cue is not None else 0.0
-    rewarded = {c: block.contingency[c].ul for c in block.rewarded_cues()}
     offer, overrides, wwarn = limit_offer(
         spec.welfare, Offer(cue, p, ul, False, end), _uniform_below(rng),
         session_min=session_minutes(sched), unrewarded_in_row=sched.unrewarded_in_row,
-        ul_session=sched.ul_session, ul_today=sched.ul_today, rewarded=rewarded,
+        ul_session=sched.ul_session, ul_today=sched.ul_today, rewarded=_rewarded_ul(block),
         rescue_ul=spec.welfare.rescue_ul or _largest_ul(spec),
     )
     warnings.extend(wwarn)
@@ -352,6 +352,32 @@ def _moves(spec: Spec, sched: ScheduleState, view, reasons: list[str]) -> Schedu
     return sched.evolve(blocks_in_stage=sched.blocks_in_stage + 1)
 
 
+# Values derived from a loaded spec or block, made once per object: id(obj) -> (obj, value).
+# A loaded rule file is a fixed value (its text's sha256 names it), so these never go
+# stale; holding obj keeps its id from being reused; the table is cleared when large.
+_DERIVED: dict[tuple[int, str], tuple[Any, Any]] = {}
+_DERIVED_MAX = 512
+
+
+def _derived(obj: Any, what: str, make) -> Any:
+    key = (id(obj), what)
+    hit = _DERIVED.get(key)
+    if hit is not None and hit[0] is obj:
+        return hit[1]
+    value = make(obj)
+    if len(_DERIVED) >= _DERIVED_MAX:
+        _DERIVED.clear()
+    _DERIVED[key] = (obj, value)
+    return value
+
+
 def _largest_ul(spec: Spec) -> float:
-    return max((k.ul for s in spec.stages.values() for b in s.blocks.values() for k in b.contingency.values()),
-               default=0.0)
+    """The largest reward volume anywhere in the file (the default rescue volume)."""
+    return _derived(spec, "largest_ul", lambda sp: max(
+        (k.ul for s in sp.stages.values() for b in s.blocks.values() for k in b.contingency.values()), default=0.0))
+
+
+def _rewarded_ul(block: Block) -> dict[str, float]:
+    """The volume of each cue the block rewards (a fresh dict; the welfare limits read it)."""
+    return dict(_derived(block, "rewarded_ul",
+                         lambda b: tuple((c, b.contingency[c].ul) for c in b.rewarded_cues())))

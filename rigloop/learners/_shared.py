@@ -111,6 +111,16 @@ def rate_copy(value: float | np.ndarray) -> float | np.ndarray:
     return value
 
 
+def constant(value: float | np.ndarray) -> np.ndarray:
+    """``value`` as an array no one can write to (not even by turning its flag back on),
+    so learners and their copies can share it."""
+    arr = np.array(value, dtype=np.float64)
+    arr.setflags(write=False)
+    view = arr.view()
+    view.setflags(write=False)
+    return view
+
+
 def plain(value: float | np.ndarray) -> float | list[float]:
     """A parameter as plain Python data (float, or list of floats)."""
     return value.tolist() if isinstance(value, np.ndarray) else float(value)
@@ -259,13 +269,14 @@ class Learner:
 
     def __init__(self, n_features: int):
         self._n = count("n_features", n_features)
-        self._allocate()
+        self._allocate(None)
 
-    def _allocate(self) -> None:
-        """Fresh arrays for ``_n`` features (weights zero); subclasses add their own."""
+    def _allocate(self, source: Learner | None) -> None:
+        """This learner's own arrays for ``_n`` features: the state zero (``source`` None)
+        or a copy of ``source``'s, and fresh scratch buffers; subclasses add theirs."""
         n = self._n
         self._shape = (n,)
-        self._w = np.zeros(n)
+        self._w = np.zeros(n) if source is None else source._w.copy()
         self._tmp = np.empty(n)
 
     @property
@@ -282,16 +293,12 @@ class Learner:
         new = object.__new__(type(self))
         new._n = self._n
         self._copy_params(new)
-        new._allocate()
-        self._copy_into(new)
+        new._allocate(self)
         return new
 
     def _copy_params(self, new) -> None:  # pragma: no cover - abstract
         """Set ``new``'s parameters to this learner's (checked values, not re-checked)."""
         raise NotImplementedError
-
-    def _copy_into(self, new) -> None:
-        new._w[...] = self._w
 
     @property
     def w(self) -> np.ndarray:

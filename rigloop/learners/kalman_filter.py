@@ -66,14 +66,14 @@ class _Gaussian(Learner):
         self._noise = sh.positive("noise", noise)
         self._c = sh.nonnegative("prior_var", prior_var)
         # scalars that enter ufuncs as 0-d arrays: a Python float costs more per call
-        self._tau2_0d = np.array(self._tau2)
+        self._tau2_0d = sh.constant(self._tau2)
         self._diag[...] = self._c
 
-    def _allocate(self) -> None:
+    def _allocate(self, source: _Gaussian | None) -> None:
         n = self._n
         self._shape = (n,)
         self._tmp = np.empty(n)
-        self._A = np.zeros((n + 1, n))
+        self._A = np.zeros((n + 1, n)) if source is None else source._A.copy()
         self._P = self._A[:n]
         self._w = self._A[n]
         # the diagonal of Σ as a strided view of the flat buffer: Σ + τ²I without building I
@@ -86,7 +86,7 @@ class _Gaussian(Learner):
 
     def _copy_params(self, new) -> None:
         new._tau2, new._noise, new._c = self._tau2, self._noise, self._c
-        new._tau2_0d = np.array(self._tau2)
+        new._tau2_0d = self._tau2_0d
 
     @property
     def diffusion(self) -> float:
@@ -165,9 +165,6 @@ class _Gaussian(Learner):
     def _restore(self, state: dict[str, Any]) -> None:
         self.w = state["w"]
         self.cov = state["cov"]
-
-    def _copy_into(self, new) -> None:
-        new._A[...] = self._A  # weights and covariance share this buffer
 
 
 class KalmanFilter(_Gaussian):

@@ -47,18 +47,16 @@ class KalmanTD(_Gaussian):
                  noise: Any = 1.0, prior_var: Any = 1.0):
         super().__init__(n_features, diffusion, noise, prior_var)
         self._gamma = sh.unit("gamma", gamma)
-        self._gamma_0d = np.array(self._gamma)  # a 0-d array costs less per ufunc call
+        self._gamma_0d = sh.constant(self._gamma)  # a 0-d array costs less per ufunc call
 
-    def _allocate(self) -> None:
-        super()._allocate()
+    def _allocate(self, source: KalmanTD | None) -> None:
+        super()._allocate(source)
         self._h = np.empty(self._n)
-        self._zero = np.zeros(self._n)
-        self._zero.setflags(write=False)
+        self._zero = sh.constant(np.zeros(self._n)) if source is None else source._zero
 
     def _copy_params(self, new) -> None:
         super()._copy_params(new)
-        new._gamma = self._gamma
-        new._gamma_0d = np.array(self._gamma)
+        new._gamma, new._gamma_0d = self._gamma, self._gamma_0d
 
     @property
     def gamma(self) -> float:
@@ -111,7 +109,7 @@ class KalmanTD(_Gaussian):
             x = X[t]
             values[t] = x @ w
             # xᵀΣx
-            np.dot(P, x, out=tmp)
+            P.dot(x, tmp)
             variances[t] = x @ tmp
             if not represented[t]:
                 # featureless state: report the error, learn nothing (see module docstring)

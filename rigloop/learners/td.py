@@ -40,11 +40,10 @@ class TD(Learner):
         self._lam = sh.unit("lam", lam)
         self._gl = self._gamma * self._lam
 
-    def _allocate(self) -> None:
-        super()._allocate()
-        self._z = np.zeros(self._n)
-        self._zero = np.zeros(self._n)
-        self._zero.setflags(write=False)
+    def _allocate(self, source: TD | None) -> None:
+        super()._allocate(source)
+        self._z = np.zeros(self._n) if source is None else source._z.copy()
+        self._zero = sh.constant(np.zeros(self._n)) if source is None else source._zero
 
     def _copy_params(self, new) -> None:
         new._alpha, new._scalar = sh.rate_copy(self._alpha), self._scalar
@@ -66,10 +65,6 @@ class TD(Learner):
     def z(self) -> np.ndarray:
         """(n,) eligibility trace (read it; reset it with ``reset_trace``)."""
         return self._z
-
-    def _copy_into(self, new) -> None:
-        new._w[...] = self._w
-        new._z[...] = self._z
 
     def reset_trace(self) -> None:
         """Start a new trial: z = 0."""

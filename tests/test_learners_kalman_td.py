@@ -4,6 +4,7 @@ import numpy as np
 import pytest
 from filterpy.kalman import KalmanFilter as ReferenceFilter
 
+from rigloop.errors import BadArgument
 from rigloop.learners import KalmanFilter, KalmanTD
 
 
@@ -145,3 +146,47 @@ def test_featureless_pre_cue_rows_do_not_drag_cue_values():
     # the error on entering the cue is gamma * V(onset) (Schultz, Dayan & Montague 1997)
     assert out.errors[pre - 1] == pytest.approx(gamma * a.w[0], rel=1e-3)
     assert res.errors[-1] == pytest.approx(0.0, abs=0.05)
+
+
+def _reference_trial(learner, X, r):
+    """learn_trial written out row by row: every product computed, featureless rows included."""
+    T, n = X.shape
+    values, errors, variances = np.empty(T), np.empty(T), np.empty(T)
+    for t in range(T):
+        x = X[t]
+        x_next = X[t + 1] if t + 1 < T else np.zeros(n)
+        values[t] = x @ learner.w
+        variances[t] = x @ learner.cov.dot(x)
+        if not x.any():
+            errors[t] = float(r[t]) + learner.gamma * float(x_next @ learner.w)
+        else:
+            errors[t] = learner.update(x, x_next, float(r[t]))
+    return values, errors, variances
+
+
+@pytest.mark.parametrize("scale", [1.0, 1e300])
+def test_featureless_rows_report_exact_zeros_even_for_extreme_states(scale):
+    """Featureless rows skip their products only while the state is finite: learn_trial
+    equals the row-by-row computation bit for bit, also when the state overflows."""
+    rng = np.random.default_rng(4)
+    with np.errstate(all="ignore"):
+        for _ in range(200):
+            n, T = int(rng.integers(1, 5)), int(rng.integers(1, 7))
+            a = KalmanTD(n, gamma=0.9, diffusion=0.01, noise=0.2, prior_var=1.0)
+            B = rng.normal(size=(n, n))
+            a.cov = B @ B.T * scale  # a covariance; huge ones overflow within the trial
+            a.w = rng.normal(size=n) * scale
+            b = a.copy()
+            X = np.where(rng.random((T, n)) < 0.5, 1.0, 0.0)
+            X[rng.random(T) < 0.5] = 0.0
+            r = rng.normal(size=T)
+            try:
+                expected = _reference_trial(b, X, r)
+            except (BadArgument, ValueError) as err:  # a non-finite error, or sqrt of an overflowed s
+                with pytest.raises(type(err)):
+                    a.learn_trial(X, r)
+                continue
+            got = a.learn_trial(X, r)
+            for x, y in zip((got.values, got.errors, got.variances), expected):
+                assert x.tobytes() == y.tobytes()
+            assert a._A.tobytes() == b._A.tobytes()

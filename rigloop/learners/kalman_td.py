@@ -17,6 +17,7 @@ neither the mean nor the covariance. ``update`` itself applies whatever it is gi
 
 from __future__ import annotations
 
+import math
 from typing import Any
 
 import numpy as np
@@ -93,7 +94,25 @@ class KalmanTD(_Gaussian):
         return self._learn(X, sh.vector("r", r, X.shape[0]))
 
     def _learn(self, X: np.ndarray, r: np.ndarray) -> TrialResult:
-        """:meth:`learn_trial` of rows already checked (finite float64, C-contiguous)."""
+        """:meth:`learn_trial` of rows already checked (finite float64, C-contiguous).
+
+        While ŵ and Σ are finite, a featureless row x = 0 has xᵀŵ = xᵀΣx = +0.0 exactly
+        (every product is ±0 and numpy's dot starts its sum at +0.0), so the trial first
+        runs without computing those. An entry of ŵ or Σ that is not finite stays so
+        (adding to or subtracting from inf or NaN never gives a finite number), so a
+        state finite at the end was finite throughout; if it is not, the trial runs
+        again from its start with every product computed.
+        """
+        start = self._A.copy()
+        result = self._trial(X, r, finite=True)
+        # a sum is finite only if every entry is (an overflow merely takes the full path)
+        if not math.isfinite(np.add.reduce(self._A, None)):
+            self._A[...] = start
+            result = self._trial(X, r, finite=False)
+        return result
+
+    def _trial(self, X: np.ndarray, r: np.ndarray, finite: bool) -> TrialResult:
+        """The trial's updates; ``finite``: take ŵ and Σ to be finite throughout."""
         T = X.shape[0]
         values, errors, variances = np.empty(T), np.empty(T), np.empty(T)
         # h_t = x_t − γx_{t+1} for all rows in two calls (x_T = 0, the terminal row); each
@@ -102,10 +121,16 @@ class KalmanTD(_Gaussian):
         np.multiply(X[1:], self._gamma_0d, H[:-1])
         H[T - 1 :] = 0.0
         np.subtract(X, H, H)
-        represented = X.any(axis=1).tolist()
+        represented = X.any(axis=1).tolist() + [False]  # the terminal row is featureless
         rewards = r.tolist()
         w, h, tmp, P = self._w, self._h, self._tmp, self._P
         for t in range(T):
+            if finite and not represented[t]:
+                # x = 0: xᵀŵ = xᵀΣx = 0, and x'ᵀŵ = 0 if x' is featureless too
+                values[t] = variances[t] = 0.0
+                v_next = float(X[t + 1] @ w) if represented[t + 1] else 0.0
+                errors[t] = rewards[t] + self._gamma * v_next
+                continue
             x = X[t]
             values[t] = x @ w
             # xᵀΣx

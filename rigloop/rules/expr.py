@@ -586,8 +586,7 @@ def evaluate(expr: Expr, env: Env, *, explain: bool = True) -> tuple[float | boo
 
 def explain_if(expr: Expr, env: Env) -> tuple[bool, list[str]]:
     """(True, what it saw) when a criterion holds, else (False, []): cheap when it fails."""
-    hit, _ = evaluate(expr, env, explain=False)
-    if not hit:
+    if not _evaluator(expr)(env):
         return False, []
     return evaluate(expr, env)
 

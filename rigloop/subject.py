@@ -167,8 +167,18 @@ def _unpack_arrays(state: Mapping[str, Any]) -> dict[str, Any]:
 
 def representation_for(rules):
     """The feature representation a rule file asks for (cached per rule file)."""
-    return _representation(rules.features.kind, tuple(rules.cues), rules.features.dt,
-                           rules.features.n_bins, rules.features.decay)
+    hit = _REP_BY_RULES.get(id(rules))
+    if hit is not None and hit[0] is rules:
+        return hit[1]
+    rep = _representation(rules.features.kind, tuple(rules.cues), rules.features.dt,
+                          rules.features.n_bins, rules.features.decay)
+    if len(_REP_BY_RULES) > 64:
+        _REP_BY_RULES.clear()
+    _REP_BY_RULES[id(rules)] = (rules, rep)  # holding rules keeps its id from being reused
+    return rep
+
+
+_REP_BY_RULES: dict[int, tuple[Any, Any]] = {}
 
 
 _REP_CACHE: dict[tuple, Any] = {}

@@ -382,7 +382,7 @@ class Decision:
         object.__setattr__(self, "difficulty", _number("difficulty", self.difficulty, minimum=None, optional=True))
         object.__setattr__(self, "valve_ms", _number("valve_ms", self.valve_ms, optional=True))
         for name in ("reasons", "overrides", "warnings"):
-            object.__setattr__(self, name, tuple(str(s) for s in getattr(self, name)))
+            object.__setattr__(self, name, tuple(map(str, getattr(self, name))))
         object.__setattr__(self, "reward_armed", bool(self.reward_armed))
         object.__setattr__(self, "end_session", bool(self.end_session))
 

@@ -178,6 +178,16 @@ class Representation:
     # cue -> its read-only onset row; see _onset
     _onsets: dict = field(default_factory=dict, init=False, repr=False, compare=False, hash=False)
 
+    def __getstate__(self) -> tuple:
+        # the caches are not part of the value: a pickled or copied one starts empty
+        return (self.kind, self.cues, self.dt, self.n_bins, self.decay)
+
+    def __setstate__(self, state: tuple) -> None:
+        for name, value in zip(("kind", "cues", "dt", "n_bins", "decay"), state, strict=True):
+            object.__setattr__(self, name, value)
+        object.__setattr__(self, "_layouts", {})
+        object.__setattr__(self, "_onsets", {})
+
     @property
     def timed(self) -> bool:
         """False for ``identity`` (one row per trial), True for the per-bin kinds."""

@@ -242,6 +242,21 @@ def test_the_layout_cache_stays_bounded():
     assert rows.X[:, 0].tolist() == [1.0] * 5
 
 
+def test_copies_of_a_representation_start_with_empty_caches():
+    """Pickling or copying a representation keeps its value, not its cached rows (whose
+    arrays a copy would otherwise hand out writable)."""
+    import copy
+    import pickle
+
+    r = rep("serial_compound", n_bins=3)
+    a = r.rows([("tone_hi", 0.0, 0.5)], [(0.5, 1.0)])
+    r._onset("light")
+    for other in (pickle.loads(pickle.dumps(r)), copy.deepcopy(r), copy.copy(r)):
+        assert other == r and not other._layouts and not other._onsets
+        b = other.rows([("tone_hi", 0.0, 0.5)], [(0.5, 1.0)])
+        assert a.X.tobytes() == b.X.tobytes() and not b.X.flags.writeable
+
+
 def test_step_rows_match_event_rows():
     """The rows step builds from a checked event equal event_rows with rewards in units."""
     event = TrialEvent(

@@ -185,9 +185,8 @@ def limit_offer(
 ) -> tuple[Offer, list[str], list[str]]:
     """:func:`apply_limits` with the uniform draw behind ``below(p)`` (is u < p?).
 
-    ``below`` is called at most once, and only when the draw decides the arming (no
-    limit forced the reward, a volume is offered, the session goes on), so the engine
-    can leave the trial's generator untouched on every other decision.
+    ``below`` is called at most once, when no limit forced the reward, so the engine
+    can make the draw only when the answer depends on it.
     """
     overrides: list[str] = []
     warnings: list[str] = []
@@ -232,7 +231,7 @@ def limit_offer(
         if ul > limits.max_reward_ul:
             overrides.append(f"welfare: reward {fmt(ul)} µL exceeds the limit -> {fmt(limits.max_reward_ul)} µL")
             ul = limits.max_reward_ul
-    armed = not end and ul > 0 and (forced or below(p))
+    armed = (forced or below(p)) and ul > 0 and not end
     if end:
         cue, p, ul, armed = None, 0.0, 0.0, False
 

@@ -21,6 +21,7 @@ RESPONSE_RESULTS = ("correct", "incorrect", "omitted")
 PUNISHMENTS = ("timeout", "airpuff", "noise")
 _ID_MAX = 64
 _EXTRA_MAX = 32
+_INF = math.inf
 
 Scalar = bool | int | float | str | None
 
@@ -29,11 +30,18 @@ Scalar = bool | int | float | str | None
 
 
 def _ident(name: str, value: Any) -> str:
+    if type(value) is str and 0 < len(value) <= _ID_MAX and value.isprintable() and value == value.strip():
+        return value  # the common case in one line; the checks below say what is wrong
     if not isinstance(value, str) or not value:
         raise BadEvent(name, "must be a non-empty string", value)
     if len(value) > _ID_MAX or not value.isprintable() or value != value.strip():
         raise BadEvent(name, f"must be printable, without surrounding spaces, at most {_ID_MAX} characters", value)
     return value
+
+
+def _fine(value: Any) -> bool:
+    """A plain float that is finite and >= 0: what most fields hold, passed in one test."""
+    return type(value) is float and value >= 0.0 and value != _INF  # NaN fails the >=
 
 
 def _number(name: str, value: Any, *, minimum: float | None = 0.0, optional: bool = False) -> float | None:
@@ -58,7 +66,7 @@ def _count(name: str, value: Any, minimum: int = 0) -> int:
 
 
 def _extra(name: str, value: Any) -> dict[str, Scalar]:
-    if value is None:
+    if value is None or (type(value) is dict and not value):
         return {}
     if not isinstance(value, Mapping):
         raise BadEvent(name, "must be a map of names to numbers, strings or booleans", value)
@@ -90,8 +98,10 @@ class CuePresentation:
 
     def __post_init__(self) -> None:
         _ident("cue", self.cue)
-        object.__setattr__(self, "onset", _number(f"cues[{self.cue}].onset", self.onset))
-        object.__setattr__(self, "offset", _number(f"cues[{self.cue}].offset", self.offset))
+        if not _fine(self.onset):
+            object.__setattr__(self, "onset", _number(f"cues[{self.cue}].onset", self.onset))
+        if not _fine(self.offset):
+            object.__setattr__(self, "offset", _number(f"cues[{self.cue}].offset", self.offset))
         if self.offset < self.onset:
             raise BadEvent(f"cues[{self.cue}].offset", f"must not be before its onset {self.onset:g} s", self.offset)
 
@@ -107,10 +117,15 @@ class Outcome:
     timeout_s: float = 0.0
 
     def __post_init__(self) -> None:
-        object.__setattr__(self, "reward_ul", _number("outcome.reward_ul", self.reward_ul))
-        object.__setattr__(self, "reward_time", _number("outcome.reward_time", self.reward_time, optional=True))
-        object.__setattr__(self, "punishment_time", _number("outcome.punishment_time", self.punishment_time, optional=True))
-        object.__setattr__(self, "timeout_s", _number("outcome.timeout_s", self.timeout_s))
+        if not _fine(self.reward_ul):
+            object.__setattr__(self, "reward_ul", _number("outcome.reward_ul", self.reward_ul))
+        if self.reward_time is not None and not _fine(self.reward_time):
+            object.__setattr__(self, "reward_time", _number("outcome.reward_time", self.reward_time, optional=True))
+        if self.punishment_time is not None and not _fine(self.punishment_time):
+            object.__setattr__(self, "punishment_time", _number("outcome.punishment_time", self.punishment_time,
+                                                                optional=True))
+        if not _fine(self.timeout_s):
+            object.__setattr__(self, "timeout_s", _number("outcome.timeout_s", self.timeout_s))
         if self.reward_ul > 0 and self.reward_time is None:
             raise BadEvent("outcome.reward_time", "is required when reward_ul > 0", None)
         if self.punishment is not None and self.punishment not in PUNISHMENTS:
@@ -135,7 +150,9 @@ class Response:
         _ident("response.kind", self.kind)
         if isinstance(self.value, bool):
             raise BadEvent("response.value", "must be a number, a string or nil", self.value)
-        if isinstance(self.value, (int, float)):
+        if type(self.value) is float and math.isfinite(self.value):
+            pass  # the common case: a finite float needs no conversion
+        elif isinstance(self.value, (int, float)):
             object.__setattr__(self, "value", _number("response.value", self.value, minimum=None))
         elif self.value is not None:
             if not isinstance(self.value, str):
@@ -143,7 +160,8 @@ class Response:
             _ident("response.value", self.value)
         if self.result is not None and self.result not in RESPONSE_RESULTS:
             raise BadEvent("response.result", f"must be one of {', '.join(RESPONSE_RESULTS)} or nil", self.result)
-        object.__setattr__(self, "latency", _number("response.latency", self.latency, optional=True))
+        if self.latency is not None and not _fine(self.latency):
+            object.__setattr__(self, "latency", _number("response.latency", self.latency, optional=True))
 
 
 # --------------------------------------------------------------------------- event
@@ -183,13 +201,14 @@ class TrialEvent:
             raise BadEvent("outcome", "must be an Outcome", self.outcome)
         if not isinstance(self.response, Response):
             raise BadEvent("response", "must be a Response", self.response)
-        object.__setattr__(self, "wall_time", _number("wall_time", self.wall_time))
+        if not _fine(self.wall_time):
+            object.__setattr__(self, "wall_time", _number("wall_time", self.wall_time))
         object.__setattr__(self, "extra", _extra("extra", self.extra))
         latest = max(self.event_times(), default=0.0)
         if self.duration is None:
             object.__setattr__(self, "duration", latest)
         else:
-            duration = _number("duration", self.duration)
+            duration = self.duration if _fine(self.duration) else _number("duration", self.duration)
             if duration < latest:
                 raise BadEvent("duration", f"must cover every event in the trial (last at {latest:g} s)", duration)
             object.__setattr__(self, "duration", duration)
@@ -279,8 +298,8 @@ class TrialEvent:
         """Build from plain data (a decoded message or a stored row); BadEvent names the fault."""
         if not isinstance(data, Mapping):
             raise BadEvent("trial event", "must be a map", type(data).__name__, raw=data)
-        allowed = {"subject", "rig", "session", "trial", "cues", "outcome", "response", "duration", "wall_time", "extra"}
-        unknown = sorted(set(map(str, data)) - allowed)
+        allowed = _EVENT_FIELDS
+        unknown = () if data.keys() <= allowed else sorted(set(map(str, data)) - allowed)
         if unknown:
             raise BadEvent(unknown[0], f"is not a trial field (fields: {', '.join(sorted(allowed))})", data[unknown[0]], raw=data)
         for name in ("subject", "rig", "session", "trial"):
@@ -307,6 +326,11 @@ class TrialEvent:
             raise
 
 
+_EVENT_FIELDS = frozenset(
+    {"subject", "rig", "session", "trial", "cues", "outcome", "response", "duration", "wall_time", "extra"}
+)
+
+
 def _seq(name: str, value: Any) -> list:
     if not isinstance(value, (list, tuple)):
         raise BadEvent(name, "must be a list", value)
@@ -331,6 +355,8 @@ def _sub(name: str, value: Any, fields: Mapping[str, Any]) -> dict[str, Any]:
         return {}
     if not isinstance(value, Mapping):
         raise BadEvent(name, "must be a map", value)
+    if value.keys() <= fields.keys():
+        return dict(value)
     unknown = sorted(set(map(str, value)) - set(fields))
     if unknown:
         raise BadEvent(f"{name}.{unknown[0]}", f"is not a field of {name} (fields: {', '.join(fields)})", value[unknown[0]])

@@ -8,7 +8,7 @@ Layout (data flows top to bottom; see DEVELOPERS.md):
   rules/       rule-file language, policies, welfare limits
   subject      SubjectState: all one animal carries from trial to trial
   step         step(state, event, rules): THE function, shared by live and offline
-  store        SQLite: sessions, trials, decisions, quantities, snapshots
+  store        SQLite: sessions, trials (with decisions and quantities), snapshots
   wire, links/ message codecs (no I/O) and the ZeroMQ / serial links
   daemon       links -> step -> store -> reply/publish
   replay, simulate, fit, report: offline tools over the same core

@@ -1,4 +1,5 @@
-"""The durable store: one SQLite file holding sessions, trials, decisions, quantities, snapshots.
+"""The durable store: one SQLite file holding sessions, trials (each with its decision and
+model quantities), and snapshots.
 
 Durability contract: every write method returns only after its transaction is committed
 with ``PRAGMA synchronous=FULL`` in WAL mode, i.e. after the WAL has been fsync'd. The
@@ -15,8 +16,12 @@ Integrity: opening checks the file header, the application id and the schema ver
 which is cheap at any size. The full ``PRAGMA integrity_check`` reads the whole file
 (seconds per GB), so it is not run at open; call ``Store.check()`` where it is wanted.
 
-Rows hold events and decisions as canonical JSON text (sorted keys, no spaces, floats as
-``repr`` so they round-trip exactly), plus key columns for queries.
+One row of ``trials`` holds a trial's event, the decision it produced and its model
+quantities, each as canonical JSON text (sorted keys, no spaces, floats as ``repr`` so they
+round-trip exactly), plus key columns for queries; the views ``decisions`` and
+``quantities`` show them as tables of their own. One row per trial keeps a commit to one
+table page and one index page in the usual case, so a durable commit writes little to
+the WAL. A store written by schema version 1 (three tables) is migrated when opened.
 
 One ``Store`` may be shared between threads: each call takes an internal lock, and the
 iterators read in pages, so no cursor stays open across a ``yield``. WAL mode lets other
@@ -40,14 +45,45 @@ from typing import Any
 from .errors import BadArgument, ConflictingTrial, RigloopError, SchemaTooNew, StoreError
 from .trial import Decision, TrialEvent
 
-SCHEMA_VERSION = 1
+SCHEMA_VERSION = 2
 # PRAGMA application_id marks the file as a rigloop store: "RGLP" as a 32-bit integer.
 APPLICATION_ID = 0x52474C50
 _SQLITE_MAGIC = b"SQLite format 3\x00"
 _PAGE = 1000  # rows per page in the iterators
 _RESERVED_QUANTITY_NAMES = frozenset({"subject", "session", "trial", "seq"})
 
-_SCHEMA = """
+_SCHEMA_TRIALS = """
+CREATE TABLE trials (
+    id           INTEGER PRIMARY KEY,        -- storage order
+    subject      TEXT NOT NULL,
+    session      TEXT NOT NULL,
+    trial        INTEGER NOT NULL,
+    rig          TEXT NOT NULL,
+    wall_time    REAL NOT NULL,
+    first_cue    TEXT,
+    reward_ul    REAL NOT NULL,
+    result       TEXT,
+    event        TEXT NOT NULL,              -- canonical JSON of TrialEvent.to_dict()
+    next_trial   INTEGER NOT NULL,           -- the decision this trial produced: Decision.trial
+    cue          TEXT,
+    block        TEXT NOT NULL,
+    stage        TEXT NOT NULL,
+    reward_armed INTEGER NOT NULL,
+    end_session  INTEGER NOT NULL,
+    decision     TEXT NOT NULL,              -- canonical JSON of Decision.to_dict()
+    quantities   TEXT NOT NULL,              -- canonical JSON object name -> float | null
+    UNIQUE (subject, session, trial),
+    FOREIGN KEY (subject, session) REFERENCES sessions(subject, session)
+);
+"""
+_SCHEMA_VIEWS = """
+CREATE VIEW decisions AS
+    SELECT subject, session, trial, next_trial, cue, block, stage, reward_armed, end_session, decision
+    FROM trials;
+CREATE VIEW quantities AS
+    SELECT subject, session, trial, quantities AS data FROM trials;
+"""
+_SCHEMA = ("""
 CREATE TABLE subjects (
     name        TEXT PRIMARY KEY,
     first_seen  REAL NOT NULL,
@@ -70,41 +106,7 @@ CREATE TABLE sessions (
     UNIQUE (subject, session),
     UNIQUE (subject, seq)
 );
-CREATE TABLE trials (
-    subject     TEXT NOT NULL,
-    session     TEXT NOT NULL,
-    trial       INTEGER NOT NULL,
-    rig         TEXT NOT NULL,
-    wall_time   REAL NOT NULL,
-    first_cue   TEXT,
-    reward_ul   REAL NOT NULL,
-    result      TEXT,
-    event       TEXT NOT NULL,               -- canonical JSON of TrialEvent.to_dict()
-    PRIMARY KEY (subject, session, trial),
-    FOREIGN KEY (subject, session) REFERENCES sessions(subject, session)
-) WITHOUT ROWID;
-CREATE TABLE decisions (
-    subject      TEXT NOT NULL,
-    session      TEXT NOT NULL,
-    trial        INTEGER NOT NULL,           -- the trial whose event produced this decision
-    next_trial   INTEGER NOT NULL,           -- Decision.trial
-    cue          TEXT,
-    block        TEXT NOT NULL,
-    stage        TEXT NOT NULL,
-    reward_armed INTEGER NOT NULL,
-    end_session  INTEGER NOT NULL,
-    decision     TEXT NOT NULL,              -- canonical JSON of Decision.to_dict()
-    PRIMARY KEY (subject, session, trial),
-    FOREIGN KEY (subject, session, trial) REFERENCES trials(subject, session, trial)
-) WITHOUT ROWID;
-CREATE TABLE quantities (
-    subject     TEXT NOT NULL,
-    session     TEXT NOT NULL,
-    trial       INTEGER NOT NULL,
-    data        TEXT NOT NULL,               -- canonical JSON object name -> float | null
-    PRIMARY KEY (subject, session, trial),
-    FOREIGN KEY (subject, session, trial) REFERENCES trials(subject, session, trial)
-) WITHOUT ROWID;
+""" + _SCHEMA_TRIALS + _SCHEMA_VIEWS + """
 CREATE TABLE snapshots (
     id          INTEGER PRIMARY KEY,
     subject     TEXT NOT NULL,
@@ -116,7 +118,7 @@ CREATE TABLE snapshots (
     UNIQUE (subject, session, trial),
     FOREIGN KEY (subject, session) REFERENCES sessions(subject, session)
 );
-"""
+""")
 
 
 # --------------------------------------------------------------------------- values
@@ -298,7 +300,10 @@ class Store:
                     raise StoreError(f"{self.path}: a rigloop store without a schema version; the file is damaged")
                 self._create_schema()
             else:
-                missing = {"subjects", "sessions", "trials", "decisions", "quantities", "snapshots"} - tables
+                if version < SCHEMA_VERSION:
+                    self._migrate(version)
+                    tables = {r[0] for r in c.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
+                missing = {"subjects", "sessions", "trials", "snapshots"} - tables
                 if missing:
                     raise StoreError(f"{self.path}: the store lacks tables {', '.join(sorted(missing))}; the file is damaged")
         except sqlite3.DatabaseError as err:
@@ -310,14 +315,26 @@ class Store:
         try:
             # Another process may have created it while we waited for the write lock.
             if c.execute("PRAGMA user_version").fetchone()[0] == 0:
-                for statement in _SCHEMA.split(";"):
-                    if statement.strip():
-                        c.execute(statement)
+                _execute_all(c, _SCHEMA)
                 c.execute(f"PRAGMA application_id = {APPLICATION_ID}")
                 c.execute(f"PRAGMA user_version = {SCHEMA_VERSION}")
             c.execute("COMMIT")
         except BaseException:
             c.execute("ROLLBACK")
+            raise
+
+    def _migrate(self, version: int) -> None:
+        """Bring a store written by an older schema up to ``SCHEMA_VERSION``, in one
+        transaction (a crash leaves the old file as it was)."""
+        c = self._conn
+        c.execute("BEGIN IMMEDIATE")
+        try:
+            if c.execute("PRAGMA user_version").fetchone()[0] == 1:  # not already done by another process
+                _migrate_v1(c)
+                c.execute("PRAGMA user_version = 2")
+            c.execute("COMMIT")
+        except BaseException:
+            _rollback(c)
             raise
 
     def close(self) -> None:
@@ -554,7 +571,8 @@ class Store:
 
         Invariant that commit_batch relies on (no savepoint per item): a RigloopError is
         raised only before this item changed anything; once the trial row is inserted,
-        only SQLite errors can follow, and those abort the whole transaction."""
+        only SQLite errors can follow, and those abort the whole transaction. The one
+        row holds the trial, its decision and its quantities, so no item is ever partial."""
         ev = p.event
         key = (ev.subject, ev.session, ev.trial)
         if (ev.subject, ev.session) not in self._known_sessions:
@@ -563,38 +581,29 @@ class Store:
                                  "open_session() comes before its trials")
             self._known_sessions.add(key[:2])  # sessions are never deleted, so this stays true
         first_cue = ev.cues[0].cue if ev.cues else None
+        d = p.decision
         inserted = c.execute(
-            "INSERT INTO trials (subject, session, trial, rig, wall_time, first_cue, reward_ul, result, event) "
-            "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?) ON CONFLICT DO NOTHING",
-            (*key, ev.rig, ev.wall_time, first_cue, ev.outcome.reward_ul, ev.response.result, p.event_text),
+            "INSERT INTO trials (subject, session, trial, rig, wall_time, first_cue, reward_ul, result, event, "
+            "next_trial, cue, block, stage, reward_armed, end_session, decision, quantities) "
+            "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?) ON CONFLICT DO NOTHING",
+            (*key, ev.rig, ev.wall_time, first_cue, ev.outcome.reward_ul, ev.response.result, p.event_text,
+             d.trial, d.cue, d.block, d.stage, int(d.reward_armed), int(d.end_session), p.decision_text,
+             p.quantities_text),
         ).rowcount
         if inserted != 1:  # the key is taken: a retry (same event) or a conflict
-            stored_event = c.execute("SELECT event FROM trials WHERE subject = ? AND session = ? AND trial = ?",
-                                     key).fetchone()[0]
+            stored_event, stored_decision = c.execute(
+                "SELECT event, decision FROM trials WHERE subject = ? AND session = ? AND trial = ?", key).fetchone()
             if stored_event != p.event_text and TrialEvent.from_dict(json.loads(stored_event)) != ev:
                 raise ConflictingTrial(*key)
-            stored = c.execute("SELECT decision FROM decisions WHERE subject = ? AND session = ? AND trial = ?",
-                               key).fetchone()
-            return CommitResult(Decision.from_dict(json.loads(stored[0])), True)
-        d = p.decision
-        c.execute(
-            "INSERT INTO decisions (subject, session, trial, next_trial, cue, block, stage, reward_armed, "
-            "end_session, decision) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
-            (*key, d.trial, d.cue, d.block, d.stage, int(d.reward_armed), int(d.end_session), p.decision_text),
-        )
-        c.execute("INSERT INTO quantities (subject, session, trial, data) VALUES (?, ?, ?, ?)",
-                  (*key, p.quantities_text))
+            return CommitResult(Decision.from_dict(json.loads(stored_decision)), True)
         if p.snapshot is not None:
             self._put_snapshot(c, *key, p.snapshot)
         return CommitResult(d, False)
 
     def lookup(self, subject: str, session: str, trial: int) -> tuple[TrialEvent, Decision] | None:
         """The stored event and decision for a key, or None (check before stepping a retry)."""
-        rows = self._read(
-            "SELECT t.event, d.decision FROM trials t JOIN decisions d USING (subject, session, trial) "
-            "WHERE t.subject = ? AND t.session = ? AND t.trial = ?",
-            (subject, session, trial),
-        )
+        rows = self._read("SELECT event, decision FROM trials WHERE subject = ? AND session = ? AND trial = ?",
+                          (subject, session, trial))
         if not rows:
             return None
         event, decision = rows[0]
@@ -602,18 +611,18 @@ class Store:
 
     # -- iteration ----------------------------------------------------------------
 
-    def _pages(self, table: str, column: str, subject: str | None, session: str | None,
+    def _pages(self, column: str, subject: str | None, session: str | None,
                after: tuple[str, int] | None = None) -> Iterator[tuple[str, str, int, Any]]:
-        """``(subject, session, trial, column)`` of ``table`` in (subject first seen,
-        session seq, trial) order. Reads a page at a time along the primary key, so no
-        cursor stays open between yields and each page is an index range."""
+        """``(subject, session, trial, column)`` of ``trials`` in (subject first seen,
+        session seq, trial) order. Reads a page at a time along the (subject, session,
+        trial) index, so no cursor stays open between yields and each page is an index range."""
         if after is not None and subject is None:
             raise BadArgument("after", "used together with a subject", after)
         if subject is None:
             subjects = self.subjects()
         else:
             subjects = [subject]
-        sql = (f"SELECT trial, {column} FROM {table} WHERE subject = ? AND session = ? AND trial > ? "
+        sql = (f"SELECT trial, {column} FROM trials WHERE subject = ? AND session = ? AND trial > ? "
                f"ORDER BY trial LIMIT {_PAGE}")
         for subj in subjects:
             sessions = [s[0] for s in self._read("SELECT session FROM sessions WHERE subject = ? ORDER BY seq", (subj,))]
@@ -639,13 +648,13 @@ class Store:
                after: tuple[str, int] | None = None) -> Iterator[TrialEvent]:
         """The subject's trials in session open order, then trial order; ``after=(session,
         trial)`` starts strictly after that position (e.g. the trial of a snapshot)."""
-        for *_, text in self._pages("trials", "event", subject, session, after):
+        for *_, text in self._pages("event", subject, session, after):
             yield TrialEvent.from_dict(json.loads(text))
 
     def decisions(self, subject: str, session: str | None = None,
                   after: tuple[str, int] | None = None) -> Iterator[Decision]:
         """The decisions made after each of the subject's trials, in the same order as ``trials``."""
-        for *_, text in self._pages("decisions", "decision", subject, session, after):
+        for *_, text in self._pages("decision", subject, session, after):
             yield Decision.from_dict(json.loads(text))
 
     def rows(self, what: str, subject: str | None = None, session: str | None = None) -> Iterator[dict[str, Any]]:
@@ -658,10 +667,10 @@ class Store:
         quantities: one key per stored quantity name.
         """
         if what == "trials":
-            for subj, sess, trial, text in self._pages("trials", "event", subject, session):
+            for subj, sess, trial, text in self._pages("event", subject, session):
                 yield _flat_trial(json.loads(text))
         elif what == "decisions":
-            for subj, sess, trial, text in self._pages("decisions", "decision", subject, session):
+            for subj, sess, trial, text in self._pages("decision", subject, session):
                 d = json.loads(text)
                 row = {"subject": subj, "session": sess, "trial": trial, "next_trial": d.pop("trial")}
                 d.pop("subject")
@@ -669,7 +678,7 @@ class Store:
                 row.update(d)
                 yield row
         elif what == "quantities":
-            for subj, sess, trial, text in self._pages("quantities", "data", subject, session):
+            for subj, sess, trial, text in self._pages("quantities", subject, session):
                 yield {"subject": subj, "session": sess, "trial": trial, **json.loads(text)}
         else:
             raise BadArgument("what", "one of trials, decisions, quantities", what)
@@ -720,8 +729,9 @@ class Store:
     def statistics(self) -> dict[str, Any]:
         """Row counts, file and WAL sizes in bytes, schema and SQLite versions."""
         counts = {}
-        for table in ("subjects", "sessions", "trials", "decisions", "quantities", "snapshots"):
+        for table in ("subjects", "sessions", "trials", "snapshots"):
             counts[table] = self._read(f"SELECT COUNT(*) FROM {table}")[0][0]
+        counts["decisions"] = counts["quantities"] = counts["trials"]  # one row holds all three
 
         def size(p: str) -> int:
             try:
@@ -819,6 +829,33 @@ def _flat_trial(e: dict[str, Any]) -> dict[str, Any]:
         "response_latency": r["latency"],
         "extra": e["extra"],
     }
+
+
+def _migrate_v1(c: sqlite3.Connection) -> None:
+    """Schema 1 -> 2: the three tables trials, decisions and quantities (one row each per
+    trial) become one row per trial, in storage order; ``decisions`` and ``quantities``
+    become views of it."""
+    c.execute("ALTER TABLE trials RENAME TO trials_v1")  # decisions' and quantities' keys follow
+    _execute_all(c, _SCHEMA_TRIALS)
+    c.execute(
+        "INSERT INTO trials (subject, session, trial, rig, wall_time, first_cue, reward_ul, result, event, "
+        "next_trial, cue, block, stage, reward_armed, end_session, decision, quantities) "
+        "SELECT t.subject, t.session, t.trial, t.rig, t.wall_time, t.first_cue, t.reward_ul, t.result, t.event, "
+        "d.next_trial, d.cue, d.block, d.stage, d.reward_armed, d.end_session, d.decision, q.data "
+        "FROM trials_v1 t JOIN decisions d USING (subject, session, trial) "
+        "JOIN quantities q USING (subject, session, trial) "
+        "JOIN sessions s ON s.subject = t.subject AND s.session = t.session ORDER BY s.id, t.trial"
+    )
+    for table in ("quantities", "decisions", "trials_v1"):
+        c.execute(f"DROP TABLE {table}")
+    _execute_all(c, _SCHEMA_VIEWS)
+
+
+def _execute_all(c: sqlite3.Connection, script: str) -> None:
+    """Each statement of ``script`` (``executescript`` would commit the transaction)."""
+    for statement in script.split(";"):
+        if statement.strip():
+            c.execute(statement)
 
 
 def _check_header(path: str) -> None:

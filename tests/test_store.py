@@ -172,10 +172,11 @@ def test_failed_write_rolls_back_whole_trial_and_stops_the_store(tmp_path):
     s = Store(path)
     s.open_session(info())
     raw = sqlite3.connect(path)
-    raw.execute("CREATE TRIGGER fail BEFORE INSERT ON quantities BEGIN SELECT RAISE(ABORT, 'injected fault'); END")
+    # the trial row goes in first, then its snapshot fails
+    raw.execute("CREATE TRIGGER fail BEFORE INSERT ON snapshots BEGIN SELECT RAISE(ABORT, 'injected fault'); END")
     raw.commit()
     with pytest.raises(StoreError, match=r"write failed and was rolled back \(injected fault\)"):
-        s.commit_trial(event(1), decision(1), {})
+        s.commit_trial(event(1), decision(1), {}, snapshot=b"state")
     assert raw.execute("SELECT COUNT(*) FROM trials").fetchone()[0] == 0
     with pytest.raises(StoreError, match="stopped after a failed write"):
         s.last_trial("m01", "s1")
@@ -248,10 +249,48 @@ def test_newer_schema_is_refused_without_change(tmp_path):
     raw.close()
     before = path.read_bytes()
     with pytest.raises(SchemaTooNew, match=(
-            rf"^{path}: written with store schema version 2, but this rigloop reads versions up to 1; "
+            rf"^{path}: written with store schema version {SCHEMA_VERSION + 1}, but this rigloop reads versions "
+            rf"up to {SCHEMA_VERSION}; "
             r"upgrade rigloop to open it \(the file was not changed\)$")):
         Store(path)
     assert path.read_bytes() == before
+
+
+def test_store_of_schema_version_1_is_migrated(tmp_path):
+    """A store written by schema version 1 (trials, decisions and quantities in three
+    tables) opens as the current schema with every trial, decision, quantity and
+    snapshot intact, replays identically, and takes new trials."""
+    import json
+
+    from rigloop.replay import replay_subject
+
+    path = tmp_path / "v1.sqlite"
+    raw = sqlite3.connect(path)
+    raw.executescript((Path(__file__).parent / "data" / "store_v1.sql").read_text(encoding="utf-8"))
+    assert raw.execute("PRAGMA user_version").fetchone()[0] == 1
+    old = {t: raw.execute(f"SELECT * FROM {t} ORDER BY subject, session, trial").fetchall()
+           for t in ("trials", "decisions", "quantities")}
+    snaps = raw.execute("SELECT subject, session, trial, blob FROM snapshots ORDER BY id").fetchall()
+    raw.close()
+    with Store(path) as s:
+        assert s._conn.execute("PRAGMA user_version").fetchone()[0] == SCHEMA_VERSION
+        assert s.check() == []
+        for subject in ("v1-m01", "v1-m02"):
+            mine = [r for r in old["trials"] if r[0] == subject]
+            assert [e.to_dict() for e in s.trials(subject)] == [json.loads(r[-1]) for r in mine]
+            assert [d.to_dict() for d in s.decisions(subject)] == [
+                json.loads(r[-1]) for r in old["decisions"] if r[0] == subject]
+            assert replay_subject(s, subject).differing == 0
+        assert [(r["subject"], r["trial"], {k: v for k, v in r.items() if k not in ("subject", "session", "trial")})
+                for r in s.rows("quantities")] == [(r[0], r[2], json.loads(r[3])) for r in old["quantities"]]
+        assert [(x.session, x.trial, x.blob) for x in s.snapshots("v1-m01")] == sorted(
+            [(r[1], r[2], r[3]) for r in snaps if r[0] == "v1-m01"], key=lambda x: -x[1])
+        # the views keep the old tables' names and columns for queries
+        assert s._conn.execute("SELECT * FROM decisions ORDER BY subject, session, trial").fetchall() == old["decisions"]
+        assert s.statistics()["trials"] == len(old["trials"]) == 10
+        last = list(s.trials("v1-m02"))[-1]
+        ev = TrialEvent.from_dict({**last.to_dict(), "trial": last.trial + 1})
+        assert not s.commit_trial(ev, decision(ev.trial, subject="v1-m02", session="d01"), {}).duplicate
 
 
 def test_garbage_file_is_refused(tmp_path):

@@ -5,8 +5,8 @@ Every variant writes N trials to a fresh SQLite file in WAL mode with synchronou
 
   bare        one INSERT per BEGIN IMMEDIATE … COMMIT of the trial's canonical JSON text
               (pre-encoded; only SQLite's cost)
-  commit      Store.commit_trial: dedup check, trial + decision + quantities rows, JSON
-              encoding included, one transaction per trial
+  commit      Store.commit_trial: dedup check, one row holding the trial, its decision
+              and its quantities, JSON encoding included, one transaction per trial
   batch k     Store.commit_batch with k trials per transaction (group commit), k = 1, 8, 32
 
 The variants run interleaved, 32 trials at a time each, so machine noise hits all of

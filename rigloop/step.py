@@ -216,18 +216,18 @@ def step(state: SubjectState, event: TrialEvent, rules) -> tuple[SubjectState, D
     event.check_context(known_cues=rules.cues, last_trial=state.last_trial)
 
     rep = representation_for(rules)
-    learner = state.learner_copy()
     cue_ids = event.cue_ids
 
     # value and sd of each presented cue at its onset, before this trial's learning
     quantities: dict[str, float | None] = {}
     for cue in cue_ids:
-        mean, var = learner._predict(rep._onset(cue))
+        mean, var = state.learner._predict(rep._onset(cue))
         quantities[f"value[{cue}]"] = float(mean)
         quantities[f"sd[{cue}]"] = math.sqrt(max(float(var), 0.0))
 
     rows = rep._event_rows(event, rules.reward_unit_ul)
-    result = learner._learn(rows.X, rows.r)
+    # the learner after this trial: a new one, the state's own stays as it was
+    learner, result = state.learner._learned(rows.X, rows.r)
     values, errors = result.values, result.errors
 
     if rep.timed:

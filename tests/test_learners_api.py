@@ -255,3 +255,30 @@ def test_unchecked_paths_equal_the_checked_ones(name):
     assert a.w.tobytes() == b.w.tobytes()
     for x in X:
         assert a.predict(x) == b._predict(x)
+
+
+@pytest.mark.parametrize("name", sorted(LEARNERS))
+def test_learned_copy_equals_learning_in_place_and_leaves_the_original(name):
+    """_learned (step's learning call) returns a learner and result bit for bit equal to
+    copy() then _learn, with read-only rows (kept by identity) or writable ones, and the
+    learner it is called on does not change."""
+    rng = np.random.default_rng(11)
+    learner = make_learner(name, 4)
+    value = learner.kind == "value"
+    for k in range(6):
+        X = (rng.random((5, 4)) < 0.5).astype(float)
+        X, r = (X, rng.random(5)) if value else (X[:1].copy(), rng.random(1))
+        if k % 2:
+            X.setflags(write=False)
+        before = learner.state()
+        expected = learner.copy()
+        want = expected._learn(X, r)
+        for _ in range(2):  # the second call may reuse what the first kept of X
+            got_learner, got = learner._learned(X, r)
+            for x, y in ((want.values, got.values), (want.errors, got.errors), (want.variances, got.variances)):
+                assert (x is None and y is None) or x.tobytes() == y.tobytes()
+            assert got_learner.w.tobytes() == expected.w.tobytes()
+            assert not got.values.flags.writeable and not got.errors.flags.writeable
+        for key, value_before in before.items():
+            assert np.asarray(learner.state()[key]).tobytes() == np.asarray(value_before).tobytes()
+        learner = got_learner

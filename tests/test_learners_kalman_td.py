@@ -190,3 +190,19 @@ def test_featureless_rows_report_exact_zeros_even_for_extreme_states(scale):
             for x, y in zip((got.values, got.errors, got.variances), expected):
                 assert x.tobytes() == y.tobytes()
             assert a._A.tobytes() == b._A.tobytes()
+
+
+def test_rows_kept_only_when_they_cannot_change():
+    """A read-only view of a writable array is not kept by identity: after its base
+    changes, learning follows the new rows."""
+    base = np.eye(3)
+    X = base.view()
+    X.setflags(write=False)
+    a, b = KalmanTD(3), KalmanTD(3)
+    a.learn_trial(X, np.ones(3))
+    base[0] = [0.0, 1.0, 1.0]
+    got = a.copy()._learn(X, np.ones(3))
+    b.learn_trial(np.eye(3), np.ones(3))
+    want = b._learn(base.copy(), np.ones(3))
+    assert got.values.tobytes() == want.values.tobytes()
+    assert got.errors.tobytes() == want.errors.tobytes()

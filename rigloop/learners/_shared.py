@@ -248,6 +248,15 @@ class TrialResult:
             if arr is not None:
                 arr.setflags(write=False)
 
+    @classmethod
+    def _locked(cls, values: np.ndarray, errors: np.ndarray, variances: np.ndarray | None = None) -> TrialResult:
+        """A result of arrays that are read-only already (the learners' fast paths)."""
+        new = object.__new__(cls)
+        object.__setattr__(new, "values", values)
+        object.__setattr__(new, "errors", errors)
+        object.__setattr__(new, "variances", variances)
+        return new
+
 
 # --------------------------------------------------------------------------- base
 
@@ -295,6 +304,12 @@ class Learner:
         self._copy_params(new)
         new._allocate(self)
         return new
+
+    def _learned(self, X: np.ndarray, r: np.ndarray) -> tuple[Learner, TrialResult]:
+        """A copy of this learner after ``_learn(X, r)`` (rows already checked), and the
+        trial's result; this learner stays as it was. ``step``'s one learning call."""
+        new = self.copy()
+        return new, new._learn(X, r)
 
     def _copy_params(self, new) -> None:  # pragma: no cover - abstract
         """Set ``new``'s parameters to this learner's (checked values, not re-checked)."""

@@ -104,48 +104,61 @@ class KalmanTD(_Gaussian):
         again from its start with every product computed.
         """
         start = self._A.copy()
-        result = self._trial(X, r, finite=True)
-        # a sum is finite only if every entry is (an overflow merely takes the full path)
-        if not math.isfinite(np.add.reduce(self._A, None)):
+        rows = _rows_of(X, self._gamma)
+        result = self._trial(rows, r, finite=True)
+        if not self._finite():
             self._A[...] = start
-            result = self._trial(X, r, finite=False)
+            result = self._trial(rows, r, finite=False)
         return result
 
-    def _trial(self, X: np.ndarray, r: np.ndarray, finite: bool) -> TrialResult:
+    def _learned(self, X: np.ndarray, r: np.ndarray) -> tuple[KalmanTD, TrialResult]:
+        """A copy of this learner after :meth:`_learn` of the rows, and the trial's result.
+
+        The same two passes as ``_learn``, each on a fresh copy: this learner stays as
+        it was, so it is the starting state to go back to, and ``step`` needs no copy
+        of its own."""
+        rows = _rows_of(X, self._gamma)
+        new = self.copy()
+        result = new._trial(rows, r, finite=True)
+        if not new._finite():
+            new = self.copy()
+            result = new._trial(rows, r, finite=False)
+        return new, result
+
+    def _finite(self) -> bool:
+        # a sum is finite only if every entry is (an overflow merely takes the full path)
+        return math.isfinite(np.add.reduce(self._A, None))
+
+    def _trial(self, rows: _TrialRows, r: np.ndarray, finite: bool) -> TrialResult:
         """The trial's updates; ``finite``: take ŵ and Σ to be finite throughout."""
-        T = X.shape[0]
-        values, errors, variances = np.empty(T), np.empty(T), np.empty(T)
-        # h_t = x_t − γx_{t+1} for all rows in two calls (x_T = 0, the terminal row); each
-        # entry is the same product and difference as row by row
-        H = np.empty_like(X)
-        np.multiply(X[1:], self._gamma_0d, H[:-1])
-        H[T - 1 :] = 0.0
-        np.subtract(X, H, H)
-        represented = X.any(axis=1).tolist() + [False]  # the terminal row is featureless
+        xs, hs, represented = rows.xs, rows.hs, rows.represented
+        T = len(xs)
+        out = np.empty((3, T))
+        values, errors, variances = out
         rewards = r.tolist()
-        w, h, tmp, P = self._w, self._h, self._tmp, self._P
+        w, tmp, P, gamma = self._w, self._tmp, self._P, self._gamma
         for t in range(T):
             if finite and not represented[t]:
                 # x = 0: xᵀŵ = xᵀΣx = 0, and x'ᵀŵ = 0 if x' is featureless too
                 values[t] = variances[t] = 0.0
-                v_next = float(X[t + 1] @ w) if represented[t + 1] else 0.0
-                errors[t] = rewards[t] + self._gamma * v_next
+                v_next = float(xs[t + 1] @ w) if represented[t + 1] else 0.0
+                errors[t] = rewards[t] + gamma * v_next
                 continue
-            x = X[t]
+            x = xs[t]
             values[t] = x @ w
             # xᵀΣx
             P.dot(x, tmp)
             variances[t] = x @ tmp
             if not represented[t]:
                 # featureless state: report the error, learn nothing (see module docstring)
-                x_next = X[t + 1] if t + 1 < T else self._zero
-                errors[t] = rewards[t] + self._gamma * float(x_next @ w)
+                x_next = xs[t + 1] if t + 1 < T else self._zero
+                errors[t] = rewards[t] + gamma * float(x_next @ w)
                 continue
-            h[...] = H[t]
-            errors[t] = delta = self._observe(h, rewards[t])
+            errors[t] = delta = self._observe(hs[t], rewards[t])
             if delta != delta:
-                raise sh.nonfinite([("X", X), ("r", r)])
-        return TrialResult(values, errors, variances)
+                raise sh.nonfinite([("X", rows.X), ("r", r)])
+        out.setflags(write=False)
+        return TrialResult._locked(*out)
 
     def state(self) -> dict[str, np.ndarray | float]:
         """Plain arrays and floats, parameters included; ``from_state`` rebuilds it exactly."""
@@ -160,3 +173,63 @@ class KalmanTD(_Gaussian):
         learner = cls(w.size, **{k: sh.param(state, k) for k in cls._param_names})
         learner._restore(state)
         return learner
+
+
+# --------------------------------------------------------------------------- trial rows
+
+
+class _TrialRows:
+    """What the updates of a trial need from its rows X and γ, formed once.
+
+    ``xs``: the rows x_t; ``hs``: the rows h_t = x_t − γx_{t+1} (x_T = 0, the terminal
+    row), read-only; ``represented``: whether row t has a feature on, with a False for
+    the terminal row after the last. Tuples, so a kept one is an immutable value.
+    """
+
+    __slots__ = ("X", "xs", "hs", "represented")
+
+    def __init__(self, X: np.ndarray, gamma: float):
+        T = X.shape[0]
+        # h_t = x_t − γx_{t+1} for all rows in two calls; each entry is the same product
+        # and difference as row by row
+        H = np.empty_like(X)
+        np.multiply(X[1:], gamma, H[:-1])
+        H[T - 1 :] = 0.0
+        np.subtract(X, H, H)
+        H.setflags(write=False)
+        self.X = X
+        self.xs = tuple(X)
+        self.hs = tuple(H)
+        self.represented = (*X.any(axis=1).tolist(), False)
+
+
+# Rows of read-only X arrays (the feature rows a representation hands out, one per
+# binned trial layout), kept by identity: (id(X), γ) -> (X, its _TrialRows). Holding X
+# keeps its id from being reused; X cannot change, so an entry never goes stale.
+_ROWS: dict[tuple[int, float], tuple[np.ndarray, _TrialRows]] = {}
+_ROWS_MAX = 256
+
+
+def _rows_of(X: np.ndarray, gamma: float) -> _TrialRows:
+    """The :class:`_TrialRows` of X: kept for a read-only X, formed anew for any other."""
+    if not _immutable(X):
+        return _TrialRows(X, gamma)
+    key = (id(X), gamma)
+    hit = _ROWS.get(key)
+    if hit is not None and hit[0] is X:
+        return hit[1]
+    rows = _TrialRows(X, gamma)
+    if len(_ROWS) >= _ROWS_MAX:
+        _ROWS.clear()
+    _ROWS[key] = (X, rows)
+    return rows
+
+
+def _immutable(X: np.ndarray) -> bool:
+    """True when no array in X's chain of bases is writable (so X's values are fixed)."""
+    a = X
+    while type(a) is np.ndarray:
+        if a.flags.writeable:
+            return False
+        a = a.base
+    return a is None

@@ -15,7 +15,9 @@ from __future__ import annotations
 
 import datetime as _dt
 import math
+from collections.abc import Mapping
 from dataclasses import dataclass
+from types import MappingProxyType
 from typing import Any
 
 import numpy as np
@@ -26,7 +28,7 @@ from .expr import Env, explain_if, fmt
 from .model import Block, Spec, Stage
 from .policies import choose_cue, reward_prob, staircase_step
 from .state import ScheduleState
-from .welfare import Offer, limit_offer
+from .welfare import limit_values
 
 
 @dataclass(frozen=True, slots=True)
@@ -53,11 +55,11 @@ class Plan:
 # --------------------------------------------------------------------------- expression env
 
 
-_COUNTERS = (
+_COUNTERS = frozenset({
     "trials_in_block", "trials_in_stage", "trials_in_session", "blocks_in_stage", "sessions_in_stage",
     "correct_in_block", "ul_session", "ul_today", "misses_in_row", "unrewarded_in_row", "hits",
     "misses", "false_alarms", "correct_rejections", "right_bias", "sprt_llr",
-)
+})
 
 
 def session_minutes(s: ScheduleState) -> float:
@@ -69,6 +71,8 @@ class ScheduleEnv(Env):
 
     ``cue`` is what the placeholder ``cue`` means (per-cue policy parameters).
     """
+
+    __slots__ = ("sched", "view", "block", "cue")
 
     def __init__(self, sched: ScheduleState, view, block: Block | None, cue: str | None = None):
         self.sched, self.view, self.block, self.cue = sched, view, block, cue
@@ -174,10 +178,9 @@ def open_session(spec: Spec, sched: ScheduleState, session: str, wall_time: floa
 def trial_cue(spec: Spec, block: Block | None, cue_ids) -> str | None:
     """The cue a trial is scored under: the first of the block's cues it showed, else
     the first declared cue it showed."""
-    ids = set(cue_ids)
     if block is not None:
-        for c in block.cues:
-            if c in ids:
+        for c in block.contingency:  # the block's cues, in order
+            if c in cue_ids:
                 return c
     for c in cue_ids:
         if c in spec.cues:
@@ -237,7 +240,7 @@ def observe(spec: Spec, sched: ScheduleState, event) -> ScheduleState:
         # b <- b + (x - b) / window, x = 1 for a right choice
         ch["right_bias"] = sched.right_bias + ((1.0 if side == "right" else 0.0) - sched.right_bias) / window
         ch["n_choices"] = sched.n_choices + 1
-    return sched.evolve(**ch)
+    return sched._evolved(ch)
 
 
 # --------------------------------------------------------------------------- decide
@@ -267,39 +270,37 @@ def decide(spec: Spec, sched: ScheduleState, view, next_trial: int,
             break
 
     if not end:
-        sched = _moves(spec, sched, view, reasons)
+        sched = _moves(spec, sched, env, reasons)
 
     stage = spec.stages[sched.stage]
     block = stage.blocks[sched.block]
-    cue, p, why_p = None, 0.0, None
+    cue, p = None, 0.0
+    changes: dict[str, Any] = {}
     if not end:
+        # the cue's changes (queue, run, last cue) are applied with the arming below: no
+        # name a rule expression or limit reads depends on them
         cue, changes, why_cue = choose_cue(block, sched, view, rng, spec.cues)
-        sched = sched.evolve(**changes)
         reasons.append(why_cue)
         p, why_p, pw = reward_prob(block.reward, block, cue, lambda c: ScheduleEnv(sched, view, block, c))
         reasons.append(why_p)
         warnings.extend(pw)
     ul = block.contingency[cue].ul if cue is not None else 0.0
-    offer, overrides, wwarn = limit_offer(
-        spec.welfare, Offer(cue, p, ul, False, end), _uniform_below(rng),
-        session_min=session_minutes(sched), unrewarded_in_row=sched.unrewarded_in_row,
-        ul_session=sched.ul_session, ul_today=sched.ul_today, rewarded=_rewarded_ul(block),
-        rescue_ul=spec.welfare.rescue_ul or _largest_ul(spec),
+    cue, p, ul, armed, end, overrides, wwarn = limit_values(
+        spec.welfare, cue, p, ul, end, _uniform_below(rng), session_minutes(sched), sched.unrewarded_in_row,
+        sched.ul_session, sched.ul_today, _rewarded(block), spec.welfare.rescue_ul or _largest_ul(spec),
     )
     warnings.extend(wwarn)
     difficulty = None
-    if block.staircase is not None and not offer.end_session:
+    if block.staircase is not None and not end:
         st = block.staircase
         difficulty = float(sched.stair_level if sched.stair_level is not None else st.start)
         reasons.append(f"difficulty {st.parameter} = {fmt(difficulty)} (staircase {st.up}-up-{st.down}-down, "
                        f"{sched.stair_reversals} reversals)")
-    sched = sched.evolve(last_armed=offer.reward_armed, session_ended=offer.end_session)
-    plan = Plan(
-        cue=offer.cue, reward_prob=float(offer.reward_prob), reward_ul=float(offer.reward_ul),
-        reward_armed=bool(offer.reward_armed), block=sched.block, stage=sched.stage,
-        end_session=offer.end_session, difficulty=difficulty, reasons=tuple(reasons),
-        overrides=tuple(overrides), warnings=tuple(warnings),
-    )
+    changes["last_armed"] = armed
+    changes["session_ended"] = end
+    sched = sched._evolved(changes)
+    plan = Plan(cue, float(p), float(ul), bool(armed), sched.block, sched.stage, end, difficulty, tuple(reasons),
+                tuple(overrides), tuple(warnings))
     return sched, plan
 
 
@@ -321,11 +322,12 @@ def _uniform_below(rng: np.random.Generator):
     return below
 
 
-def _moves(spec: Spec, sched: ScheduleState, view, reasons: list[str]) -> ScheduleState:
-    """At most one move per decision: step back, else advance, else the block's end."""
+def _moves(spec: Spec, sched: ScheduleState, env: ScheduleEnv, reasons: list[str]) -> ScheduleState:
+    """At most one move per decision: step back, else advance, else the block's end.
+
+    ``env`` reads ``sched`` and its block."""
     stage = spec.stages[sched.stage]
-    block = stage.blocks[sched.block]
-    env = ScheduleEnv(sched, view, block)
+    block = env.block
     for move, verb in ((stage.step_back, "steps back"), (stage.advance, "advances")):
         if move is None:
             continue
@@ -377,7 +379,7 @@ def _largest_ul(spec: Spec) -> float:
         (k.ul for s in sp.stages.values() for b in s.blocks.values() for k in b.contingency.values()), default=0.0))
 
 
-def _rewarded_ul(block: Block) -> dict[str, float]:
-    """The volume of each cue the block rewards (a fresh dict; the welfare limits read it)."""
-    return dict(_derived(block, "rewarded_ul",
-                         lambda b: tuple((c, b.contingency[c].ul) for c in b.rewarded_cues())))
+def _rewarded(block: Block) -> Mapping[str, float]:
+    """The volume of each cue the block rewards (shared and read-only: the limits read it)."""
+    return _derived(block, "rewarded_ul",
+                    lambda b: MappingProxyType({c: b.contingency[c].ul for c in b.rewarded_cues()}))

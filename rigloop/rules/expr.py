@@ -559,6 +559,8 @@ def _fmt_bound(x: float) -> str:
 class Env:
     """What evaluation reads. Subclasses answer names and functions."""
 
+    __slots__ = ()
+
     def name(self, name: str) -> float | bool:  # pragma: no cover - interface
         raise NotImplementedError
 
@@ -712,9 +714,16 @@ def _compile_call(n: Call) -> Callable[[Env], float]:
     # arguments: a cue id as is, anything else as a float, left to right
     parts = tuple((a.cue, None) if isinstance(a, CueRef) else (None, _compile(a)) for a in n.args)
     func = n.func
+    if all(isinstance(a, CueRef | Const) for a in n.args):
+        # cue ids and constants only: the same list every time (a new one per call)
+        fixed = tuple(a.cue if isinstance(a, CueRef) else float(a.value) for a in n.args)
 
-    def args_of(env) -> list:
-        return [cue if run is None else float(run(env)) for cue, run in parts]
+        def args_of(env) -> list:
+            return list(fixed)
+    else:
+
+        def args_of(env) -> list:
+            return [cue if run is None else float(run(env)) for cue, run in parts]
 
     if func == "min":
         return lambda env: min(args_of(env))
@@ -752,6 +761,9 @@ def _compile_compare(n: Compare) -> Callable[[Env], bool]:
         left, right, compare = _compile(n.operands[0]), n.operands[1], _COMPARE[n.ops[0]]
         if isinstance(right, Const):
             b = right.value  # a checked constant: finite
+            if n.ops[0] != "!=":
+                # NaN compares false by itself under these operators
+                return lambda env: bool(compare(left(env), b))
 
             def compare_const(env) -> bool:
                 a = left(env)

@@ -56,18 +56,18 @@ def choose_cue(block: Block, sched: ScheduleState, view, rng: np.random.Generato
     """The next cue for ``block``: (cue, changed state fields, reason)."""
     pol: NextCue = block.next_cue
     changes: dict[str, Any] = {}
-    bcues = block.cues
+    in_block = block.contingency  # the block's cues, in order, as keys
     if pol.kind == "sequence":
         i = sched.trials_in_block % len(pol.sequence)
         cue = pol.sequence[i]
         why = f"cue {cue}: fixed sequence, position {i + 1} of {len(pol.sequence)}"
     elif pol.kind == "balanced":
-        queue = [c for c in sched.queue if c in bcues]
+        queue = [c for c in sched.queue if c in in_block]
         if not queue:
-            queue = mini_block(bcues, pol.repeats, pol.max_run, sched.last_cue, sched.run_len, rng)
+            queue = mini_block(block.cues, pol.repeats, pol.max_run, sched.last_cue, sched.run_len, rng)
         cue = queue.pop(0)
         changes["queue"] = tuple(queue)
-        why = (f"cue {cue}: balanced mini-block of {len(bcues) * pol.repeats} "
+        why = (f"cue {cue}: balanced mini-block of {len(in_block) * pol.repeats} "
                f"(max run {pol.max_run}), {len(queue)} left")
     elif pol.kind == "weighted":
         names = [c for c, _ in pol.weights]
@@ -80,6 +80,7 @@ def choose_cue(block: Block, sched: ScheduleState, view, rng: np.random.Generato
         cue = names[i]
         why = f"cue {cue}: weighted random (p = {fmt(p[i])})"
     elif pol.kind == "uncertain":
+        bcues = block.cues
         sds = np.array([view.value_sd(c) for c in bcues], dtype=float)
         sds = np.where(np.isfinite(sds), sds, -np.inf)
         best = np.flatnonzero(sds >= sds.max() - 1e-12)
@@ -92,7 +93,7 @@ def choose_cue(block: Block, sched: ScheduleState, view, rng: np.random.Generato
         # favour the under-chosen side: P(right-correct cue) = 1 - recent P(choose right)
         p_right = min(max(1.0 - b, 1.0 - pol.max_p), pol.max_p)
         side = "right" if rng.random() < p_right else "left"
-        pool = [c for c in bcues if cues[c].role == side]
+        pool = [c for c in in_block if cues[c].role == side]
         cue = pool[int(rng.integers(len(pool)))] if len(pool) > 1 else pool[0]
         why = (f"cue {cue}: anti-bias, recent right choices {fmt(b)} "
                f"-> P(right-side cue) = {fmt(p_right)}")
@@ -114,7 +115,7 @@ def reward_prob(policy: RewardPolicy, block: Block, cue: str, env_for_cue) -> tu
     """
     k = block.contingency[cue]
     if policy.kind == "fixed" or not k.rewarded:
-        return k.p, f"reward p = {fmt(k.p)} for {cue}: fixed by block '{block.name}'", []
+        return k.p, _fixed_reason(block, cue), []
     warnings: list[str] = []
     value, _ = evaluate(policy.certainty, env_for_cue(cue), explain=False)
     c = float(value)
@@ -129,6 +130,24 @@ def reward_prob(policy: RewardPolicy, block: Block, cue: str, env_for_cue) -> tu
     why = (f"reward p = {fmt(p)} for {cue}: thinning from {fmt(k.p)} toward floor {fmt(policy.floor)}, "
            f"certainty {policy.certainty.text} = {fmt(c)}")
     return p, why, warnings
+
+
+# The reason of a fixed probability, made once per (block, cue): (id(block), cue) ->
+# (block, text). A loaded block is a fixed value; holding it keeps its id from being
+# reused; the table is cleared when large.
+_FIXED: dict[tuple[int, str], tuple[Block, str]] = {}
+_FIXED_MAX = 1024
+
+
+def _fixed_reason(block: Block, cue: str) -> str:
+    hit = _FIXED.get((id(block), cue))
+    if hit is not None and hit[0] is block:
+        return hit[1]
+    text = f"reward p = {fmt(block.contingency[cue].p)} for {cue}: fixed by block '{block.name}'"
+    if len(_FIXED) >= _FIXED_MAX:
+        _FIXED.clear()
+    _FIXED[(id(block), cue)] = (block, text)
+    return text
 
 
 # --------------------------------------------------------------------------- staircase

@@ -74,6 +74,14 @@ class ScheduleState:
         fields_.update(changes)
         return new
 
+    def _evolved(self, changes: dict[str, Any]) -> ScheduleState:
+        """:meth:`evolve` of changes the engine made itself, whose names it knows are fields."""
+        new = object.__new__(ScheduleState)
+        fields_ = new.__dict__
+        fields_.update(self.__dict__)
+        fields_.update(changes)
+        return new
+
     def to_dict(self) -> dict[str, Any]:
         out: dict[str, Any] = {}
         for f in fields(self):

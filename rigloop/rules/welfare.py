@@ -13,7 +13,7 @@ bounds below, which no rule file can pass.
 from __future__ import annotations
 
 import math
-from collections.abc import Callable
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass, fields
 from typing import Any
 
@@ -188,9 +188,30 @@ def limit_offer(
     ``below`` is called at most once, when no limit forced the reward, so the engine
     can make the draw only when the answer depends on it.
     """
+    cue, p, ul, armed, end, overrides, warnings = limit_values(
+        limits, offer.cue, offer.reward_prob, offer.reward_ul, offer.end_session, below, session_min,
+        unrewarded_in_row, ul_session, ul_today, rewarded, rescue_ul,
+    )
+    return Offer(cue, p, ul, armed, end), overrides, warnings
+
+
+def limit_values(
+    limits: WelfareLimits,
+    cue: str | None,
+    p: float,
+    ul: float,
+    end: bool,
+    below: Callable[[float], bool],
+    session_min: float,
+    unrewarded_in_row: int,
+    ul_session: float,
+    ul_today: float,
+    rewarded: Mapping[str, float],
+    rescue_ul: float,
+) -> tuple[str | None, float, float, bool, bool, list[str], list[str]]:
+    """:func:`limit_offer` over plain values, for the engine (no Offer built or read):
+    returns (cue, p, ul, armed, end, overrides, warnings). ``rewarded`` is only read."""
     overrides: list[str] = []
-    warnings: list[str] = []
-    cue, p, ul, end = offer.cue, offer.reward_prob, offer.reward_ul, offer.end_session
     forced = False
 
     if session_min >= limits.max_session_min and not end:
@@ -235,8 +256,8 @@ def limit_offer(
     if end:
         cue, p, ul, armed = None, 0.0, 0.0, False
 
-    warnings.extend(water_warnings(limits, session_min, ul_session, ul_today, end))
-    return Offer(cue, p, ul, armed, end), overrides, warnings
+    warnings = water_warnings(limits, session_min, ul_session, ul_today, end)
+    return cue, p, ul, armed, end, overrides, warnings
 
 
 def water_warnings(limits: WelfareLimits, session_min: float, ul_session: float, ul_today: float, ended: bool) -> list[str]:

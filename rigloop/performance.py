@@ -29,6 +29,7 @@ from .errors import BadArgument
 _NORMAL = NormalDist()
 _NEWTON_MAX = 60  # safeguarded Newton converges in < 10 steps; the cap is a guard only
 _NEWTON_TOL = 1e-12
+_INF = math.inf
 
 
 # --------------------------------------------------------------------------- checks
@@ -117,8 +118,15 @@ def _filter_step(
     # and f' = 1 + v p (1 - p) >= 1: Newton inside that bracket, bisection if it leaves.
     lo, hi = (x, x + var_pred) if y else (x - var_pred, x)
     z = x
+    exp = math.exp
     for _ in range(_NEWTON_MAX):
-        p = _logistic(mu + z)
+        # p = logistic(mu + z), as _logistic computes it (inline: this loop is the hot path)
+        a = mu + z
+        if a >= 0:
+            p = 1.0 / (1.0 + exp(-a))
+        else:
+            e = exp(a)
+            p = e / (1.0 + e)
         f = z - x - var_pred * (y - p)
         if f > 0:
             hi = z
@@ -192,7 +200,8 @@ class LearningCurve:
     def interval(self, level: float = 0.95) -> tuple[float, float]:
         """Two-sided credible interval of p: logistic(mu + x -/+ z sd), z = Phi^-1((1+level)/2)."""
         z = _z_two_sided(_open_unit("level", level))
-        return _logistic(self.mu + self.x - z * self.sd), _logistic(self.mu + self.x + z * self.sd)
+        sd = math.sqrt(self.var)
+        return _logistic(self.mu + self.x - z * sd), _logistic(self.mu + self.x + z * sd)
 
     def lower(self, level: float = 0.95, one_sided: bool = True) -> float:
         """Lower credible bound of p. One-sided: z = Phi^-1(level) (1.645 at 0.95);
@@ -218,6 +227,10 @@ class LearningCurve:
 
     @classmethod
     def from_state(cls, d: Mapping[str, Any]) -> LearningCurve:
+        if type(d) is dict and d.keys() == _CURVE_KEYS:
+            curve = cls._from_plain(d)
+            if curve is not None:
+                return curve
         keys = _CURVE_KEYS
         if not isinstance(d, Mapping) or set(d) != keys:
             got = sorted(d) if isinstance(d, Mapping) else d
@@ -226,6 +239,23 @@ class LearningCurve:
         curve.x = _number("state.x", d["x"])
         curve.var = _positive("state.var", d["var"])
         curve.n = _count("state.n", d["n"])
+        return curve
+
+
+    @classmethod
+    def _from_plain(cls, d: dict[str, Any]) -> LearningCurve | None:
+        """:meth:`from_state` of a state whose values are plain floats and an int that
+        pass every check (what ``state`` gives) in one test; None for any other."""
+        chance, sigma2, var0, x, var, n = d["chance"], d["sigma2"], d["var0"], d["x"], d["var"], d["n"]
+        if not (type(chance) is float and 0.0 < chance < 1.0 and type(sigma2) is float and 0.0 < sigma2 < _INF
+                and type(var0) is float and 0.0 < var0 < _INF and type(x) is float and -_INF < x < _INF
+                and type(var) is float and 0.0 < var < _INF and type(n) is int and n >= 0):
+            return None  # NaN fails every comparison above
+        curve = object.__new__(cls)
+        curve.chance, curve.sigma2, curve.var0 = chance, sigma2, var0
+        # mu = logit(chance), as __init__ sets it
+        curve.mu = _logit(chance)
+        curve.x, curve.var, curve.n = x, var, n
         return curve
 
 

@@ -406,3 +406,28 @@ def test_credible_levels_give_the_normal_quantiles():
         z1, z2 = NormalDist().inv_cdf(level), NormalDist().inv_cdf(0.5 + level / 2.0)
         assert c.lower(level) == _logistic(c.mu + c.x - z1 * c.sd)
         assert c.interval(level) == (_logistic(c.mu + c.x - z2 * c.sd), _logistic(c.mu + c.x + z2 * c.sd))
+
+
+def test_curve_from_plain_state_equals_the_checked_path():
+    """from_state of a plain dict (one combined test) gives what the checked path gives
+    (reached here through a read-only mapping), values and errors alike."""
+    from types import MappingProxyType
+
+    good = LearningCurve(0.5, 0.05)
+    for y in (1, 1, 0, 1):
+        good.update(y)
+    base = good.state()
+    variants = [{}, {"chance": 0.25}, {"n": 0}, {"x": -0.0}, {"chance": 1}, {"x": math.nan}, {"var": -1.0},
+                {"var": math.inf}, {"n": True}, {"n": -1}, {"sigma2": np.float64(0.05)}, {"chance": 1.0},
+                {"var0": 0.0}, {"n": np.int64(3)}, {"x": 3}]
+    for change in variants:
+        d = {**base, **change}
+        outcomes = []
+        for arg in (d, MappingProxyType(d)):
+            try:
+                c = LearningCurve.from_state(arg)
+                outcomes.append(("ok", repr((c.chance, c.sigma2, c.var0, c.mu, c.x, c.var, c.n)),
+                                 tuple(type(v) for v in (c.chance, c.x, c.var, c.n))))
+            except BadArgument as err:
+                outcomes.append(("error", str(err)))
+        assert outcomes[0] == outcomes[1], change

@@ -175,7 +175,7 @@ class Representation:
     decay: float | None = None
     # binned layout -> (X, r, onset steps); see _timed_rows
     _layouts: dict = field(default_factory=dict, init=False, repr=False, compare=False, hash=False)
-    # cue -> its read-only onset row; see _onset
+    # cue -> (its read-only onset row, the feature it has on); see _onset_entry
     _onsets: dict = field(default_factory=dict, init=False, repr=False, compare=False, hash=False)
 
     def __getstate__(self) -> tuple:
@@ -211,17 +211,24 @@ class Representation:
 
         ``onset_row(cue) @ w`` is the cue's value at onset; ``x @ P @ x`` its variance.
         """
-        i = self.cues.index(cue)
         x = np.zeros(self.n_features)
-        x[i * self.n_bins if self.kind == "serial_compound" else i] = 1.0
+        x[self._onset_column(self.cues.index(cue))] = 1.0
         return x
+
+    def _onset_column(self, i: int) -> int:
+        """The feature an onset row of cue block ``i`` has on."""
+        return i * self.n_bins if self.kind == "serial_compound" else i
 
     def _onset(self, cue: str) -> np.ndarray:
         """:meth:`onset_row` as a shared read-only array (one per cue), for the hot path."""
-        x = self._onsets.get(cue)
-        if x is None:
-            x = self._onsets[cue] = _locked(self.onset_row(cue))
-        return x
+        return self._onset_entry(cue)[0]
+
+    def _onset_entry(self, cue: str) -> tuple[np.ndarray, int]:
+        """(:meth:`_onset`, the feature it has on) of ``cue``, made once per cue."""
+        hit = self._onsets.get(cue)
+        if hit is None:
+            hit = self._onsets[cue] = (_locked(self.onset_row(cue)), self._onset_column(self.cues.index(cue)))
+        return hit
 
     # -- trial -> rows ---------------------------------------------------------
 

@@ -110,14 +110,19 @@ def _decide(subject: str, ctx: SessionContext, rules, rep, learner, curves, sche
     if fresh_curves:
         view._hold_curves(fresh_curves)
     schedule, plan = rules.decide(schedule, view, next_trial, _LazyTrialRng(ctx.seed, next_trial))
-    kwargs = plan.as_kwargs()
+    warnings = plan.warnings
     if extra_warnings:
-        kwargs["warnings"] = tuple(extra_warnings) + tuple(kwargs.get("warnings", ()))
+        warnings = tuple(extra_warnings) + tuple(warnings)
     valve_ms = None
-    if ctx.valve is not None and kwargs["reward_ul"] > 0:
+    if ctx.valve is not None and plan.reward_ul > 0:
         slope, offset = ctx.valve
-        valve_ms = max(0.0, slope * kwargs["reward_ul"] + offset)
-    decision = Decision(subject=subject, session=ctx.session, trial=next_trial, valve_ms=valve_ms, **kwargs)
+        valve_ms = max(0.0, slope * plan.reward_ul + offset)
+    decision = Decision(
+        subject=subject, session=ctx.session, trial=next_trial, cue=plan.cue, reward_prob=plan.reward_prob,
+        reward_ul=plan.reward_ul, reward_armed=plan.reward_armed, block=plan.block, stage=plan.stage,
+        end_session=plan.end_session, difficulty=plan.difficulty, valve_ms=valve_ms, reasons=plan.reasons,
+        overrides=plan.overrides, warnings=warnings,
+    )
     return schedule, decision
 
 
@@ -213,17 +218,20 @@ def step(state: SubjectState, event: TrialEvent, rules) -> tuple[SubjectState, D
         raise BadEvent("session", f"is not the subject's open session {ctx.session!r}", event.session)
     if ctx.rules_sha256 != rules.sha256:
         raise BadEvent("session", "was opened with a different rule file than the one given", event.session)
-    event.check_context(known_cues=rules.cues, last_trial=state.last_trial)
+    spec = rules.spec
+    event.check_context(known_cues=spec.cues, last_trial=state.last_trial)
 
     rep = representation_for(rules)
     cue_ids = event.cue_ids
 
     # value and sd of each presented cue at its onset, before this trial's learning
     quantities: dict[str, float | None] = {}
-    for cue in cue_ids:
-        mean, var = state.learner._predict(rep._onset(cue))
-        quantities[f"value[{cue}]"] = float(mean)
-        quantities[f"sd[{cue}]"] = math.sqrt(max(float(var), 0.0))
+    if cue_ids:
+        read = state.learner._onset_reader()
+        for cue in cue_ids:
+            mean, var = read(*rep._onset_entry(cue))
+            quantities[f"value[{cue}]"] = float(mean)
+            quantities[f"sd[{cue}]"] = math.sqrt(max(float(var), 0.0))
 
     rows = rep._event_rows(event, rules.reward_unit_ul)
     # the learner after this trial: a new one, the state's own stays as it was

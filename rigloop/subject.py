@@ -236,7 +236,7 @@ class ModelView:
     costs one small quadratic form.
     """
 
-    __slots__ = ("_learner", "_rep", "_curves", "_chance", "_sigma2", "_cache")
+    __slots__ = ("_learner", "_rep", "_curves", "_chance", "_sigma2", "_values", "_held", "_read")
 
     def __init__(self, learner, rep, curves: Mapping[str, Mapping[str, Any]], chance: float, sigma2: float):
         self._learner = learner
@@ -244,20 +244,23 @@ class ModelView:
         self._curves = curves
         self._chance = chance
         self._sigma2 = sigma2
-        self._cache: dict[tuple, Any] = {}
+        self._values: dict[str, tuple[float, float]] = {}  # cue -> (mean, sd)
+        self._held: dict[str, LearningCurve] = {}  # condition -> its curve
+        self._read = None  # the learner's onset reader, made on first use
 
     def _hold_curves(self, curves: Mapping[str, LearningCurve]) -> None:
         """Use these curves (equal to the ones their states give) instead of rebuilding them."""
-        for cond, curve in curves.items():
-            self._cache[("c", cond)] = curve
+        self._held.update(curves)
 
     def _value(self, cue: str) -> tuple[float, float]:
-        key = ("v", cue)
-        hit = self._cache.get(key)
+        hit = self._values.get(cue)
         if hit is None:
-            mean, var = self._learner._predict(self._rep._onset(cue))
+            read = self._read
+            if read is None:
+                read = self._read = self._learner._onset_reader()
+            mean, var = read(*self._rep._onset_entry(cue))
             hit = (float(mean), math.sqrt(max(float(var), 0.0)))
-            self._cache[key] = hit
+            self._values[cue] = hit
         return hit
 
     def value_mean(self, cue: str) -> float:
@@ -274,12 +277,11 @@ class ModelView:
         return 0.5 * math.erfc((threshold - mean) / (sd * math.sqrt(2.0)))
 
     def _curve(self, cond: str) -> LearningCurve:
-        key = ("c", cond)
-        hit = self._cache.get(key)
+        hit = self._held.get(cond)
         if hit is None:
             data = self._curves.get(cond)
             hit = LearningCurve(self._chance, self._sigma2) if data is None else LearningCurve.from_state(data)
-            self._cache[key] = hit
+            self._held[cond] = hit
         return hit
 
     def p_correct(self, cond: str) -> float:

@@ -282,3 +282,32 @@ def test_learned_copy_equals_learning_in_place_and_leaves_the_original(name):
         for key, value_before in before.items():
             assert np.asarray(learner.state()[key]).tobytes() == np.asarray(value_before).tobytes()
         learner = got_learner
+
+
+@pytest.mark.parametrize("name", sorted(LEARNERS))
+def test_onset_reader_equals_predict_bit_for_bit(name):
+    """_onset_reader()(e_i, i) gives what _predict(e_i) gives, for states with zeros,
+    negative zeros, huge, infinite and NaN entries (the reader's shortcut must not show)."""
+    rng = np.random.default_rng(21)
+    n = 5
+    for k in range(40):
+        learner = make_learner(name, n)
+        w = rng.normal(size=n) * 10.0 ** rng.integers(-3, 300)
+        w[rng.random(n) < 0.3] = 0.0
+        w[rng.random(n) < 0.2] = -0.0
+        if k % 4 == 1:
+            w[rng.integers(n)] = rng.choice([np.inf, -np.inf, np.nan])
+        learner._w[...] = w
+        if learner.bayesian:
+            cov = np.diag(rng.random(n))
+            cov[rng.random((n, n)) < 0.1] = 0.0
+            if k % 4 == 2:
+                cov[rng.integers(n), rng.integers(n)] = rng.choice([np.inf, np.nan, 1e308])
+            learner._P[...] = cov
+        read = learner._onset_reader()
+        for i in range(n):
+            x = np.zeros(n)
+            x[i] = 1.0
+            got, want = read(x, i), learner._predict(x)
+            assert np.array(got).tobytes() == np.array(want).tobytes()
+            assert [type(v) for v in got] == [type(v) for v in want]

@@ -12,6 +12,7 @@ from __future__ import annotations
 import math
 import numbers
 from dataclasses import dataclass
+from collections.abc import Callable
 from typing import Any, ClassVar
 
 import numpy as np
@@ -337,6 +338,12 @@ class Learner:
     def _predict(self, x: np.ndarray) -> tuple[float, float]:
         """:meth:`predict` of a row already known to be a finite float64 (n,) array."""
         return float(x @ self._w), 0.0
+
+    def _onset_reader(self) -> Callable[[np.ndarray, int], tuple[float, float]]:
+        """A function (x, i) -> :meth:`_predict` of x, a one-hot row with feature i on,
+        for reading several cues' onset values in this state (the rules' view, ``step``)."""
+        predict = self._predict
+        return lambda x, i: predict(x)
 
     def params(self) -> dict[str, Any]:  # pragma: no cover - abstract
         raise NotImplementedError

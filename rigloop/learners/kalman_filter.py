@@ -117,6 +117,30 @@ class _Gaussian(Learner):
         # (xᵀŵ, xᵀΣx)
         return float(x @ self._w), float(x @ (self._P @ x))
 
+    def _finite(self) -> bool:
+        # a sum is finite only if every entry is (an overflow merely says no)
+        return math.isfinite(np.add.reduce(self._A, None))
+
+    def _onset_reader(self):
+        """:meth:`Learner._onset_reader`, reading ŵ_i and Σ_ii where they are the answer.
+
+        With ŵ and Σ finite, e_iᵀŵ = ŵ_i and e_iᵀΣe_i = Σ_ii exactly when these are
+        nonzero: every other product is ±0, and adding ±0 to a nonzero number leaves it
+        as it is, in whatever order the sum runs. A zero (whose sign that order decides)
+        takes the products."""
+        if not self._finite():
+            return super()._onset_reader()
+        w, diag, predict = self._w, self._diag, self._predict
+
+        def read(x: np.ndarray, i: int) -> tuple[float, float]:
+            # (xᵀŵ, xᵀΣx) = (ŵ_i, Σ_ii) for x = e_i
+            mean, var = w.item(i), diag.item(i)
+            if mean != 0.0 and var != 0.0:
+                return mean, var
+            return predict(x)
+
+        return read
+
     def _observe(self, h: np.ndarray, r: float) -> float:
         """Diffuse, then correct on r = hᵀw + ε, in place; returns δ (nan: nothing changed).
 

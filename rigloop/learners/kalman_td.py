@@ -106,7 +106,7 @@ class KalmanTD(_Gaussian):
         start = self._A.copy()
         rows = _rows_of(X, self._gamma)
         result = self._trial(rows, r, finite=True)
-        if not self._finite():
+        if not self._finite():  # (or its sum overflowed: the full path is right either way)
             self._A[...] = start
             result = self._trial(rows, r, finite=False)
         return result
@@ -124,10 +124,6 @@ class KalmanTD(_Gaussian):
             new = self.copy()
             result = new._trial(rows, r, finite=False)
         return new, result
-
-    def _finite(self) -> bool:
-        # a sum is finite only if every entry is (an overflow merely takes the full path)
-        return math.isfinite(np.add.reduce(self._A, None))
 
     def _trial(self, rows: _TrialRows, r: np.ndarray, finite: bool) -> TrialResult:
         """The trial's updates; ``finite``: take ŵ and Σ to be finite throughout."""

@@ -56,6 +56,7 @@ from __future__ import annotations
 import math
 from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass, field
+from types import MappingProxyType
 from typing import Any
 
 import numpy as np
@@ -121,7 +122,8 @@ class TrialRows:
 
     X: (T, n) feature rows (T = 1 for ``identity``); read-only.
     r: (T,) rewards, ``r[t]`` received on the transition from row t to row t+1; read-only.
-    onset_steps: cue -> index of the row at its onset (cues present in the trial only).
+    onset_steps: cue -> index of the row at its onset (cues present in the trial only); a
+    dict of its own, or a read-only mapping in the rows kept for ``step``.
     """
 
     X: np.ndarray
@@ -145,16 +147,6 @@ def _finite(name: str, value: Any, *, minimum: float | None = None) -> float:
         expected = "a finite number" if minimum is None else f"a finite number >= {minimum:g}"
         raise BadArgument(name, expected, value)
     return value
-
-
-def _bin(t: float, dt: float) -> int:
-    # floor(t/dt + eps): the bin an event at time t falls in
-    return math.floor(t / dt + _EPS)
-
-
-def _end_bin(offset: float, dt: float) -> int:
-    # ceil(offset/dt - eps): first bin the cue no longer covers
-    return math.ceil(offset / dt - _EPS)
 
 
 # --------------------------------------------------------------------------- representation
@@ -261,10 +253,21 @@ class Representation:
         return self._timed_rows(cols, onsets, offsets, times, amounts, duration)
 
     def _identity_rows(self, cols: list[int], amounts: list[float]) -> TrialRows:
-        X = np.zeros((1, self.n_features))
-        X[0, cols] = 1.0
-        r = np.array([math.fsum(amounts)])
-        return _frozen(X, r, {self.cues.cues[c]: 0 for c in sorted(cols)})
+        kept = self._identity_kept(cols, amounts)
+        return TrialRows(kept.X, kept.r, dict(kept.onset_steps))
+
+    def _identity_kept(self, cols: list[int], amounts: list[float]) -> TrialRows:
+        """The kept rows of an identity trial: they depend only on its cues and the sum of
+        its amounts (its sign too, which tells -0.0 from 0.0)."""
+        total = math.fsum(amounts)
+        key = (tuple(sorted(cols)), total, math.copysign(1.0, total))
+        hit = self._layouts.get(key)
+        if hit is None:
+            X = np.zeros((1, self.n_features))
+            X[0, cols] = 1.0
+            r = np.array([total])
+            hit = self._keep(key, X, r, tuple((self.cues.cues[c], 0) for c in key[0]))
+        return hit
 
     def _timed_rows(
         self,
@@ -280,32 +283,58 @@ class Representation:
         The rows depend on the times only through their bins, so jittered times that
         bin alike share one entry of a small per-representation cache.
         """
+        kept = self._timed_kept(cols, onsets, offsets, times, amounts, duration)
+        return TrialRows(kept.X, kept.r, dict(kept.onset_steps))
+
+    def _timed_kept(
+        self,
+        cols: list[int],
+        onsets: list[float],
+        offsets: list[float],
+        times: list[float],
+        amounts: list[float],
+        duration: float,
+    ) -> TrialRows:
+        """:meth:`_timed_rows` as the kept value itself (its onset steps read-only)."""
         dt = self.dt
         if duration / dt > MAX_STEPS:
             expected = f"at most {MAX_STEPS} bins of dt = {dt:g} s long"
             raise BadArgument("duration", expected, duration)
-        on = [_bin(t, dt) for t in onsets]
-        end = [max(_end_bin(t, dt), b + 1) for t, b in zip(offsets, on, strict=True)]
-        T = max(1, math.ceil(duration / dt - _EPS), max(end, default=0))
+        # onset bin floor(t/dt + eps); end bin max(ceil(offset/dt - eps), onset bin + 1)
+        floor, ceil = math.floor, math.ceil
+        cues = []
+        last_end = 0
+        for col, onset, offset in zip(cols, onsets, offsets, strict=True):
+            on = floor(onset / dt + _EPS)
+            end = max(ceil(offset / dt - _EPS), on + 1)
+            cues.append((col, on, end))
+            if end > last_end:
+                last_end = end
+        T = max(1, ceil(duration / dt - _EPS), last_end)
         # outcome at tau in bin b is received on the transition b-1 -> b: r[clip(b - 1, 0, T - 1)]
-        slots = [min(max(_bin(t, dt) - 1, 0), T - 1) for t in times]
+        slots = [min(max(floor(t / dt + _EPS) - 1, 0), T - 1) for t in times]
         # cues in cue-list order, whatever the presentation order; outcomes in the given
         # order (it is the order their amounts are summed in)
-        layout = (tuple(sorted(zip(cols, on, end, strict=True))), tuple(zip(slots, amounts, strict=True)), T)
+        cues.sort()
+        layout = (tuple(cues), tuple(zip(slots, amounts, strict=True)), T)
         hit = self._layouts.get(layout)
         if hit is None:
-            hit = self._build_rows(*layout)
-            if len(self._layouts) >= _LAYOUTS_MAX:
-                self._layouts.clear()
-            self._layouts[layout] = hit
-        X, r, onset_steps = hit
-        return TrialRows(X, r, dict(onset_steps))
+            hit = self._keep(layout, *self._build_rows(*layout))
+        return hit
+
+    def _keep(self, key: tuple, X: np.ndarray, r: np.ndarray, onset_steps: tuple[tuple[str, int], ...]) -> TrialRows:
+        """Keep the rows of one layout (bounded): arrays locked, onset steps read-only."""
+        kept = TrialRows(_locked(X), _locked(r), MappingProxyType(dict(onset_steps)))
+        if len(self._layouts) >= _LAYOUTS_MAX:
+            self._layouts.clear()
+        self._layouts[key] = kept
+        return kept
 
     def _build_rows(
         self, cues: tuple[tuple[int, int, int], ...], outcomes: tuple[tuple[int, float], ...], T: int
     ) -> tuple[np.ndarray, np.ndarray, tuple[tuple[str, int], ...]]:
         """X, r and the onset steps of one binned layout: cues ``(column block, onset bin,
-        end bin)`` sorted by block, outcomes ``(row of r, amount)``; arrays read-only."""
+        end bin)`` sorted by block, outcomes ``(row of r, amount)``."""
         cols = np.array([c for c, _, _ in cues], dtype=np.intp)
         on = np.array([b for _, b, _ in cues], dtype=np.intp)
         end = np.array([e for _, _, e in cues], dtype=np.intp)
@@ -331,7 +360,7 @@ class Representation:
         if outcomes:
             np.add.at(r, np.array([k for k, _ in outcomes], dtype=np.intp), np.array([a for _, a in outcomes]))
         onset_steps = tuple((self.cues.cues[c], b) for c, b, _ in cues)
-        return _locked(X), _locked(r), onset_steps
+        return X, r, onset_steps
 
     def event_rows(self, event: Any) -> TrialRows:
         """Rows of a :class:`rigloop.trial.TrialEvent` (its cues, reward and duration)."""
@@ -345,21 +374,20 @@ class Representation:
         its onset, the duration covering every event), so only what it cannot know is
         checked here: that its cues are columns of this representation, that its
         scaled reward is finite, and (for timed kinds) that the trial is not too long.
+        The rows it returns are the kept value itself (onset steps read-only).
         """
         index = self.cues.index
         cols = [index(c.cue) for c in event.cues]
-        times: list[float] = []
-        amounts: list[float] = []
-        for t, amount in event.outcome_events():
-            times.append(t)
-            amounts.append(amount / reward_unit)
-        if not all(math.isfinite(a) for a in amounts):
+        outcomes = event.outcome_events()
+        times = [t for t, _ in outcomes]
+        amounts = [amount / reward_unit for _, amount in outcomes]
+        if not all(map(math.isfinite, amounts)):
             return self.rows([(c.cue, c.onset, c.offset) for c in event.cues], list(zip(times, amounts)), event.duration)
         if self.kind == "identity":
-            return self._identity_rows(cols, amounts)
+            return self._identity_kept(cols, amounts)
         onsets = [c.onset for c in event.cues]
         offsets = [c.offset for c in event.cues]
-        return self._timed_rows(cols, onsets, offsets, times, amounts, event.duration)
+        return self._timed_kept(cols, onsets, offsets, times, amounts, event.duration)
 
     def _check_cues(
         self, cues: Sequence[tuple[str, float, float]]
@@ -404,10 +432,6 @@ def _locked(a: np.ndarray) -> np.ndarray:
     view = a.view()
     view.setflags(write=False)
     return view
-
-
-def _frozen(X: np.ndarray, r: np.ndarray, onset_steps: dict[str, int]) -> TrialRows:
-    return TrialRows(_locked(X), _locked(r), onset_steps)
 
 
 def make_representation(

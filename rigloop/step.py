@@ -99,14 +99,15 @@ class _LazyTrialRng:
 
 
 def _decide(subject: str, ctx: SessionContext, rules, rep, learner, curves, schedule, next_trial: int,
-            extra_warnings=(), fresh_curves=None):
+            extra_warnings=(), fresh_curves=None, finite=None):
     """The rules' decision about ``next_trial``, as a Decision (valve time included).
 
     ``fresh_curves`` are LearningCurve objects this step already holds for some
-    conditions (equal to ``curves``' entries), so the view need not rebuild them.
+    conditions (equal to ``curves``' entries), so the view need not rebuild them;
+    ``finite``: whether the learner's state is known to be finite.
     """
     perf = rules.performance
-    view = ModelView(learner, rep, curves, perf.chance, perf.sigma2)
+    view = ModelView(learner, rep, curves, perf.chance, perf.sigma2, finite)
     if fresh_curves:
         view._hold_curves(fresh_curves)
     schedule, plan = rules.decide(schedule, view, next_trial, _LazyTrialRng(ctx.seed, next_trial))
@@ -177,8 +178,8 @@ def _scored(event: TrialEvent) -> bool | None:
     return None
 
 
-def _delta_at(errors: np.ndarray, step: int) -> float:
-    return float(errors[min(max(step, 0), len(errors) - 1)])
+def _delta_at(errors: list[float], step: int) -> float:
+    return errors[min(max(step, 0), len(errors) - 1)]
 
 
 def _surprise(errors: np.ndarray, variances: np.ndarray, noise: float) -> float | None:
@@ -191,8 +192,10 @@ def _surprise(errors: np.ndarray, variances: np.ndarray, noise: float) -> float 
     reduction decides which NaN comes out.
     """
     best = None
+    sqrt = math.sqrt
     for delta, var in zip(errors.tolist(), variances.tolist(), strict=True):
-        sd = math.sqrt(max(var, 0.0) + noise)
+        # max(var, 0.0) spelt out (var unless 0.0 > var, so NaN and -0.0 stay)
+        sd = sqrt((0.0 if 0.0 > var else var) + noise)
         q = abs(delta) / (sd if sd > 0 else 1.0)
         if best is None or q > best or q != q:
             best = q
@@ -226,29 +229,30 @@ def step(state: SubjectState, event: TrialEvent, rules) -> tuple[SubjectState, D
 
     # value and sd of each presented cue at its onset, before this trial's learning
     quantities: dict[str, float | None] = {}
+    rows = rep._event_rows(event, rules.reward_unit_ul)
+    # the learner after this trial: a new one, the state's own stays as it was
+    learner, result, finite = state.learner._learned(rows.X, rows.r)
     if cue_ids:
-        read = state.learner._onset_reader()
+        read = state.learner._onset_reader(finite)
         for cue in cue_ids:
             mean, var = read(*rep._onset_entry(cue))
             quantities[f"value[{cue}]"] = float(mean)
             quantities[f"sd[{cue}]"] = math.sqrt(max(float(var), 0.0))
-
-    rows = rep._event_rows(event, rules.reward_unit_ul)
-    # the learner after this trial: a new one, the state's own stays as it was
-    learner, result = state.learner._learned(rows.X, rows.r)
     values, errors = result.values, result.errors
 
     if rep.timed:
-        first = event.cues[0].cue if event.cues else None
-        onset = rows.onset_steps.get(first, 0) if first else 0
+        errs = errors.tolist()
+        cues = event.cues
+        onset = rows.onset_steps.get(cues[0].cue, 0) if cues else 0
         gamma = float(getattr(learner, "gamma", 1.0))
         # the error on entering the onset step: from the step before, or from the ITI (value 0)
-        quantities["delta_cue"] = _delta_at(errors, onset - 1) if onset > 0 else gamma * float(values[0])
-        due = event.outcome.reward_time if event.outcome.rewarded else (max(c.offset for c in event.cues) if event.cues else None)
+        quantities["delta_cue"] = _delta_at(errs, onset - 1) if onset > 0 else gamma * values.item(0)
+        outcome = event.outcome
+        due = outcome.reward_time if outcome.rewarded else (max(c.offset for c in cues) if cues else None)
         if due is None:
             quantities["delta_outcome"] = None
         else:
-            quantities["delta_outcome"] = _delta_at(errors, int(math.floor(due / rep.dt + 1e-9)) - 1)
+            quantities["delta_outcome"] = _delta_at(errs, int(math.floor(due / rep.dt + 1e-9)) - 1)
     else:
         quantities["delta_cue"] = float(values[0]) if len(values) else None
         quantities["delta_outcome"] = float(errors[0]) if len(errors) else None
@@ -260,9 +264,10 @@ def step(state: SubjectState, event: TrialEvent, rules) -> tuple[SubjectState, D
     curves = dict(state.curves)
     fresh: dict[str, LearningCurve] = {}
     if scored is not None:
-        chance, sigma2 = rules.performance.chance, rules.performance.sigma2
+        perf = spec.performance
         for cond in (ALL, *cue_ids):
-            curve = state.curve(cond, chance, sigma2)
+            data = state.curves.get(cond)
+            curve = LearningCurve(perf.chance, perf.sigma2) if data is None else LearningCurve.from_state(data)
             curve.update(scored)
             curves[cond] = curve.state()
             fresh[cond] = curve
@@ -271,11 +276,12 @@ def step(state: SubjectState, event: TrialEvent, rules) -> tuple[SubjectState, D
         all_curve = LearningCurve.from_state(curves[ALL])
     if all_curve is not None:
         lo, hi = all_curve.interval(0.95)
-        quantities.update({"p_correct": float(all_curve.p()), "p_lo95": float(lo), "p_hi95": float(hi)})
+        quantities["p_correct"] = all_curve.p()
+        quantities["p_lo95"], quantities["p_hi95"] = lo, hi
 
     schedule = rules.observe(state.schedule, event)
     schedule, decision = _decide(state.subject, ctx, rules, rep, learner, curves, schedule, event.trial + 1,
-                                 fresh_curves=fresh)
+                                 fresh_curves=fresh, finite=finite)
     next_state = SubjectState(
         subject=state.subject, learner=learner, learner_key=state.learner_key, curves=curves, schedule=schedule,
         context=ctx, last_trial=event.trial, trials_total=state.trials_total + 1, notes=state.notes,

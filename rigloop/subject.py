@@ -236,10 +236,13 @@ class ModelView:
     costs one small quadratic form.
     """
 
-    __slots__ = ("_learner", "_rep", "_curves", "_chance", "_sigma2", "_values", "_held", "_read")
+    __slots__ = ("_learner", "_rep", "_curves", "_chance", "_sigma2", "_values", "_held", "_read", "_finite")
 
-    def __init__(self, learner, rep, curves: Mapping[str, Mapping[str, Any]], chance: float, sigma2: float):
+    def __init__(self, learner, rep, curves: Mapping[str, Mapping[str, Any]], chance: float, sigma2: float,
+                 finite: bool | None = None):
+        """``finite``: whether every entry of the learner's state is finite, if known."""
         self._learner = learner
+        self._finite = finite
         self._rep = rep
         self._curves = curves
         self._chance = chance
@@ -257,7 +260,7 @@ class ModelView:
         if hit is None:
             read = self._read
             if read is None:
-                read = self._read = self._learner._onset_reader()
+                read = self._read = self._learner._onset_reader(self._finite)
             mean, var = read(*self._rep._onset_entry(cue))
             hit = (float(mean), math.sqrt(max(float(var), 0.0)))
             self._values[cue] = hit

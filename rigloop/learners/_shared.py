@@ -306,11 +306,12 @@ class Learner:
         new._allocate(self)
         return new
 
-    def _learned(self, X: np.ndarray, r: np.ndarray) -> tuple[Learner, TrialResult]:
-        """A copy of this learner after ``_learn(X, r)`` (rows already checked), and the
-        trial's result; this learner stays as it was. ``step``'s one learning call."""
+    def _learned(self, X: np.ndarray, r: np.ndarray) -> tuple[Learner, TrialResult, bool | None]:
+        """A copy of this learner after ``_learn(X, r)`` (rows already checked), the
+        trial's result, and whether this state and the new one are finite (None: not
+        known); this learner stays as it was. ``step``'s one learning call."""
         new = self.copy()
-        return new, new._learn(X, r)
+        return new, new._learn(X, r), None
 
     def _copy_params(self, new) -> None:  # pragma: no cover - abstract
         """Set ``new``'s parameters to this learner's (checked values, not re-checked)."""
@@ -339,9 +340,10 @@ class Learner:
         """:meth:`predict` of a row already known to be a finite float64 (n,) array."""
         return float(x @ self._w), 0.0
 
-    def _onset_reader(self) -> Callable[[np.ndarray, int], tuple[float, float]]:
+    def _onset_reader(self, finite: bool | None = None) -> Callable[[np.ndarray, int], tuple[float, float]]:
         """A function (x, i) -> :meth:`_predict` of x, a one-hot row with feature i on,
-        for reading several cues' onset values in this state (the rules' view, ``step``)."""
+        for reading several cues' onset values in this state (the rules' view, ``step``).
+        ``finite``: whether every entry of the state is finite, if already known."""
         predict = self._predict
         return lambda x, i: predict(x)
 

@@ -72,7 +72,6 @@ class _Gaussian(Learner):
     def _allocate(self, source: _Gaussian | None) -> None:
         n = self._n
         self._shape = (n,)
-        self._tmp = np.empty(n)
         self._A = np.zeros((n + 1, n)) if source is None else source._A.copy()
         self._P = self._A[:n]
         self._w = self._A[n]
@@ -83,6 +82,8 @@ class _Gaussian(Learner):
         self._q_col = self._q.reshape(n + 1, 1)
         self._u_row = self._u.reshape(1, n)
         self._M = np.empty((n + 1, n))
+        # Σx of a variance is used before the next correction writes u, so u holds it
+        self._tmp = self._u
 
     def _copy_params(self, new) -> None:
         new._tau2, new._noise, new._c = self._tau2, self._noise, self._c
@@ -121,14 +122,14 @@ class _Gaussian(Learner):
         # a sum is finite only if every entry is (an overflow merely says no)
         return math.isfinite(np.add.reduce(self._A, None))
 
-    def _onset_reader(self):
+    def _onset_reader(self, finite: bool | None = None):
         """:meth:`Learner._onset_reader`, reading ŵ_i and Σ_ii where they are the answer.
 
         With ŵ and Σ finite, e_iᵀŵ = ŵ_i and e_iᵀΣe_i = Σ_ii exactly when these are
         nonzero: every other product is ±0, and adding ±0 to a nonzero number leaves it
         as it is, in whatever order the sum runs. A zero (whose sign that order decides)
         takes the products."""
-        if not self._finite():
+        if not (self._finite() if finite is None else finite):
             return super()._onset_reader()
         w, diag, predict = self._w, self._diag, self._predict
 

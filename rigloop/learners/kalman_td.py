@@ -52,7 +52,7 @@ class KalmanTD(_Gaussian):
 
     def _allocate(self, source: KalmanTD | None) -> None:
         super()._allocate(source)
-        self._h = np.empty(self._n)
+        self._h = None  # update's scratch row, made on its first use
         self._zero = sh.constant(np.zeros(self._n)) if source is None else source._zero
 
     def _copy_params(self, new) -> None:
@@ -79,6 +79,8 @@ class KalmanTD(_Gaussian):
         if type(r) is not float:
             r = sh.scalar_reward(r)
         h = self._h
+        if h is None:
+            h = self._h = np.empty(self._n)
         # h = x − γx'
         np.multiply(x_next, self._gamma_0d, h)
         np.subtract(x, h, h)
@@ -111,32 +113,32 @@ class KalmanTD(_Gaussian):
             result = self._trial(rows, r, finite=False)
         return result
 
-    def _learned(self, X: np.ndarray, r: np.ndarray) -> tuple[KalmanTD, TrialResult]:
-        """A copy of this learner after :meth:`_learn` of the rows, and the trial's result.
+    def _learned(self, X: np.ndarray, r: np.ndarray) -> tuple[KalmanTD, TrialResult, bool | None]:
+        """:meth:`Learner._learned`: the same two passes as ``_learn``, each on a fresh copy.
 
-        The same two passes as ``_learn``, each on a fresh copy: this learner stays as
-        it was, so it is the starting state to go back to, and ``step`` needs no copy
-        of its own."""
+        This learner stays as it was, so it is the starting state to go back to, and
+        ``step`` needs no copy of its own. A state finite after the first pass was finite
+        before it too (see ``_learn``), so then both are known to be finite."""
         rows = _rows_of(X, self._gamma)
         new = self.copy()
         result = new._trial(rows, r, finite=True)
-        if not new._finite():
-            new = self.copy()
-            result = new._trial(rows, r, finite=False)
-        return new, result
+        if new._finite():
+            return new, result, True
+        new = self.copy()
+        return new, new._trial(rows, r, finite=False), None
 
     def _trial(self, rows: _TrialRows, r: np.ndarray, finite: bool) -> TrialResult:
         """The trial's updates; ``finite``: take ŵ and Σ to be finite throughout."""
         xs, hs, represented = rows.xs, rows.hs, rows.represented
         T = len(xs)
-        out = np.empty((3, T))
+        out = np.zeros((3, T))
         values, errors, variances = out
         rewards = r.tolist()
         w, tmp, P, gamma = self._w, self._tmp, self._P, self._gamma
         for t in range(T):
             if finite and not represented[t]:
-                # x = 0: xᵀŵ = xᵀΣx = 0, and x'ᵀŵ = 0 if x' is featureless too
-                values[t] = variances[t] = 0.0
+                # x = 0: xᵀŵ = xᵀΣx = 0 (as values and variances start), and x'ᵀŵ = 0
+                # if x' is featureless too
                 v_next = float(xs[t + 1] @ w) if represented[t + 1] else 0.0
                 errors[t] = rewards[t] + gamma * v_next
                 continue

@@ -24,7 +24,7 @@ import numpy as np
 
 from ..performance import dprime as _dprime
 from ..performance import sprt_bounds
-from .expr import Env, explain_if, fmt
+from .expr import Env, compiled, evaluate, explain_if, fmt
 from .model import Block, Spec, Stage
 from .policies import choose_cue, reward_prob, staircase_step
 from .state import ScheduleState
@@ -262,12 +262,13 @@ def decide(spec: Spec, sched: ScheduleState, view, next_trial: int,
 
     end = False
     env = ScheduleEnv(sched, view, spec.stages[sched.stage].blocks[sched.block])
-    for crit in spec.session_end:
-        hit, seen = explain_if(crit.when, env)
-        if hit:
-            end = True
-            reasons.append(f"session ends ({crit.name}): {'; '.join(seen)}")
-            break
+    for crit, holds in _session_end_tests(spec):
+        if holds(env):  # explain_if, its test made ready
+            hit, seen = evaluate(crit.when, env)
+            if hit:
+                end = True
+                reasons.append(f"session ends ({crit.name}): {'; '.join(seen)}")
+                break
 
     if not end:
         sched = _moves(spec, sched, env, reasons)
@@ -328,10 +329,10 @@ def _moves(spec: Spec, sched: ScheduleState, env: ScheduleEnv, reasons: list[str
     ``env`` reads ``sched`` and its block."""
     stage = spec.stages[sched.stage]
     block = env.block
-    for move, verb in ((stage.step_back, "steps back"), (stage.advance, "advances")):
-        if move is None:
+    for move, verb, holds in _move_tests(stage):
+        if not holds(env):  # explain_if, its test made ready
             continue
-        hit, seen = explain_if(move.when, env)
+        hit, seen = evaluate(move.when, env)
         if hit:
             reasons.append(f"stage '{stage.name}' {verb} to '{move.to}': {'; '.join(seen)} "
                            f"after {sched.trials_in_stage} trials in the stage")
@@ -371,6 +372,18 @@ def _derived(obj: Any, what: str, make) -> Any:
         _DERIVED.clear()
     _DERIVED[key] = (obj, value)
     return value
+
+
+def _session_end_tests(spec: Spec) -> tuple:
+    """(criterion, its compiled test) for each session-end criterion, in order."""
+    return _derived(spec, "session_end", lambda sp: tuple((c, compiled(c.when)) for c in sp.session_end))
+
+
+def _move_tests(stage: Stage) -> tuple:
+    """(move, verb, its compiled test) for the stage's step back, then its advance."""
+    return _derived(stage, "moves", lambda st: tuple(
+        (m, verb, compiled(m.when)) for m, verb in ((st.step_back, "steps back"), (st.advance, "advances"))
+        if m is not None))
 
 
 def _largest_ul(spec: Spec) -> float:

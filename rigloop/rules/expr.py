@@ -586,6 +586,12 @@ def evaluate(expr: Expr, env: Env, *, explain: bool = True) -> tuple[float | boo
     return value, seen
 
 
+def compiled(expr: Expr) -> Callable[[Env], float | bool]:
+    """The test :func:`explain_if` runs first: a function of the env giving the value
+    ``evaluate(expr, env, explain=False)`` gives (made once per expression)."""
+    return _evaluator(expr)
+
+
 def explain_if(expr: Expr, env: Env) -> tuple[bool, list[str]]:
     """(True, what it saw) when a criterion holds, else (False, []): cheap when it fails."""
     if not _evaluator(expr)(env):

@@ -68,18 +68,17 @@ class ScheduleState:
         few times per trial, and a 36-field init is most of a replace's cost."""
         if not changes.keys() <= _NAME_SET:
             raise TypeError(f"ScheduleState has no field(s) {', '.join(sorted(changes.keys() - _NAME_SET))}")
-        new = object.__new__(ScheduleState)
-        fields_ = new.__dict__
-        fields_.update(self.__dict__)
-        fields_.update(changes)
-        return new
+        return self._evolved(changes)
 
     def _evolved(self, changes: dict[str, Any]) -> ScheduleState:
-        """:meth:`evolve` of changes the engine made itself, whose names it knows are fields."""
-        new = object.__new__(ScheduleState)
-        fields_ = new.__dict__
-        fields_.update(self.__dict__)
+        """:meth:`evolve` of changes the engine made itself, whose names it knows are fields.
+
+        The new instance dict is a copy of this one (a copy of a whole dict is about
+        twice as fast as inserting its fields one by one) with the changes written in."""
+        fields_ = self.__dict__.copy()
         fields_.update(changes)
+        new = object.__new__(ScheduleState)
+        object.__setattr__(new, "__dict__", fields_)
         return new
 
     def to_dict(self) -> dict[str, Any]:

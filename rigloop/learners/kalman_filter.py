@@ -57,7 +57,7 @@ class _Gaussian(Learner):
     A ← A − q uᵀ with u = Σ⁻h/√s and q = [u; −δ/√s] (two numpy calls for all of it).
     """
 
-    __slots__ = ("_A", "_P", "_diag", "_q", "_u", "_q_col", "_u_row", "_M", "_tau2",
+    __slots__ = ("_A", "_P", "_diag", "_flat", "_ones", "_q", "_u", "_q_col", "_u_row", "_M", "_tau2",
                  "_noise", "_c", "_tau2_0d")
 
     def __init__(self, n_features: int, diffusion: Any, noise: Any, prior_var: Any):
@@ -75,8 +75,11 @@ class _Gaussian(Learner):
         self._A = np.zeros((n + 1, n)) if source is None else source._A.copy()
         self._P = self._A[:n]
         self._w = self._A[n]
+        self._flat = self._A.reshape(-1)
         # the diagonal of Σ as a strided view of the flat buffer: Σ + τ²I without building I
-        self._diag = self._A.reshape(-1)[: n * n : n + 1]
+        self._diag = self._flat[: n * n : n + 1]
+        # ones, for the sum of every entry in one dot (shared: no one can write to it)
+        self._ones = sh.constant(np.ones((n + 1) * n)) if source is None else source._ones
         self._q = np.empty(n + 1)
         self._u = self._q[:n]
         self._q_col = self._q.reshape(n + 1, 1)
@@ -119,8 +122,9 @@ class _Gaussian(Learner):
         return float(x @ self._w), float(x @ (self._P @ x))
 
     def _finite(self) -> bool:
-        # a sum is finite only if every entry is (an overflow merely says no)
-        return math.isfinite(np.add.reduce(self._A, None))
+        # Σ_ij 1·A_ij, finite only if every entry is: 1·inf = inf, 1·NaN = NaN, and a sum
+        # with either is not finite (an overflow merely says no)
+        return math.isfinite(self._flat.dot(self._ones))
 
     def _onset_reader(self, finite: bool | None = None):
         """:meth:`Learner._onset_reader`, reading ŵ_i and Σ_ii where they are the answer.

@@ -184,7 +184,7 @@ def _delta_at(errors: list[float], step: int) -> float:
 
 def _surprise(errors: np.ndarray, variances: np.ndarray, noise: float) -> float | None:
     """The largest |δ_t| / sd_t of a trial, sd_t = sqrt(max(var_t, 0) + noise) (1 where that
-    is not > 0); None without time steps.
+    is not > 0); None without time steps. ``noise`` > 0 (a learner's checked variance).
 
     A loop over Python floats: a trial has a handful of time steps, where numpy's cost
     per call exceeds the arithmetic. Each term is computed as the array form computes
@@ -194,9 +194,12 @@ def _surprise(errors: np.ndarray, variances: np.ndarray, noise: float) -> float 
     best = None
     sqrt = math.sqrt
     for delta, var in zip(errors.tolist(), variances.tolist(), strict=True):
-        # max(var, 0.0) spelt out (var unless 0.0 > var, so NaN and -0.0 stay)
-        sd = sqrt((0.0 if 0.0 > var else var) + noise)
-        q = abs(delta) / (sd if sd > 0 else 1.0)
+        if delta:
+            # max(var, 0.0) spelt out (var unless 0.0 > var, so NaN and -0.0 stay)
+            sd = sqrt((0.0 if 0.0 > var else var) + noise)
+            q = abs(delta) / (sd if sd > 0 else 1.0)
+        else:
+            q = 0.0  # |±0| / sd: +0 for any sd > 0 (inf included), and 0 / 1 otherwise
         if best is None or q > best or q != q:
             best = q
     if best is not None and best != best:

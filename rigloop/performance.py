@@ -79,7 +79,7 @@ def _binary(name: str, value: Any) -> int:
 
 def _logistic(a: float) -> float:
     # 1 / (1 + e^-a), written so that neither branch overflows
-    if a >= 0:
+    if a >= 0.0:
         return 1.0 / (1.0 + math.exp(-a))
     e = math.exp(a)
     return e / (1.0 + e)
@@ -87,6 +87,19 @@ def _logistic(a: float) -> float:
 
 def _logit(p: float) -> float:
     return math.log(p / (1.0 - p))
+
+
+_MU: dict[float, float] = {}  # chance -> logit(chance); a rule file uses a level or two
+
+
+def _mu(chance: float) -> float:
+    """_logit(chance) of a float chance, computed once per level."""
+    mu = _MU.get(chance)
+    if mu is None:
+        if len(_MU) >= 64:
+            _MU.clear()
+        mu = _MU[chance] = _logit(chance)
+    return mu
 
 
 @functools.lru_cache(maxsize=64)
@@ -119,16 +132,19 @@ def _filter_step(
     lo, hi = (x, x + var_pred) if y else (x - var_pred, x)
     z = x
     exp = math.exp
+    # float operands throughout (y as 1.0 or 0.0: the same values), which the
+    # interpreter's float fast paths take
+    yf = 1.0 if y else 0.0
     for _ in range(_NEWTON_MAX):
         # p = logistic(mu + z), as _logistic computes it (inline: this loop is the hot path)
         a = mu + z
-        if a >= 0:
+        if a >= 0.0:
             p = 1.0 / (1.0 + exp(-a))
         else:
             e = exp(a)
             p = e / (1.0 + e)
-        f = z - x - var_pred * (y - p)
-        if f > 0:
+        f = z - x - var_pred * (yf - p)
+        if f > 0.0:
             hi = z
         else:
             lo = z
@@ -227,7 +243,7 @@ class LearningCurve:
 
     @classmethod
     def from_state(cls, d: Mapping[str, Any]) -> LearningCurve:
-        if type(d) is dict and d.keys() == _CURVE_KEYS:
+        if type(d) is dict and len(d) == len(_CURVE_KEYS):
             curve = cls._from_plain(d)
             if curve is not None:
                 return curve
@@ -241,12 +257,15 @@ class LearningCurve:
         curve.n = _count("state.n", d["n"])
         return curve
 
-
     @classmethod
     def _from_plain(cls, d: dict[str, Any]) -> LearningCurve | None:
-        """:meth:`from_state` of a state whose values are plain floats and an int that
-        pass every check (what ``state`` gives) in one test; None for any other."""
-        chance, sigma2, var0, x, var, n = d["chance"], d["sigma2"], d["var0"], d["x"], d["var"], d["n"]
+        """:meth:`from_state` of a dict of the six keys (no others: the caller saw six
+        entries) whose values are plain floats and an int that pass every check (what
+        ``state`` gives), in one test; None for any other."""
+        try:
+            chance, sigma2, var0, x, var, n = d["chance"], d["sigma2"], d["var0"], d["x"], d["var"], d["n"]
+        except KeyError:
+            return None
         if not (type(chance) is float and 0.0 < chance < 1.0 and type(sigma2) is float and 0.0 < sigma2 < _INF
                 and type(var0) is float and 0.0 < var0 < _INF and type(x) is float and -_INF < x < _INF
                 and type(var) is float and 0.0 < var < _INF and type(n) is int and n >= 0):
@@ -254,7 +273,7 @@ class LearningCurve:
         curve = object.__new__(cls)
         curve.chance, curve.sigma2, curve.var0 = chance, sigma2, var0
         # mu = logit(chance), as __init__ sets it
-        curve.mu = _logit(chance)
+        curve.mu = _mu(chance)
         curve.x, curve.var, curve.n = x, var, n
         return curve
 

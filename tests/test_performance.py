@@ -420,8 +420,9 @@ def test_curve_from_plain_state_equals_the_checked_path():
     variants = [{}, {"chance": 0.25}, {"n": 0}, {"x": -0.0}, {"chance": 1}, {"x": math.nan}, {"var": -1.0},
                 {"var": math.inf}, {"n": True}, {"n": -1}, {"sigma2": np.float64(0.05)}, {"chance": 1.0},
                 {"var0": 0.0}, {"n": np.int64(3)}, {"x": 3}]
-    for change in variants:
-        d = {**base, **change}
+    swapped = {k: v for k, v in base.items() if k != "x"} | {"y": 0.0}  # six keys, one wrong
+    for change in [*variants, None]:
+        d = {**base, **change} if change is not None else swapped
         outcomes = []
         for arg in (d, MappingProxyType(d)):
             try:

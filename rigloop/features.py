@@ -283,40 +283,41 @@ class Representation:
         The rows depend on the times only through their bins, so jittered times that
         bin alike share one entry of a small per-representation cache.
         """
-        kept = self._timed_kept(cols, onsets, offsets, times, amounts, duration)
+        kept = self._timed_kept(list(zip(cols, onsets, offsets, strict=True)), times, amounts, duration)
         return TrialRows(kept.X, kept.r, dict(kept.onset_steps))
 
     def _timed_kept(
         self,
-        cols: list[int],
-        onsets: list[float],
-        offsets: list[float],
+        cues: list[tuple[int, float, float]],
         times: list[float],
         amounts: list[float],
         duration: float,
     ) -> TrialRows:
-        """:meth:`_timed_rows` as the kept value itself (its onset steps read-only)."""
+        """:meth:`_timed_rows` of cues ``(column block, onset, offset)``, as the kept value
+        itself (its onset steps read-only)."""
         dt = self.dt
         if duration / dt > MAX_STEPS:
             expected = f"at most {MAX_STEPS} bins of dt = {dt:g} s long"
             raise BadArgument("duration", expected, duration)
         # onset bin floor(t/dt + eps); end bin max(ceil(offset/dt - eps), onset bin + 1)
         floor, ceil = math.floor, math.ceil
-        cues = []
+        binned = []
         last_end = 0
-        for col, onset, offset in zip(cols, onsets, offsets, strict=True):
+        for col, onset, offset in cues:
             on = floor(onset / dt + _EPS)
             end = max(ceil(offset / dt - _EPS), on + 1)
-            cues.append((col, on, end))
+            binned.append((col, on, end))
             if end > last_end:
                 last_end = end
         T = max(1, ceil(duration / dt - _EPS), last_end)
-        # outcome at tau in bin b is received on the transition b-1 -> b: r[clip(b - 1, 0, T - 1)]
-        slots = [min(max(floor(t / dt + _EPS) - 1, 0), T - 1) for t in times]
-        # cues in cue-list order, whatever the presentation order; outcomes in the given
-        # order (it is the order their amounts are summed in)
-        cues.sort()
-        layout = (tuple(cues), tuple(zip(slots, amounts, strict=True)), T)
+        # outcome at tau in bin b is received on the transition b-1 -> b: r[clip(b - 1, 0, T - 1)],
+        # kept in the given order (it is the order their amounts are summed in)
+        outcomes = []
+        for t, amount in zip(times, amounts, strict=True):
+            outcomes.append((min(max(floor(t / dt + _EPS) - 1, 0), T - 1), amount))
+        # cues in cue-list order, whatever the presentation order
+        binned.sort()
+        layout = (tuple(binned), tuple(outcomes), T)
         hit = self._layouts.get(layout)
         if hit is None:
             hit = self._keep(layout, *self._build_rows(*layout))
@@ -376,18 +377,20 @@ class Representation:
         scaled reward is finite, and (for timed kinds) that the trial is not too long.
         The rows it returns are the kept value itself (onset steps read-only).
         """
-        index = self.cues.index
-        cols = [index(c.cue) for c in event.cues]
-        outcomes = event.outcome_events()
-        times = [t for t, _ in outcomes]
-        amounts = [amount / reward_unit for _, amount in outcomes]
+        times: list[float] = []
+        amounts: list[float] = []
+        for t, amount in event.outcome_events():
+            times.append(t)
+            amounts.append(amount / reward_unit)
         if not all(map(math.isfinite, amounts)):
             return self.rows([(c.cue, c.onset, c.offset) for c in event.cues], list(zip(times, amounts)), event.duration)
+        index = self.cues.index
         if self.kind == "identity":
-            return self._identity_kept(cols, amounts)
-        onsets = [c.onset for c in event.cues]
-        offsets = [c.offset for c in event.cues]
-        return self._timed_kept(cols, onsets, offsets, times, amounts, event.duration)
+            return self._identity_kept([index(c.cue) for c in event.cues], amounts)
+        cues = []
+        for c in event.cues:
+            cues.append((index(c.cue), c.onset, c.offset))
+        return self._timed_kept(cues, times, amounts, event.duration)
 
     def _check_cues(
         self, cues: Sequence[tuple[str, float, float]]

@@ -24,6 +24,7 @@ import numpy as np
 
 from ..performance import dprime as _dprime
 from ..performance import sprt_bounds
+from .derived import derived
 from .expr import Env, compiled, evaluate, explain_if, fmt
 from .model import Block, Spec, Stage
 from .policies import choose_cue, reward_prob, staircase_step
@@ -192,7 +193,10 @@ def observe(spec: Spec, sched: ScheduleState, event) -> ScheduleState:
     """Fold one finished trial (a ``TrialEvent``) into the schedule."""
     stage = spec.stages.get(sched.stage)
     block = stage.blocks.get(sched.block) if stage else None
-    cue = trial_cue(spec, block, event.cue_ids)
+    shown = []  # event.cue_ids, by a plain loop (cheaper than a generator's tuple)
+    for c in event.cues:
+        shown.append(c.cue)
+    cue = trial_cue(spec, block, shown)
     role = spec.cues[cue].role if cue else "plain"
     if role == "go_nogo":
         role = "go" if block is not None and cue in block.contingency and block.contingency[cue].rewarded else "nogo"
@@ -355,44 +359,25 @@ def _moves(spec: Spec, sched: ScheduleState, env: ScheduleEnv, reasons: list[str
     return sched.evolve(blocks_in_stage=sched.blocks_in_stage + 1)
 
 
-# Values derived from a loaded spec or block, made once per object: id(obj) -> (obj, value).
-# A loaded rule file is a fixed value (its text's sha256 names it), so these never go
-# stale; holding obj keeps its id from being reused; the table is cleared when large.
-_DERIVED: dict[tuple[int, str], tuple[Any, Any]] = {}
-_DERIVED_MAX = 512
-
-
-def _derived(obj: Any, what: str, make) -> Any:
-    key = (id(obj), what)
-    hit = _DERIVED.get(key)
-    if hit is not None and hit[0] is obj:
-        return hit[1]
-    value = make(obj)
-    if len(_DERIVED) >= _DERIVED_MAX:
-        _DERIVED.clear()
-    _DERIVED[key] = (obj, value)
-    return value
-
-
 def _session_end_tests(spec: Spec) -> tuple:
     """(criterion, its compiled test) for each session-end criterion, in order."""
-    return _derived(spec, "session_end", lambda sp: tuple((c, compiled(c.when)) for c in sp.session_end))
+    return derived(spec, "session_end", lambda sp: tuple((c, compiled(c.when)) for c in sp.session_end))
 
 
 def _move_tests(stage: Stage) -> tuple:
     """(move, verb, its compiled test) for the stage's step back, then its advance."""
-    return _derived(stage, "moves", lambda st: tuple(
+    return derived(stage, "moves", lambda st: tuple(
         (m, verb, compiled(m.when)) for m, verb in ((st.step_back, "steps back"), (st.advance, "advances"))
         if m is not None))
 
 
 def _largest_ul(spec: Spec) -> float:
     """The largest reward volume anywhere in the file (the default rescue volume)."""
-    return _derived(spec, "largest_ul", lambda sp: max(
+    return derived(spec, "largest_ul", lambda sp: max(
         (k.ul for s in sp.stages.values() for b in s.blocks.values() for k in b.contingency.values()), default=0.0))
 
 
 def _rewarded(block: Block) -> Mapping[str, float]:
     """The volume of each cue the block rewards (shared and read-only: the limits read it)."""
-    return _derived(block, "rewarded_ul",
+    return derived(block, "rewarded_ul",
                     lambda b: MappingProxyType({c: b.contingency[c].ul for c in b.rewarded_cues()}))

@@ -9,10 +9,12 @@ decision depends only on (state, view, rules, seed).
 from __future__ import annotations
 
 import math
+from types import MappingProxyType
 from typing import Any
 
 import numpy as np
 
+from .derived import derived
 from .expr import evaluate, fmt
 from .model import Block, CueSpec, NextCue, RewardPolicy, Staircase
 from .state import ScheduleState
@@ -62,7 +64,10 @@ def choose_cue(block: Block, sched: ScheduleState, view, rng: np.random.Generato
         cue = pol.sequence[i]
         why = f"cue {cue}: fixed sequence, position {i + 1} of {len(pol.sequence)}"
     elif pol.kind == "balanced":
-        queue = [c for c in sched.queue if c in in_block]
+        queue = []
+        for c in sched.queue:
+            if c in in_block:
+                queue.append(c)
         if not queue:
             queue = mini_block(block.cues, pol.repeats, pol.max_run, sched.last_cue, sched.run_len, rng)
         cue = queue.pop(0)
@@ -70,11 +75,9 @@ def choose_cue(block: Block, sched: ScheduleState, view, rng: np.random.Generato
         why = (f"cue {cue}: balanced mini-block of {len(in_block) * pol.repeats} "
                f"(max run {pol.max_run}), {len(queue)} left")
     elif pol.kind == "weighted":
-        names = [c for c, _ in pol.weights]
-        w = np.array([x for _, x in pol.weights], dtype=float)
-        p = w / w.sum()
+        names, p, cum = derived(pol, "weighted", _weighted)
         u = rng.random()
-        i = min(int(np.searchsorted(np.cumsum(p), u, side="right")), len(names) - 1)
+        i = min(int(np.searchsorted(cum, u, side="right")), len(names) - 1)
         while p[i] == 0:  # u landed on a zero-width edge
             i -= 1
         cue = names[i]
@@ -93,7 +96,10 @@ def choose_cue(block: Block, sched: ScheduleState, view, rng: np.random.Generato
         # favour the under-chosen side: P(right-correct cue) = 1 - recent P(choose right)
         p_right = min(max(1.0 - b, 1.0 - pol.max_p), pol.max_p)
         side = "right" if rng.random() < p_right else "left"
-        pool = [c for c in in_block if cues[c].role == side]
+        pool = []
+        for c in in_block:
+            if cues[c].role == side:
+                pool.append(c)
         cue = pool[int(rng.integers(len(pool)))] if len(pool) > 1 else pool[0]
         why = (f"cue {cue}: anti-bias, recent right choices {fmt(b)} "
                f"-> P(right-side cue) = {fmt(p_right)}")
@@ -102,6 +108,18 @@ def choose_cue(block: Block, sched: ScheduleState, view, rng: np.random.Generato
     changes["run_len"] = sched.run_len + 1 if cue == sched.last_cue else 1
     changes["last_cue"] = cue
     return cue, changes, why
+
+
+def _weighted(pol: NextCue) -> tuple[tuple[str, ...], np.ndarray, np.ndarray]:
+    """A weighted policy's cues, probabilities p = w / sum(w) and their running sum
+    (arrays read-only), made once per policy."""
+    names = tuple(c for c, _ in pol.weights)
+    w = np.array([x for _, x in pol.weights], dtype=float)
+    p = w / w.sum()
+    cum = np.cumsum(p)
+    p.setflags(write=False)
+    cum.setflags(write=False)
+    return names, p, cum
 
 
 # --------------------------------------------------------------------------- reward probability
@@ -132,22 +150,10 @@ def reward_prob(policy: RewardPolicy, block: Block, cue: str, env_for_cue) -> tu
     return p, why, warnings
 
 
-# The reason of a fixed probability, made once per (block, cue): (id(block), cue) ->
-# (block, text). A loaded block is a fixed value; holding it keeps its id from being
-# reused; the table is cleared when large.
-_FIXED: dict[tuple[int, str], tuple[Block, str]] = {}
-_FIXED_MAX = 1024
-
-
 def _fixed_reason(block: Block, cue: str) -> str:
-    hit = _FIXED.get((id(block), cue))
-    if hit is not None and hit[0] is block:
-        return hit[1]
-    text = f"reward p = {fmt(block.contingency[cue].p)} for {cue}: fixed by block '{block.name}'"
-    if len(_FIXED) >= _FIXED_MAX:
-        _FIXED.clear()
-    _FIXED[(id(block), cue)] = (block, text)
-    return text
+    """The reason of a fixed probability (made once per block and cue)."""
+    return derived(block, "fixed_reasons", lambda b: MappingProxyType(
+        {c: f"reward p = {fmt(k.p)} for {c}: fixed by block '{b.name}'" for c, k in b.contingency.items()}))[cue]
 
 
 # --------------------------------------------------------------------------- staircase

@@ -178,6 +178,14 @@ def _scored(event: TrialEvent) -> bool | None:
     return None
 
 
+def _cue_ids(event: TrialEvent) -> list[str]:
+    """``event.cue_ids`` as a list, by a plain loop (cheaper than a generator's tuple)."""
+    ids = []
+    for c in event.cues:
+        ids.append(c.cue)
+    return ids
+
+
 def _delta_at(errors: list[float], step: int) -> float:
     return errors[min(max(step, 0), len(errors) - 1)]
 
@@ -228,7 +236,7 @@ def step(state: SubjectState, event: TrialEvent, rules) -> tuple[SubjectState, D
     event.check_context(known_cues=spec.cues, last_trial=state.last_trial)
 
     rep = representation_for(rules)
-    cue_ids = event.cue_ids
+    cue_ids = _cue_ids(event)
 
     # value and sd of each presented cue at its onset, before this trial's learning
     quantities: dict[str, float | None] = {}
@@ -251,7 +259,13 @@ def step(state: SubjectState, event: TrialEvent, rules) -> tuple[SubjectState, D
         # the error on entering the onset step: from the step before, or from the ITI (value 0)
         quantities["delta_cue"] = _delta_at(errs, onset - 1) if onset > 0 else gamma * values.item(0)
         outcome = event.outcome
-        due = outcome.reward_time if outcome.rewarded else (max(c.offset for c in cues) if cues else None)
+        if outcome.rewarded:
+            due = outcome.reward_time
+        else:  # the last cue's offset (None without cues)
+            due = None
+            for c in cues:
+                if due is None or c.offset > due:
+                    due = c.offset
         if due is None:
             quantities["delta_outcome"] = None
         else:

@@ -135,15 +135,20 @@ class KalmanTD(_Gaussian):
         values, errors, variances = out
         rewards = r.tolist()
         w, tmp, P, gamma = self._w, self._tmp, self._P, self._gamma
+        ahead = None  # x_tᵀŵ formed on the step before (a featureless one: ŵ did not change)
         for t in range(T):
             if finite and not represented[t]:
                 # x = 0: xᵀŵ = xᵀΣx = 0 (as values and variances start), and x'ᵀŵ = 0
                 # if x' is featureless too
-                v_next = float(xs[t + 1] @ w) if represented[t + 1] else 0.0
-                errors[t] = rewards[t] + gamma * v_next
+                if represented[t + 1]:
+                    ahead = xs[t + 1] @ w
+                    errors[t] = rewards[t] + gamma * float(ahead)
+                else:
+                    errors[t] = rewards[t] + gamma * 0.0
                 continue
             x = xs[t]
-            values[t] = x @ w
+            values[t] = x @ w if ahead is None else ahead
+            ahead = None
             # xᵀΣx
             P.dot(x, tmp)
             variances[t] = x @ tmp

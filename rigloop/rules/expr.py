@@ -695,8 +695,7 @@ def _compile(n: Node) -> Callable[[Env], float | bool]:
         value = n.value
         return lambda env: value
     if isinstance(n, Name):
-        name = n.name
-        return lambda env: env.name(name)
+        return operator.methodcaller("name", n.name)  # env.name(name), with no frame of its own
     if isinstance(n, Call):
         return _compile_call(n)
     if isinstance(n, Unary):
@@ -723,6 +722,8 @@ def _compile_call(n: Call) -> Callable[[Env], float]:
     if all(isinstance(a, CueRef | Const) for a in n.args):
         # cue ids and constants only: the same list every time (a new one per call)
         fixed = tuple(a.cue if isinstance(a, CueRef) else float(a.value) for a in n.args)
+        if func not in ("min", "max", "abs"):
+            return lambda env: float(env.call(func, list(fixed)))
 
         def args_of(env) -> list:
             return list(fixed)

@@ -299,9 +299,9 @@ def step(state: SubjectState, event: TrialEvent, rules) -> tuple[SubjectState, D
     schedule = rules.observe(state.schedule, event)
     schedule, decision = _decide(state.subject, ctx, rules, rep, learner, curves, schedule, event.trial + 1,
                                  fresh_curves=fresh, finite=finite)
-    next_state = SubjectState(
-        subject=state.subject, learner=learner, learner_key=state.learner_key, curves=curves, schedule=schedule,
-        context=ctx, last_trial=event.trial, trials_total=state.trials_total + 1, notes=state.notes,
-    )
+    # (subject, learner, learner_key, curves, schedule, context, last_trial, trials_total, notes):
+    # positional, a frozen dataclass's cheaper call
+    next_state = SubjectState(state.subject, learner, state.learner_key, curves, schedule, ctx, event.trial,
+                              state.trials_total + 1, state.notes)
     update = Update(state.subject, ctx.session, event.trial, quantities, values, errors)
     return next_state, decision, update

@@ -215,7 +215,10 @@ class LearningCurve:
 
     def interval(self, level: float = 0.95) -> tuple[float, float]:
         """Two-sided credible interval of p: logistic(mu + x -/+ z sd), z = Phi^-1((1+level)/2)."""
-        z = _z_two_sided(_open_unit("level", level))
+        return self._band(_z_two_sided(_open_unit("level", level)))
+
+    def _band(self, z: float) -> tuple[float, float]:
+        """:meth:`interval` for its z = Phi^-1((1 + level)/2) already at hand."""
         sd = math.sqrt(self.var)
         return _logistic(self.mu + self.x - z * sd), _logistic(self.mu + self.x + z * sd)
 

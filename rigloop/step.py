@@ -15,14 +15,15 @@ from __future__ import annotations
 import hashlib
 import math
 from collections.abc import Mapping
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, fields, replace
 from typing import Any
 
 import numpy as np
 
 from .errors import BadEvent
-from .performance import LearningCurve
-from .subject import ALL, ModelView, SessionContext, SubjectState, learner_key, new_learner, representation_for
+from .performance import LearningCurve, _z_two_sided
+from .subject import (ALL, ModelView, SessionContext, SubjectState, _next_state, learner_key, new_learner,
+                      representation_for)
 from .trial import Decision, TrialEvent
 
 
@@ -55,6 +56,27 @@ class Update:
             "values": [float(v) for v in self.values],
             "errors": [float(e) for e in self.errors],
         }
+
+
+_Z95 = _z_two_sided(0.95)  # the z of the 95% band step reports
+
+
+# Update(...) through its fields' slot descriptors (see subject._next_state: a frozen
+# dataclass's __init__ costs an object.__setattr__ call per field)
+_UPDATE_SLOTS = tuple(Update.__dict__[f.name].__set__ for f in fields(Update))
+
+
+def _update(subject, session, trial, quantities, values, errors) -> Update:
+    """``Update(...)`` of these values (every field, in order), without its __init__."""
+    new = object.__new__(Update)
+    s0, s1, s2, s3, s4, s5 = _UPDATE_SLOTS  # (fails loudly if a field is added)
+    s0(new, subject)
+    s1(new, session)
+    s2(new, trial)
+    s3(new, quantities)
+    s4(new, values)
+    s5(new, errors)
+    return new
 
 
 def session_seed(subject: str, session: str) -> int:
@@ -102,14 +124,12 @@ def _decide(subject: str, ctx: SessionContext, rules, rep, learner, curves, sche
             extra_warnings=(), fresh_curves=None, finite=None):
     """The rules' decision about ``next_trial``, as a Decision (valve time included).
 
-    ``fresh_curves`` are LearningCurve objects this step already holds for some
-    conditions (equal to ``curves``' entries), so the view need not rebuild them;
-    ``finite``: whether the learner's state is known to be finite.
+    ``fresh_curves`` (a dict the view takes over) are LearningCurve objects this step
+    already holds for some conditions (equal to ``curves``' entries), so the view need
+    not rebuild them; ``finite``: whether the learner's state is known to be finite.
     """
-    perf = rules.performance
-    view = ModelView(learner, rep, curves, perf.chance, perf.sigma2, finite)
-    if fresh_curves:
-        view._hold_curves(fresh_curves)
+    perf = rules.spec.performance
+    view = ModelView(learner, rep, curves, perf.chance, perf.sigma2, finite, fresh_curves)
     schedule, plan = rules.decide(schedule, view, next_trial, _LazyTrialRng(ctx.seed, next_trial))
     warnings = plan.warnings
     if extra_warnings:
@@ -292,16 +312,14 @@ def step(state: SubjectState, event: TrialEvent, rules) -> tuple[SubjectState, D
     if all_curve is None and curves.get(ALL) is not None:
         all_curve = LearningCurve.from_state(curves[ALL])
     if all_curve is not None:
-        lo, hi = all_curve.interval(0.95)
+        lo, hi = all_curve._band(_Z95)  # interval(0.95)
         quantities["p_correct"] = all_curve.p()
         quantities["p_lo95"], quantities["p_hi95"] = lo, hi
 
     schedule = rules.observe(state.schedule, event)
     schedule, decision = _decide(state.subject, ctx, rules, rep, learner, curves, schedule, event.trial + 1,
                                  fresh_curves=fresh, finite=finite)
-    # (subject, learner, learner_key, curves, schedule, context, last_trial, trials_total, notes):
-    # positional, a frozen dataclass's cheaper call
-    next_state = SubjectState(state.subject, learner, state.learner_key, curves, schedule, ctx, event.trial,
-                              state.trials_total + 1, state.notes)
-    update = Update(state.subject, ctx.session, event.trial, quantities, values, errors)
+    next_state = _next_state(state.subject, learner, state.learner_key, curves, schedule, ctx, event.trial,
+                             state.trials_total + 1, state.notes)
+    update = _update(state.subject, ctx.session, event.trial, quantities, values, errors)
     return next_state, decision, update

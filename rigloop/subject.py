@@ -14,7 +14,7 @@ from __future__ import annotations
 import hashlib
 import math
 from collections.abc import Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, fields
 from typing import Any
 
 import msgpack
@@ -138,6 +138,29 @@ class SubjectState:
         return hashlib.sha256(self.to_bytes()).hexdigest()
 
 
+# A frozen dataclass's __init__ sets each field through object.__setattr__, the costliest
+# part of building one; step builds a SubjectState per trial through the fields' slot
+# descriptors instead, which store the same values.
+_STATE_SLOTS = tuple(SubjectState.__dict__[f.name].__set__ for f in fields(SubjectState))
+
+
+def _next_state(subject, learner, learner_key, curves, schedule, context, last_trial, trials_total,
+                notes) -> SubjectState:
+    """``SubjectState(...)`` of these values (every field, in order), without its __init__."""
+    new = object.__new__(SubjectState)
+    s0, s1, s2, s3, s4, s5, s6, s7, s8 = _STATE_SLOTS  # (fails loudly if a field is added)
+    s0(new, subject)
+    s1(new, learner)
+    s2(new, learner_key)
+    s3(new, curves)
+    s4(new, schedule)
+    s5(new, context)
+    s6(new, last_trial)
+    s7(new, trials_total)
+    s8(new, notes)
+    return new
+
+
 def _pack_arrays(state: Mapping[str, Any]) -> dict[str, Any]:
     out: dict[str, Any] = {}
     for key in sorted(state):
@@ -239,8 +262,9 @@ class ModelView:
     __slots__ = ("_learner", "_rep", "_curves", "_chance", "_sigma2", "_values", "_held", "_read", "_finite")
 
     def __init__(self, learner, rep, curves: Mapping[str, Mapping[str, Any]], chance: float, sigma2: float,
-                 finite: bool | None = None):
-        """``finite``: whether every entry of the learner's state is finite, if known."""
+                 finite: bool | None = None, held: dict[str, LearningCurve] | None = None):
+        """``finite``: whether every entry of the learner's state is finite, if known;
+        ``held``: curves equal to the ones their states give (a dict the view takes over)."""
         self._learner = learner
         self._finite = finite
         self._rep = rep
@@ -248,12 +272,8 @@ class ModelView:
         self._chance = chance
         self._sigma2 = sigma2
         self._values: dict[str, tuple[float, float]] = {}  # cue -> (mean, sd)
-        self._held: dict[str, LearningCurve] = {}  # condition -> its curve
+        self._held: dict[str, LearningCurve] = {} if held is None else held  # condition -> its curve
         self._read = None  # the learner's onset reader, made on first use
-
-    def _hold_curves(self, curves: Mapping[str, LearningCurve]) -> None:
-        """Use these curves (equal to the ones their states give) instead of rebuilding them."""
-        self._held.update(curves)
 
     def _value(self, cue: str) -> tuple[float, float]:
         hit = self._values.get(cue)

@@ -695,7 +695,8 @@ def _compile(n: Node) -> Callable[[Env], float | bool]:
         value = n.value
         return lambda env: value
     if isinstance(n, Name):
-        return operator.methodcaller("name", n.name)  # env.name(name), with no frame of its own
+        name = n.name
+        return lambda env: env.name(name)
     if isinstance(n, Call):
         return _compile_call(n)
     if isinstance(n, Unary):

@@ -206,3 +206,45 @@ def test_rows_kept_only_when_they_cannot_change():
     want = b._learn(base.copy(), np.ones(3))
     assert got.values.tobytes() == want.values.tobytes()
     assert got.errors.tobytes() == want.errors.tobytes()
+
+
+def test_finite_pass_equals_the_full_products():
+    """On finite states (signed zeros, tiny and huge entries, zero variances included),
+    the pass that skips featureless rows and reads one-hot rows as ŵ_i and Σ_ii gives
+    what computing every product gives, bit for bit."""
+    from rigloop.learners.kalman_td import _rows_of
+
+    rng = np.random.default_rng(17)
+    n = 6
+    for k in range(300):
+        T = int(rng.integers(1, 7))
+        X = np.zeros((T, n))
+        for t in range(T):
+            kind = rng.integers(4)
+            if kind == 1:
+                X[t, rng.integers(n)] = 1.0
+            elif kind == 2:
+                X[t] = rng.random(n) < 0.4
+            elif kind == 3:
+                X[t, rng.integers(n)] = rng.choice([1.0, 0.5, -1.0])
+        r = rng.choice([0.0, 1.0, -0.5], size=T)
+        a = KalmanTD(n, gamma=0.9, diffusion=float(rng.choice([0.0, 0.01])), noise=0.3)
+        a._w[...] = rng.choice([0.0, -0.0, 1e-310, -2.5, 1e200, 0.3], size=n)
+        a._P[...] = np.diag(rng.choice([0.0, -0.0, 1e-310, 0.7, 1e150], size=n))
+        b = a.copy()
+        rows = _rows_of(X, a._gamma)
+        outcomes = []
+        for learner, finite in ((a, True), (b, False)):
+            try:
+                with np.errstate(all="ignore"):
+                    outcomes.append(learner._trial(rows, r, finite=finite))
+            except (ValueError, ArithmeticError) as err:
+                outcomes.append(type(err))
+        got, want = outcomes
+        if not isinstance(want, type(got)) or not isinstance(got, type(want)):
+            assert got == want  # the same error, or a result both ways
+        if isinstance(got, type) or not (np.isfinite(a._A).all() and np.isfinite(b._A).all()):
+            continue  # _learn takes the full pass after a non-finite one
+        for x, y in ((got.values, want.values), (got.errors, want.errors), (got.variances, want.variances)):
+            assert x.tobytes() == y.tobytes()
+        assert a._A.tobytes() == b._A.tobytes()

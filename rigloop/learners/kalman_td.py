@@ -131,27 +131,39 @@ class KalmanTD(_Gaussian):
         """The trial's updates; ``finite``: take ŵ and Σ to be finite throughout."""
         xs, hs, represented = rows.xs, rows.hs, rows.represented
         T = len(xs)
+        # a row e_i (one feature on, at 1): xᵀŵ = ŵ_i and xᵀΣx = Σ_ii exactly while the
+        # state is finite and these are nonzero (see _Gaussian._onset_reader)
+        hot = rows.hot if finite else (None,) * T
         out = np.zeros((3, T))
         values, errors, variances = out
         rewards = r.tolist()
-        w, tmp, P, gamma = self._w, self._tmp, self._P, self._gamma
+        w, diag, tmp, P, gamma = self._w, self._diag, self._tmp, self._P, self._gamma
         ahead = None  # x_tᵀŵ formed on the step before (a featureless one: ŵ did not change)
         for t in range(T):
             if finite and not represented[t]:
                 # x = 0: xᵀŵ = xᵀΣx = 0 (as values and variances start), and x'ᵀŵ = 0
                 # if x' is featureless too
                 if represented[t + 1]:
-                    ahead = xs[t + 1] @ w
+                    i = hot[t + 1]
+                    ahead = w.item(i) if i is not None and w.item(i) != 0.0 else xs[t + 1] @ w
                     errors[t] = rewards[t] + gamma * float(ahead)
                 else:
                     errors[t] = rewards[t] + gamma * 0.0
                 continue
-            x = xs[t]
-            values[t] = x @ w if ahead is None else ahead
+            x, i = xs[t], hot[t]
+            if ahead is not None:
+                values[t] = ahead
+            elif i is not None and w.item(i) != 0.0:
+                values[t] = w.item(i)
+            else:
+                values[t] = x @ w
             ahead = None
-            # xᵀΣx
-            P.dot(x, tmp)
-            variances[t] = x @ tmp
+            if i is not None and diag.item(i) != 0.0:
+                variances[t] = diag.item(i)
+            else:
+                # xᵀΣx
+                P.dot(x, tmp)
+                variances[t] = x @ tmp
             if not represented[t]:
                 # featureless state: report the error, learn nothing (see module docstring)
                 x_next = xs[t + 1] if t + 1 < T else self._zero
@@ -186,10 +198,11 @@ class _TrialRows:
 
     ``xs``: the rows x_t; ``hs``: the rows h_t = x_t − γx_{t+1} (x_T = 0, the terminal
     row), read-only; ``represented``: whether row t has a feature on, with a False for
-    the terminal row after the last. Tuples, so a kept one is an immutable value.
+    the terminal row after the last; ``hot``: i for a row that is e_i (feature i at 1,
+    every other at 0), else None. Tuples, so a kept one is an immutable value.
     """
 
-    __slots__ = ("X", "xs", "hs", "represented")
+    __slots__ = ("X", "xs", "hs", "represented", "hot")
 
     def __init__(self, X: np.ndarray, gamma: float):
         T = X.shape[0]
@@ -204,6 +217,11 @@ class _TrialRows:
         self.xs = tuple(X)
         self.hs = tuple(H)
         self.represented = (*X.any(axis=1).tolist(), False)
+        hot = []
+        for row in X.tolist():
+            on = [j for j, v in enumerate(row) if v != 0.0]
+            hot.append(on[0] if len(on) == 1 and row[on[0]] == 1.0 else None)
+        self.hot = tuple(hot)
 
 
 # Rows of read-only X arrays (the feature rows a representation hands out, one per

@@ -258,11 +258,13 @@ def step(state: SubjectState, event: TrialEvent, rules) -> tuple[SubjectState, D
     rep = representation_for(rules)
     cue_ids = _cue_ids(event)
 
-    # value and sd of each presented cue at its onset, before this trial's learning
-    quantities: dict[str, float | None] = {}
     rows = rep._event_rows(event, rules.reward_unit_ul)
     # the learner after this trial: a new one, the state's own stays as it was
     learner, result, finite = state.learner._learned(rows.X, rows.r)
+
+    # value and sd of each presented cue at its onset, before this trial's learning
+    # (the state's own learner)
+    quantities: dict[str, float | None] = {}
     if cue_ids:
         read = state.learner._onset_reader(finite)
         for cue in cue_ids:

@@ -216,7 +216,7 @@ def test_finite_pass_equals_the_full_products():
 
     rng = np.random.default_rng(17)
     n = 6
-    for k in range(300):
+    for _ in range(300):
         T = int(rng.integers(1, 7))
         X = np.zeros((T, n))
         for t in range(T):

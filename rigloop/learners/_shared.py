@@ -11,8 +11,8 @@ from __future__ import annotations
 
 import math
 import numbers
-from dataclasses import dataclass
 from collections.abc import Callable
+from dataclasses import dataclass
 from typing import Any, ClassVar
 
 import numpy as np

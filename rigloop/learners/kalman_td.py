@@ -17,7 +17,6 @@ neither the mean nor the covariance. ``update`` itself applies whatever it is gi
 
 from __future__ import annotations
 
-import math
 from typing import Any
 
 import numpy as np

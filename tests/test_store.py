@@ -184,6 +184,24 @@ def test_failed_write_rolls_back_whole_trial_and_stops_the_store(tmp_path):
     raw.close()
 
 
+def test_failed_lone_insert_stores_nothing_and_stops_the_store(tmp_path):
+    """A trial without a snapshot is one INSERT committed on its own; when SQLite fails
+    it, nothing is stored and the store refuses further writes, as for a transaction."""
+    path = tmp_path / "a.db"
+    s = Store(path)
+    s.open_session(info())
+    raw = sqlite3.connect(path)
+    raw.execute("CREATE TRIGGER fail BEFORE INSERT ON trials BEGIN SELECT RAISE(ABORT, 'injected fault'); END")
+    raw.commit()
+    with pytest.raises(StoreError, match=r"write failed and was rolled back \(injected fault\)"):
+        s.commit_batch([(event(1), decision(1), {}, None)])
+    assert raw.execute("SELECT COUNT(*) FROM trials").fetchone()[0] == 0
+    with pytest.raises(StoreError, match="stopped after a failed write"):
+        s.commit_trial(event(1), decision(1), {})
+    s.close()
+    raw.close()
+
+
 def test_bad_arguments_name_the_field(store):
     """Quantities must be finite numbers or None, with names that cannot clash with keys."""
     with pytest.raises(BadArgument, match=r"^\"quantities\['v'\]\" must be a finite number or None"):

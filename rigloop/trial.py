@@ -395,25 +395,52 @@ class Decision:
     warnings: tuple[str, ...] = ()
 
     def __post_init__(self) -> None:
-        for name in ("subject", "session"):
-            _ident(name, getattr(self, name))
-        _count("trial", self.trial, minimum=1)
+        # each check passes a plain, valid value in one test; anything else takes the
+        # full check, which converts it or says what is wrong
+        _ident("subject", self.subject)
+        _ident("session", self.session)
+        if type(self.trial) is not int or self.trial < 1:
+            _count("trial", self.trial, minimum=1)
         if self.cue is not None:
             _ident("cue", self.cue)
-        p = _number("reward_prob", self.reward_prob)
-        if p > 1:
-            raise BadEvent("reward_prob", "must be a probability in [0, 1]", p)
-        object.__setattr__(self, "reward_prob", p)
-        object.__setattr__(self, "reward_ul", _number("reward_ul", self.reward_ul))
-        object.__setattr__(self, "difficulty", _number("difficulty", self.difficulty, minimum=None, optional=True))
-        object.__setattr__(self, "valve_ms", _number("valve_ms", self.valve_ms, optional=True))
+        p = self.reward_prob
+        if not (_fine(p) and p <= 1.0):
+            p = _number("reward_prob", p)
+            if p > 1:
+                raise BadEvent("reward_prob", "must be a probability in [0, 1]", p)
+            object.__setattr__(self, "reward_prob", p)
+        if not _fine(self.reward_ul):
+            object.__setattr__(self, "reward_ul", _number("reward_ul", self.reward_ul))
+        d = self.difficulty
+        if d is not None and not (type(d) is float and math.isfinite(d)):
+            object.__setattr__(self, "difficulty", _number("difficulty", d, minimum=None, optional=True))
+        if self.valve_ms is not None and not _fine(self.valve_ms):
+            object.__setattr__(self, "valve_ms", _number("valve_ms", self.valve_ms, optional=True))
         for name in ("reasons", "overrides", "warnings"):
             object.__setattr__(self, name, tuple(map(str, getattr(self, name))))
-        object.__setattr__(self, "reward_armed", bool(self.reward_armed))
-        object.__setattr__(self, "end_session", bool(self.end_session))
+        if type(self.reward_armed) is not bool:
+            object.__setattr__(self, "reward_armed", bool(self.reward_armed))
+        if type(self.end_session) is not bool:
+            object.__setattr__(self, "end_session", bool(self.end_session))
 
     def to_dict(self) -> dict[str, Any]:
-        return {name: (list(v) if isinstance(v, tuple) else v) for name in self.__dataclass_fields__ for v in [getattr(self, name)]}
+        return {
+            "subject": self.subject,
+            "session": self.session,
+            "trial": self.trial,
+            "cue": self.cue,
+            "reward_prob": self.reward_prob,
+            "reward_ul": self.reward_ul,
+            "reward_armed": self.reward_armed,
+            "block": self.block,
+            "stage": self.stage,
+            "end_session": self.end_session,
+            "difficulty": self.difficulty,
+            "valve_ms": self.valve_ms,
+            "reasons": list(self.reasons),
+            "overrides": list(self.overrides),
+            "warnings": list(self.warnings),
+        }
 
     @classmethod
     def from_dict(cls, data: Mapping[str, Any]) -> Decision:

@@ -68,5 +68,11 @@ def test_unknown_field_rejected():
 def test_decision_round_trip():
     d = Decision("m01", "s1", 2, "tone_hi", 0.8, 4.0, True, "acquisition", "stage1", reasons=("why",))
     assert Decision.from_dict(d.to_dict()) == d
+    assert list(d.to_dict()) == list(Decision.__dataclass_fields__)  # every field, in order
+    # values that need converting still are converted (int -> float, truthy -> bool)
+    c = Decision("m01", "s1", 2, None, 1, 4, 1, "a", "b", end_session=0, difficulty=2, reasons=["x"])
+    assert (c.reward_prob, c.reward_ul, c.reward_armed, c.end_session, c.difficulty, c.reasons) == (
+        1.0, 4.0, True, False, 2.0, ("x",))
+    assert type(c.reward_prob) is float and type(c.difficulty) is float
     with pytest.raises(BadEvent, match="reward_prob"):
         Decision("m01", "s1", 2, "tone_hi", 1.5, 4.0, True, "a", "b")

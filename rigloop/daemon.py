@@ -737,8 +737,9 @@ class Daemon:
             self._send_all(batch.out)
 
     def _input_ready(self) -> bool:
-        """Whether a message or a serial line is already waiting (a zero-timeout poll)."""
-        return bool(self.poller.poll(0))
+        """Whether a message or a serial line is already waiting (the ROUTER is asked
+        directly; serial ports, if any, by a zero-timeout poll)."""
+        return self.router.waiting() or (bool(self._fd_links) and bool(self.poller.poll(0)))
 
     def _commit_here(self, batch: _Batch) -> None:
         """Commit ``batch`` on the loop thread, then answer it (the idle path)."""

@@ -206,6 +206,10 @@ class RouterLink:
         envelope = (ident, b"") if n > 1 and len(frames[1]) == 0 else (ident,)
         return Incoming(envelope, None, user_id, n, now)
 
+    def waiting(self) -> bool:
+        """Whether a message is waiting to be received (cheaper than a poll)."""
+        return bool(self.socket.get(zmq.EVENTS) & zmq.POLLIN)
+
     # -- sending ----------------------------------------------------------------
 
     def send(self, envelope: Iterable[bytes], payload: bytes) -> bool:

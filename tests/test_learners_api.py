@@ -316,3 +316,40 @@ def test_onset_reader_equals_predict_bit_for_bit(name):
                 got, want = read(x, i), learner._predict(x)
                 assert np.array(got).tobytes() == np.array(want).tobytes()
                 assert [type(v) for v in got] == [type(v) for v in want]
+
+
+@pytest.mark.parametrize("name", ["kalman_filter", "kalman_td"])
+def test_learners_in_several_threads_learn_as_they_do_alone(name):
+    """Gaussian learners share a scratch buffer per thread (not per learner): learners
+    stepped in four threads at once end bit for bit where each ends alone."""
+    import threading
+
+    rng = np.random.default_rng(11)
+    value = KINDS[name][0] == "value"
+    trials = [((rng.random((8, 16)) < 0.3).astype(float), rng.normal(size=8)) for _ in range(300)]
+
+    def run(k):
+        learner = make_learner(name, 16, diffusion=0.01 * (k + 1))
+        for X, r in trials:
+            learner.learn_trial(X if value else X[:1], r if value else r[:1])
+        return learner.state()["w"].tobytes() + learner.state()["cov"].tobytes()
+
+    alone = [run(k) for k in range(4)]
+    together = [None] * 4
+
+    def work(k):
+        together[k] = run(k)
+
+    import sys
+
+    threads = [threading.Thread(target=work, args=(k,)) for k in range(4)]
+    interval = sys.getswitchinterval()
+    sys.setswitchinterval(1e-6)  # switch threads as often as the interpreter can
+    try:
+        for t in threads:
+            t.start()
+        for t in threads:
+            t.join()
+    finally:
+        sys.setswitchinterval(interval)
+    assert together == alone

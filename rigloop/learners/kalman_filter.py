@@ -16,6 +16,7 @@ machinery for this learner and for Kalman TD (which observes h = x − γx' inst
 from __future__ import annotations
 
 import math
+import threading
 from typing import Any
 
 import numpy as np
@@ -57,7 +58,7 @@ class _Gaussian(Learner):
     A ← A − q uᵀ with u = Σ⁻h/√s and q = [u; −δ/√s] (two numpy calls for all of it).
     """
 
-    __slots__ = ("_A", "_P", "_diag", "_flat", "_ones", "_q", "_u", "_q_col", "_u_row", "_M", "_tau2",
+    __slots__ = ("_A", "_P", "_diag", "_flat", "_ones", "_q", "_u", "_q_col", "_u_row", "_tau2",
                  "_noise", "_c", "_tau2_0d")
 
     def __init__(self, n_features: int, diffusion: Any, noise: Any, prior_var: Any):
@@ -78,13 +79,13 @@ class _Gaussian(Learner):
         self._flat = self._A.reshape(-1)
         # the diagonal of Σ as a strided view of the flat buffer: Σ + τ²I without building I
         self._diag = self._flat[: n * n : n + 1]
-        # ones, for the sum of every entry in one dot (shared: no one can write to it)
-        self._ones = sh.constant(np.ones((n + 1) * n)) if source is None else source._ones
+        # ones, for the sum of every entry in one dot (one per size for all learners: no
+        # one can write to it)
+        self._ones = _ones(n)
         self._q = np.empty(n + 1)
         self._u = self._q[:n]
         self._q_col = self._q.reshape(n + 1, 1)
         self._u_row = self._u.reshape(1, n)
-        self._M = np.empty((n + 1, n))
         # Σx of a variance is used before the next correction writes u, so u holds it
         self._tmp = self._u
 
@@ -173,8 +174,9 @@ class _Gaussian(Learner):
         # [Σ; ŵ] ← [Σ⁻; ŵ] − [u; −δ/√s] uᵀ, i.e. Σ ← Σ⁻ − k hᵀΣ⁻ and ŵ ← ŵ + k δ
         # (the outer product through BLAS (n+1, 1)·(1, n) is ~2x cheaper than a broadcast
         # multiply; each entry is one exact product, so Σ stays exactly symmetric)
-        self._q_col.dot(self._u_row, self._M)
-        np.subtract(self._A, self._M, self._A)
+        M = _outer_scratch(self._n)
+        self._q_col.dot(self._u_row, M)
+        np.subtract(self._A, M, self._A)
         return delta
 
     def _variance(self, x: np.ndarray) -> float:
@@ -194,6 +196,31 @@ class _Gaussian(Learner):
     def _restore(self, state: dict[str, Any]) -> None:
         self.w = state["w"]
         self.cov = state["cov"]
+
+
+# Buffers the Gaussian learners share rather than each holding its own (at n = 32 each
+# is 8.4 kB, as large as the learner's state): with thousands of subjects resident, the
+# state is what should take the memory.
+_ONES: dict[int, np.ndarray] = {}
+_SCRATCH = threading.local()
+
+
+def _ones(n: int) -> np.ndarray:
+    """The read-only ones vector of length (n + 1) n, one for every learner of size n."""
+    ones = _ONES.get(n)
+    if ones is None:
+        ones = _ONES[n] = sh.constant(np.ones((n + 1) * n))
+    return ones
+
+
+def _outer_scratch(n: int) -> np.ndarray:
+    """An (n + 1, n) scratch matrix for the rank-1 correction, one per thread and size:
+    each correction writes it whole before reading it, so no state passes through it and
+    the learners of a thread can take turns with it."""
+    M = _SCRATCH.__dict__.get(n)
+    if M is None:
+        M = _SCRATCH.__dict__[n] = np.empty((n + 1, n))
+    return M
 
 
 class KalmanFilter(_Gaussian):

@@ -320,8 +320,8 @@ def test_onset_reader_equals_predict_bit_for_bit(name):
 
 @pytest.mark.parametrize("name", ["kalman_filter", "kalman_td"])
 def test_learners_in_several_threads_learn_as_they_do_alone(name):
-    """Gaussian learners share a scratch buffer per thread (not per learner): learners
-    stepped in four threads at once end bit for bit where each ends alone."""
+    """Gaussian learners keep no scratch of their own and share read-only constants:
+    learners stepped in four threads at once end bit for bit where each ends alone."""
     import threading
 
     rng = np.random.default_rng(11)

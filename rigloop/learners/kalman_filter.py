@@ -16,7 +16,6 @@ machinery for this learner and for Kalman TD (which observes h = x − γx' inst
 from __future__ import annotations
 
 import math
-import threading
 from typing import Any
 
 import numpy as np
@@ -147,11 +146,14 @@ class _Gaussian(Learner):
 
         return read
 
-    def _observe(self, h: np.ndarray, r: float) -> float:
+    def _observe(self, h: np.ndarray, r: float, M: np.ndarray | None = None) -> float:
         """Diffuse, then correct on r = hᵀw + ε, in place; returns δ (nan: nothing changed).
 
-        h: (n,) float64 observation row. The error is checked for finiteness before any
-        state changes, which rejects NaN/inf anywhere in h or r at the cost of one test.
+        h: (n,) float64 observation row. M: an (n + 1, n) scratch for the outer product,
+        written whole before it is read (a trial's updates share one; a new one if not
+        given: a learner keeps none, as it would double its memory). The error is checked
+        for finiteness before any state changes, which rejects NaN/inf anywhere in h or r
+        at the cost of one test.
         (``a.dot(b, out)`` rather than ``@``: the method call costs half as much, and
         this runs once per time step.)
         """
@@ -174,7 +176,8 @@ class _Gaussian(Learner):
         # [Σ; ŵ] ← [Σ⁻; ŵ] − [u; −δ/√s] uᵀ, i.e. Σ ← Σ⁻ − k hᵀΣ⁻ and ŵ ← ŵ + k δ
         # (the outer product through BLAS (n+1, 1)·(1, n) is ~2x cheaper than a broadcast
         # multiply; each entry is one exact product, so Σ stays exactly symmetric)
-        M = _outer_scratch(self._n)
+        if M is None:
+            M = np.empty_like(self._A)
         self._q_col.dot(self._u_row, M)
         np.subtract(self._A, M, self._A)
         return delta
@@ -198,11 +201,10 @@ class _Gaussian(Learner):
         self.cov = state["cov"]
 
 
-# Buffers the Gaussian learners share rather than each holding its own (at n = 32 each
-# is 8.4 kB, as large as the learner's state): with thousands of subjects resident, the
-# state is what should take the memory.
+# The read-only ones vector each Gaussian learner sums its state with, one per size for
+# all learners (at n = 32 it is 8.4 kB, as large as the learner's state: with thousands
+# of subjects resident, the state is what should take the memory).
 _ONES: dict[int, np.ndarray] = {}
-_SCRATCH = threading.local()
 
 
 def _ones(n: int) -> np.ndarray:
@@ -211,16 +213,6 @@ def _ones(n: int) -> np.ndarray:
     if ones is None:
         ones = _ONES[n] = sh.constant(np.ones((n + 1) * n))
     return ones
-
-
-def _outer_scratch(n: int) -> np.ndarray:
-    """An (n + 1, n) scratch matrix for the rank-1 correction, one per thread and size:
-    each correction writes it whole before reading it, so no state passes through it and
-    the learners of a thread can take turns with it."""
-    M = _SCRATCH.__dict__.get(n)
-    if M is None:
-        M = _SCRATCH.__dict__[n] = np.empty((n + 1, n))
-    return M
 
 
 class KalmanFilter(_Gaussian):
@@ -264,11 +256,12 @@ class KalmanFilter(_Gaussian):
         """:meth:`learn_trial` of rows already checked (finite float64, C-contiguous)."""
         k = X.shape[0]
         values, errors, variances = np.empty(k), np.empty(k), np.empty(k)
+        M = np.empty_like(self._A)  # the updates' scratch
         for t in range(k):
             x = X[t]
             values[t] = float(x @ self._w)
             variances[t] = self._variance(x)
-            errors[t] = delta = self._observe(x, float(r[t]))
+            errors[t] = delta = self._observe(x, float(r[t]), M)
             if delta != delta:
                 raise sh.nonfinite([("X", X), ("r", r)])
         return TrialResult(values, errors, variances)

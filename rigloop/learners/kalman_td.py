@@ -138,6 +138,7 @@ class KalmanTD(_Gaussian):
         rewards = r.tolist()
         w, diag, tmp, P, gamma = self._w, self._diag, self._tmp, self._P, self._gamma
         ahead = None  # x_tᵀŵ formed on the step before (a featureless one: ŵ did not change)
+        M = None  # the updates' scratch, made at the first update
         for t in range(T):
             if finite and not represented[t]:
                 # x = 0: xᵀŵ = xᵀΣx = 0 (as values and variances start), and x'ᵀŵ = 0
@@ -168,7 +169,9 @@ class KalmanTD(_Gaussian):
                 x_next = xs[t + 1] if t + 1 < T else self._zero
                 errors[t] = rewards[t] + gamma * float(x_next @ w)
                 continue
-            errors[t] = delta = self._observe(hs[t], rewards[t])
+            if M is None:
+                M = np.empty_like(self._A)
+            errors[t] = delta = self._observe(hs[t], rewards[t], M)
             if delta != delta:
                 raise sh.nonfinite([("X", rows.X), ("r", r)])
         out.setflags(write=False)

@@ -165,31 +165,8 @@ def apply_limits(
     so raising the probability never needs a new draw. ``rewarded`` maps each cue the
     block rewards to its contingency volume.
     """
-    return limit_offer(
-        limits, offer, lambda p: u < p, session_min=session_min, unrewarded_in_row=unrewarded_in_row,
-        ul_session=ul_session, ul_today=ul_today, rewarded=rewarded, rescue_ul=rescue_ul,
-    )
-
-
-def limit_offer(
-    limits: WelfareLimits,
-    offer: Offer,
-    below: Callable[[float], bool],
-    *,
-    session_min: float,
-    unrewarded_in_row: int,
-    ul_session: float,
-    ul_today: float,
-    rewarded: dict[str, float],
-    rescue_ul: float,
-) -> tuple[Offer, list[str], list[str]]:
-    """:func:`apply_limits` with the uniform draw behind ``below(p)`` (is u < p?).
-
-    ``below`` is called at most once, when no limit forced the reward, so the engine
-    can make the draw only when the answer depends on it.
-    """
     cue, p, ul, armed, end, overrides, warnings = limit_values(
-        limits, offer.cue, offer.reward_prob, offer.reward_ul, offer.end_session, below, session_min,
+        limits, offer.cue, offer.reward_prob, offer.reward_ul, offer.end_session, lambda p: u < p, session_min,
         unrewarded_in_row, ul_session, ul_today, rewarded, rescue_ul,
     )
     return Offer(cue, p, ul, armed, end), overrides, warnings
@@ -209,8 +186,11 @@ def limit_values(
     rewarded: Mapping[str, float],
     rescue_ul: float,
 ) -> tuple[str | None, float, float, bool, bool, list[str], list[str]]:
-    """:func:`limit_offer` over plain values, for the engine (no Offer built or read):
-    returns (cue, p, ul, armed, end, overrides, warnings). ``rewarded`` is only read."""
+    """:func:`apply_limits` over plain values, for the engine (no Offer built or read):
+    returns (cue, p, ul, armed, end, overrides, warnings). ``below(p)`` answers "is the
+    trial's uniform draw below p?"; it is called at most once, when no limit forced the
+    reward, so the engine makes the draw only when the answer depends on it.
+    ``rewarded`` is only read."""
     overrides: list[str] = []
     forced = False
 

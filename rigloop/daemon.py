@@ -73,9 +73,15 @@ from typing import Any
 import structlog
 
 from . import __version__, wire
-from .errors import BadArgument, BadEvent, ConflictingTrial, RigloopError, RuleError, StoreError, WireError
-from .wire import MessageError
-from .links import BoundedQueue
+from .errors import (
+    BadArgument,
+    BadEvent,
+    ConflictingTrial,
+    RigloopError,
+    RuleError,
+    StoreError,
+    WireError,
+)
 from .links import zmq as zlink
 from .links.serial import SerialLink
 from .replay import RulesCache, recover
@@ -84,6 +90,7 @@ from .step import begin_session, step
 from .store import SessionInfo, Store
 from .subject import ModelView, SubjectState, new_subject, representation_for
 from .trial import Decision, TrialEvent
+from .wire import MessageError
 
 DEFAULT_ZMQ = "tcp://127.0.0.1:5570"
 DEFAULT_PUBLISH = "tcp://127.0.0.1:5571"

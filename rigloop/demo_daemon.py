@@ -131,11 +131,10 @@ def run(data: Path, out=print) -> int:
 
 def after(data: Path, out=print) -> int:
     """Replay, export and plot from the stopped daemon's store."""
+    from .daemon import STORE_FILE
     from .replay import replay_subject
     from .store import Store
     from .tables import export
-
-    from .daemon import STORE_FILE
 
     db = data / STORE_FILE
     ok = True

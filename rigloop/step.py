@@ -22,8 +22,16 @@ import numpy as np
 
 from .errors import BadEvent
 from .performance import LearningCurve, _z_two_sided
-from .subject import (ALL, ModelView, SessionContext, SubjectState, _next_state, learner_key, new_learner,
-                      representation_for)
+from .subject import (
+    ALL,
+    ModelView,
+    SessionContext,
+    SubjectState,
+    _next_state,
+    learner_key,
+    new_learner,
+    representation_for,
+)
 from .trial import Decision, TrialEvent
 
 

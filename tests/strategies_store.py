@@ -5,7 +5,15 @@ from __future__ import annotations
 
 from hypothesis import strategies as st
 
-from rigloop.trial import PUNISHMENTS, RESPONSE_RESULTS, CuePresentation, Decision, Outcome, Response, TrialEvent
+from rigloop.trial import (
+    PUNISHMENTS,
+    RESPONSE_RESULTS,
+    CuePresentation,
+    Decision,
+    Outcome,
+    Response,
+    TrialEvent,
+)
 
 idents = st.text(st.characters(whitelist_categories=("Ll", "Lu", "Nd"), whitelist_characters="_-."), min_size=1, max_size=12)
 times = st.floats(min_value=0.0, max_value=1e4, allow_nan=False, allow_infinity=False)

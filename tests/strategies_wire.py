@@ -10,7 +10,15 @@ import string
 
 from hypothesis import strategies as st
 
-from rigloop.trial import PUNISHMENTS, RESPONSE_RESULTS, CuePresentation, Decision, Outcome, Response, TrialEvent
+from rigloop.trial import (
+    PUNISHMENTS,
+    RESPONSE_RESULTS,
+    CuePresentation,
+    Decision,
+    Outcome,
+    Response,
+    TrialEvent,
+)
 from rigloop.wire import (
     ERROR_CODES,
     REQUEST_TYPES,

@@ -3,10 +3,9 @@
 import numpy as np
 from hypothesis import given, settings
 from hypothesis import strategies as st
+from strategies import learner_cases
 
 from rigloop.learners import make_learner
-
-from strategies import learner_cases
 
 FEW = settings(max_examples=40, deadline=None)
 

@@ -9,6 +9,7 @@ import os
 import msgpack
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
+from strategies_wire import replies, requests
 
 from rigloop.wire import (
     LineDecoder,
@@ -21,8 +22,6 @@ from rigloop.wire import (
     parse_reply_line,
     parse_request_line,
 )
-from strategies_wire import replies, requests
-
 
 SCALE = 10 if os.environ.get("RIGLOOP_FULL") else 1  # RIGLOOP_FULL=1: a ten times longer campaign
 

@@ -5,6 +5,7 @@ from __future__ import annotations
 import pytest
 from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
+from strategies_wire import replies, requests
 
 from rigloop import CuePresentation, Decision, Outcome, Response, TrialEvent
 from rigloop.wire import (
@@ -29,7 +30,6 @@ from rigloop.wire import (
     parse_request_line,
     serial_key,
 )
-from strategies_wire import replies, requests
 
 SETTINGS = settings(max_examples=150, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 

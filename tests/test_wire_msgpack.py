@@ -8,6 +8,7 @@ import pathlib
 import msgpack
 import pytest
 from hypothesis import HealthCheck, given, settings
+from strategies_wire import replies, requests
 
 from rigloop import CuePresentation, Decision, Outcome, Response, TrialEvent, WireError
 from rigloop.wire import (
@@ -25,7 +26,6 @@ from rigloop.wire import (
     encode_reply,
     encode_request,
 )
-from strategies_wire import replies, requests
 
 SETTINGS = settings(max_examples=150, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 

@@ -17,7 +17,13 @@ The protocol is documented in docs/protocol.md.
 
 from .checksum import crc16, crc16_hex
 from .decoder import LineDecoder, LineStatistics
-from .lines import format_reply_line, format_request_line, parse_reply_line, parse_request_line, serial_key
+from .lines import (
+    format_reply_line,
+    format_request_line,
+    parse_reply_line,
+    parse_request_line,
+    serial_key,
+)
 from .messages import (
     ERROR_CODES,
     MAX_FRAME,

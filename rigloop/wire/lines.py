@@ -35,10 +35,10 @@ from .messages import (
     show,
 )
 from .text import (
+    FLOAT_RE,
     KEY_OK,
     PART_OK,
     TEXT_OK,
-    FLOAT_RE,
     Value,
     esc,
     fmt_float,

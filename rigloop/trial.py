@@ -188,15 +188,20 @@ class TrialEvent:
     extra: Mapping[str, Scalar] = field(default_factory=dict)
 
     def __post_init__(self) -> None:
-        for name in ("subject", "rig", "session"):
-            _ident(name, getattr(self, name))
-        _count("trial", self.trial, minimum=1)
-        cues = tuple(self.cues)
-        if not all(isinstance(c, CuePresentation) for c in cues):
-            raise BadEvent("cues", "must be CuePresentation values", self.cues)
-        if len({c.cue for c in cues}) != len(cues):
-            raise BadEvent("cues", "must name each cue at most once per trial", [c.cue for c in cues])
-        object.__setattr__(self, "cues", tuple(sorted(cues, key=lambda c: (c.onset, c.cue))))
+        _ident("subject", self.subject)
+        _ident("rig", self.rig)
+        _ident("session", self.session)
+        if type(self.trial) is not int or self.trial < 1:
+            _count("trial", self.trial, minimum=1)
+        cues = self.cues
+        if type(cues) is not tuple or len(cues) != 1 or type(cues[0]) is not CuePresentation:
+            # (one cue, the common case, is already in order)
+            cues = tuple(cues)
+            if not all(isinstance(c, CuePresentation) for c in cues):
+                raise BadEvent("cues", "must be CuePresentation values", self.cues)
+            if len({c.cue for c in cues}) != len(cues):
+                raise BadEvent("cues", "must name each cue at most once per trial", [c.cue for c in cues])
+            object.__setattr__(self, "cues", tuple(sorted(cues, key=lambda c: (c.onset, c.cue))))
         if not isinstance(self.outcome, Outcome):
             raise BadEvent("outcome", "must be an Outcome", self.outcome)
         if not isinstance(self.response, Response):
@@ -296,7 +301,7 @@ class TrialEvent:
     @classmethod
     def from_dict(cls, data: Mapping[str, Any]) -> TrialEvent:
         """Build from plain data (a decoded message or a stored row); BadEvent names the fault."""
-        if not isinstance(data, Mapping):
+        if type(data) is not dict and not isinstance(data, Mapping):
             raise BadEvent("trial event", "must be a map", type(data).__name__, raw=data)
         allowed = _EVENT_FIELDS
         unknown = () if data.keys() <= allowed else sorted(set(map(str, data)) - allowed)
@@ -340,6 +345,8 @@ def _seq(name: str, value: Any) -> list:
 
 
 def _cue_from(item: Any) -> CuePresentation:
+    if type(item) is list and len(item) == 3:  # the common case, before the ABC test below
+        return CuePresentation(*item)
     if isinstance(item, Mapping):
         unknown = set(item) - {"cue", "onset", "offset"}
         if unknown or "cue" not in item:
@@ -353,7 +360,7 @@ def _cue_from(item: Any) -> CuePresentation:
 def _sub(name: str, value: Any, fields: Mapping[str, Any]) -> dict[str, Any]:
     if value is None:
         return {}
-    if not isinstance(value, Mapping):
+    if type(value) is not dict and not isinstance(value, Mapping):
         raise BadEvent(name, "must be a map", value)
     if value.keys() <= fields.keys():
         return dict(value)

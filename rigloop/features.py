@@ -48,7 +48,8 @@ Time-bin convention (timed kinds), written once here and pinned in the tests:
 All array work is vectorised (no Python loop over bins); this runs once per trial on
 the hot path. A trial's rows depend only on its binned layout (cue onset and end bins,
 outcome rows and amounts, T), so each representation keeps the rows of the layouts it
-has seen in a small bounded cache; the arrays it hands out are read-only for good. Invalid input raises :class:`rigloop.errors.BadArgument` naming the argument.
+has seen in a small bounded cache; the arrays it hands out are read-only for good.
+Invalid input raises :class:`rigloop.errors.BadArgument` naming the argument.
 """
 
 from __future__ import annotations

@@ -15,7 +15,7 @@ from __future__ import annotations
 import hashlib
 import math
 from collections.abc import Mapping
-from dataclasses import dataclass, fields, replace
+from dataclasses import dataclass, replace
 from typing import Any
 
 import numpy as np
@@ -33,6 +33,7 @@ from .subject import (
     representation_for,
 )
 from .trial import Decision, TrialEvent
+from .values import builder
 
 
 @dataclass(frozen=True, slots=True)
@@ -69,22 +70,8 @@ class Update:
 _Z95 = _z_two_sided(0.95)  # the z of the 95% band step reports
 
 
-# Update(...) through its fields' slot descriptors (see subject._next_state: a frozen
-# dataclass's __init__ costs an object.__setattr__ call per field)
-_UPDATE_SLOTS = tuple(Update.__dict__[f.name].__set__ for f in fields(Update))
-
-
-def _update(subject, session, trial, quantities, values, errors) -> Update:
-    """``Update(...)`` of these values (every field, in order), without its __init__."""
-    new = object.__new__(Update)
-    s0, s1, s2, s3, s4, s5 = _UPDATE_SLOTS  # (fails loudly if a field is added)
-    s0(new, subject)
-    s1(new, session)
-    s2(new, trial)
-    s3(new, quantities)
-    s4(new, values)
-    s5(new, errors)
-    return new
+# step builds an Update per trial without the frozen __init__ (see values.py)
+_update = builder(Update)
 
 
 def session_seed(subject: str, session: str) -> int:

@@ -14,7 +14,7 @@ from __future__ import annotations
 import hashlib
 import math
 from collections.abc import Mapping
-from dataclasses import dataclass, field, fields
+from dataclasses import dataclass, field
 from typing import Any
 
 import msgpack
@@ -24,6 +24,7 @@ from .errors import BadArgument, StoreError
 from .features import make_representation
 from .learners import LEARNERS, make_learner
 from .performance import LearningCurve
+from .values import builder
 
 STATE_FORMAT = 1
 ALL = "all"  # the condition that pools every scored trial
@@ -59,18 +60,6 @@ class SubjectState:
     last_trial: int = 0
     trials_total: int = 0
     notes: tuple[str, ...] = field(default=())
-
-    # -- copies ---------------------------------------------------------------
-
-    def learner_copy(self):
-        """A private copy of the learner that a step may update in place."""
-        return self.learner.copy()
-
-    def curve(self, condition: str, chance: float, sigma2: float) -> LearningCurve:
-        data = self.curves.get(condition)
-        if data is None:
-            return LearningCurve(chance, sigma2)
-        return LearningCurve.from_state(data)
 
     # -- bytes ----------------------------------------------------------------
 
@@ -138,27 +127,8 @@ class SubjectState:
         return hashlib.sha256(self.to_bytes()).hexdigest()
 
 
-# A frozen dataclass's __init__ sets each field through object.__setattr__, the costliest
-# part of building one; step builds a SubjectState per trial through the fields' slot
-# descriptors instead, which store the same values.
-_STATE_SLOTS = tuple(SubjectState.__dict__[f.name].__set__ for f in fields(SubjectState))
-
-
-def _next_state(subject, learner, learner_key, curves, schedule, context, last_trial, trials_total,
-                notes) -> SubjectState:
-    """``SubjectState(...)`` of these values (every field, in order), without its __init__."""
-    new = object.__new__(SubjectState)
-    s0, s1, s2, s3, s4, s5, s6, s7, s8 = _STATE_SLOTS  # (fails loudly if a field is added)
-    s0(new, subject)
-    s1(new, learner)
-    s2(new, learner_key)
-    s3(new, curves)
-    s4(new, schedule)
-    s5(new, context)
-    s6(new, last_trial)
-    s7(new, trials_total)
-    s8(new, notes)
-    return new
+# step builds a SubjectState per trial without the frozen __init__ (see values.py)
+_next_state = builder(SubjectState)
 
 
 def _pack_arrays(state: Mapping[str, Any]) -> dict[str, Any]:

@@ -158,3 +158,6 @@ def test_fast_builders_equal_the_dataclass_constructors():
         assert all(getattr(got, n) is getattr(want, n) for n in names)
         with pytest.raises(dataclasses.FrozenInstanceError):
             setattr(got, names[0], None)
+        # a field added to the class, or a value left out, is an error, not a half-built value
+        with pytest.raises(TypeError, match=rf"^{cls.__name__} has {len(names)} fields, got {len(names) - 1} values$"):
+            build(*values[:-1])

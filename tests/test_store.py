@@ -164,39 +164,29 @@ def test_commit_for_unopened_session_is_refused(store):
         store.commit_trial(event(1, session="x"), decision(1, session="x"), {})
 
 
-def test_failed_write_rolls_back_whole_trial_and_stops_the_store(tmp_path):
-    """An SQLite error in the middle of a commit leaves no partial trial, and the store
-    refuses further writes (a failed commit must never be retried on the same connection)."""
+@pytest.mark.parametrize("fails, snapshot, batch", [
+    ("snapshots", b"state", False),  # a transaction: the trial row goes in first, then its snapshot fails
+    ("trials", None, True),  # a trial without a snapshot: one INSERT committed on its own
+])
+def test_failed_write_rolls_back_whole_trial_and_stops_the_store(tmp_path, fails, snapshot, batch):
+    """An SQLite error in a commit leaves no partial trial, and the store refuses further
+    writes and reads (a failed commit must never be retried on the same connection)."""
     path = tmp_path / "a.db"
     s = Store(path)
     s.open_session(info())
     raw = sqlite3.connect(path)
-    # the trial row goes in first, then its snapshot fails
-    raw.execute("CREATE TRIGGER fail BEFORE INSERT ON snapshots BEGIN SELECT RAISE(ABORT, 'injected fault'); END")
+    raw.execute(f"CREATE TRIGGER fail BEFORE INSERT ON {fails} BEGIN SELECT RAISE(ABORT, 'injected fault'); END")
     raw.commit()
     with pytest.raises(StoreError, match=r"write failed and was rolled back \(injected fault\)"):
-        s.commit_trial(event(1), decision(1), {}, snapshot=b"state")
-    assert raw.execute("SELECT COUNT(*) FROM trials").fetchone()[0] == 0
-    with pytest.raises(StoreError, match="stopped after a failed write"):
-        s.last_trial("m01", "s1")
-    s.close()
-    raw.close()
-
-
-def test_failed_lone_insert_stores_nothing_and_stops_the_store(tmp_path):
-    """A trial without a snapshot is one INSERT committed on its own; when SQLite fails
-    it, nothing is stored and the store refuses further writes, as for a transaction."""
-    path = tmp_path / "a.db"
-    s = Store(path)
-    s.open_session(info())
-    raw = sqlite3.connect(path)
-    raw.execute("CREATE TRIGGER fail BEFORE INSERT ON trials BEGIN SELECT RAISE(ABORT, 'injected fault'); END")
-    raw.commit()
-    with pytest.raises(StoreError, match=r"write failed and was rolled back \(injected fault\)"):
-        s.commit_batch([(event(1), decision(1), {}, None)])
+        if batch:
+            s.commit_batch([(event(1), decision(1), {}, snapshot)])
+        else:
+            s.commit_trial(event(1), decision(1), {}, snapshot=snapshot)
     assert raw.execute("SELECT COUNT(*) FROM trials").fetchone()[0] == 0
     with pytest.raises(StoreError, match="stopped after a failed write"):
         s.commit_trial(event(1), decision(1), {})
+    with pytest.raises(StoreError, match="stopped after a failed write"):
+        s.last_trial("m01", "s1")
     s.close()
     raw.close()
 

@@ -16,7 +16,7 @@ from __future__ import annotations
 import datetime as _dt
 import math
 from collections.abc import Mapping
-from dataclasses import dataclass, fields
+from dataclasses import dataclass
 from types import MappingProxyType
 from typing import Any
 
@@ -24,6 +24,7 @@ import numpy as np
 
 from ..performance import dprime as _dprime
 from ..performance import sprt_bounds
+from ..values import builder
 from .derived import derived
 from .expr import Env, compiled, evaluate, explain_if, fmt
 from .model import Block, Spec, Stage
@@ -53,29 +54,8 @@ class Plan:
         return {name: getattr(self, name) for name in self.__dataclass_fields__}
 
 
-# A frozen dataclass's __init__ sets each field through object.__setattr__, the costliest
-# part of building one; decide builds its Plan through the fields' slot descriptors
-# instead, which store the same values.
-_PLAN_SLOTS = tuple(Plan.__dict__[f.name].__set__ for f in fields(Plan))
-
-
-def _plan(cue, reward_prob, reward_ul, reward_armed, block, stage, end_session, difficulty, reasons, overrides,
-          warnings) -> Plan:
-    """``Plan(...)`` of these values (every field, in order), without its __init__."""
-    new = object.__new__(Plan)
-    s0, s1, s2, s3, s4, s5, s6, s7, s8, s9, s10 = _PLAN_SLOTS  # (fails loudly if a field is added)
-    s0(new, cue)
-    s1(new, reward_prob)
-    s2(new, reward_ul)
-    s3(new, reward_armed)
-    s4(new, block)
-    s5(new, stage)
-    s6(new, end_session)
-    s7(new, difficulty)
-    s8(new, reasons)
-    s9(new, overrides)
-    s10(new, warnings)
-    return new
+# decide builds a Plan per trial without the frozen __init__ (see values.py)
+_plan = builder(Plan)
 
 
 # --------------------------------------------------------------------------- expression env

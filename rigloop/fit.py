@@ -14,8 +14,11 @@ single cue, that cue's value at onset) *before* the trial's update: β is the
 steepness, θ the value at which the animal responds half of the engaged time, lapse
 the fraction of trials on which it responds at random. Trials without a cue or without
 an observed response (omitted, or a response kind that is not a count) add nothing to
-the likelihood but still update the learner. A softmax over sides for two-choice tasks
-would fit the same frame (a second value, a bias term) but is not implemented yet.
+the likelihood but still update the learner. The link and its log-likelihood are
+``response_models.p_respond`` and ``log_lik_respond``, kept there so that live code can
+report the same numbers. That module also has the two-choice softmax link (``p_right``);
+fitting it would use the same frame (a second value, a bias term) but is not
+implemented yet.
 
 Parameters are found with ``scipy.optimize.minimize`` (L-BFGS-B) inside bounds, from
 several starts (the default point and a seeded draw from a grid), because the
@@ -48,6 +51,7 @@ import numpy as np
 from .errors import BadArgument, RigloopError
 from .features import Representation
 from .learners import LEARNERS, make_learner
+from .response_models import log_lik_respond, p_respond
 
 COUNT_RESPONSES = ("licks", "lever")  # response kinds whose value is a count: respond = count > 0
 OBSERVATION_PARAMS = ("beta", "theta", "lapse")
@@ -244,23 +248,9 @@ def _values(data: FitData, learner, with_sd: bool = False) -> tuple[np.ndarray, 
 
 
 def response_probability(V: np.ndarray, beta: float, theta: float, lapse: float) -> np.ndarray:
-    """p = lapse/2 + (1 − lapse) · logistic(β (V − θ)), elementwise."""
-    z = beta * (np.asarray(V, dtype=np.float64) - theta)
-    return lapse / 2 + (1 - lapse) / (1 + np.exp(-z))
-
-
-def _loglik_terms(V: np.ndarray, y: np.ndarray, beta: float, theta: float,
-                  lapse: float) -> np.ndarray:
-    """log P(y_t) for observed trials, computed in log space (stable for large |β(V − θ)|)."""
-    z = beta * (V - theta)
-    with np.errstate(divide="ignore"):
-        log_half_lapse = math.log(lapse / 2) if lapse > 0 else -math.inf
-        log_engaged = math.log1p(-lapse) if lapse < 1 else -math.inf
-    # log σ(±z) = −log(1 + e^(∓z))
-    sign = np.where(y > 0.5, 1.0, -1.0)
-    log_sig = -np.logaddexp(0.0, -sign * z)
-    # log p = log(lapse/2 + (1 − lapse) σ(z)); log(1 − p) the same with σ(−z)
-    return np.logaddexp(log_half_lapse, log_engaged + log_sig)
+    """p = lapse/2 + (1 − lapse) · logistic(β (V − θ)), elementwise
+    (``response_models.p_respond``: no overflow for any β (V − θ))."""
+    return p_respond(V, beta, theta, lapse)
 
 
 def log_likelihood(data: FitData, learner_name: str, params: Mapping[str, Any]) -> float:
@@ -272,7 +262,7 @@ def log_likelihood(data: FitData, learner_name: str, params: Mapping[str, Any]) 
     learner, (beta, theta, lapse) = _build(data, learner_name, params)
     V = onset_values(data, learner)
     mask = ~np.isnan(data.responded)
-    return float(np.sum(_loglik_terms(V[mask], data.responded[mask], beta, theta, lapse)))
+    return float(np.sum(log_lik_respond(V[mask], data.responded[mask], beta, theta, lapse)))
 
 
 def _build(data: FitData, learner_name: str, params: Mapping[str, Any]):
@@ -509,7 +499,7 @@ def fit_subject(
             if len(cache) >= 16:
                 del cache[next(iter(cache))]
             cache[key] = V
-        terms = _loglik_terms(V[mask], y_obs, obs["beta"], obs["theta"], obs["lapse"])
+        terms = log_lik_respond(V[mask], y_obs, obs["beta"], obs["theta"], obs["lapse"])
         total = -float(np.sum(terms))
         return total if math.isfinite(total) else 1e10
 
@@ -633,10 +623,15 @@ def spec_from_rules(rules, learner: str | None = None) -> ModelSpec:
     the same cues (as the rule-file loader requires): a reward learner one row per trial
     (``identity``), a value learner ``presence`` rows at the file's ``dt``.
     """
-    from .features import make_representation
+    from .features import CueList, make_representation
     from .subject import representation_for
 
     rep = representation_for(rules)
+    if rules.learner.values == "cue_action":
+        # the fitted model links cue values to responding (go/no-go); a rule file's
+        # action values (cue:action columns) are fitted as the cue values they pool
+        f = rules.features
+        rep = make_representation(f.kind, CueList(rules.cues), dt=f.dt, n_bins=f.n_bins, decay=f.decay)
     name = learner or rules.learner.name
     model_parameters(name)  # unknown name: a clear error now
     reward_learner = LEARNERS[name].kind == "reward"

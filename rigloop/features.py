@@ -369,8 +369,13 @@ class Representation:
         cues = [(c.cue, c.onset, c.offset) for c in event.cues]
         return self.rows(cues, event.outcome_events(), event.duration)
 
-    def _event_rows(self, event: Any, reward_unit: float) -> TrialRows:
+    def _event_rows(self, event: Any, reward_unit: float, cues: Sequence[tuple[str, float, float]] | None = None,
+                    punishments: Sequence[tuple[float, float]] = ()) -> TrialRows:
         """:meth:`event_rows` with rewards in units of ``reward_unit`` µL, for ``step``.
+
+        ``cues``: ``(column name, onset, offset)`` to use instead of the event's own cues
+        (action-value learners name a ``cue:action`` column); ``punishments``: further
+        outcomes ``(time, value in reward units)``.
 
         A TrialEvent checked its times on construction (finite, >= 0, each offset after
         its onset, the duration covering every event), so only what it cannot know is
@@ -383,15 +388,22 @@ class Representation:
         for t, amount in event.outcome_events():
             times.append(t)
             amounts.append(amount / reward_unit)
+        for t, value in punishments:
+            times.append(t)
+            amounts.append(value)
+        if cues is None:
+            cues = []
+            for c in event.cues:
+                cues.append((c.cue, c.onset, c.offset))
         if not all(map(math.isfinite, amounts)):
-            return self.rows([(c.cue, c.onset, c.offset) for c in event.cues], list(zip(times, amounts)), event.duration)
+            return self.rows(cues, list(zip(times, amounts)), event.duration)
         index = self.cues.index
         if self.kind == "identity":
-            return self._identity_kept([index(c.cue) for c in event.cues], amounts)
-        cues = []
-        for c in event.cues:
-            cues.append((index(c.cue), c.onset, c.offset))
-        return self._timed_kept(cues, times, amounts, event.duration)
+            return self._identity_kept([index(c) for c, _, _ in cues], amounts)
+        cols = []
+        for c, on, off in cues:
+            cols.append((index(c), on, off))
+        return self._timed_kept(cols, times, amounts, event.duration)
 
     def _check_cues(
         self, cues: Sequence[tuple[str, float, float]]

@@ -20,14 +20,17 @@ from typing import Any
 
 import numpy as np
 
+from . import behaviour as B
 from .errors import BadEvent
 from .performance import LearningCurve, _z_two_sided
+from .response_models import choice_code, history_step, p_respond, p_right
 from .subject import (
     ALL,
     ModelView,
     SessionContext,
     SubjectState,
     _next_state,
+    action_cue,
     learner_key,
     new_learner,
     representation_for,
@@ -47,6 +50,12 @@ class Update:
     largest |δ|/sd in the trial, sd from the value's variance plus the observation noise —
     exact for the Kalman filter, an approximation for Kalman TD, whose row is x − γx').
     ``values`` / ``errors`` are per time step (one entry for reward learners).
+
+    The animal's own behaviour, before this trial's response, for every cue of the rule
+    file: ``p_respond[cue]`` with ``p_respond_lo95[cue]`` / ``p_respond_hi95[cue]`` (go/no-go
+    cues), ``p_right[cue]`` with its band (two-choice cues); ``p_model[cue]`` is what the
+    learner and the response model predict for the trial's cue (to set beside the animal's);
+    action-value learners add ``q[cue:action]`` for the trial's cue.
     """
 
     subject: str
@@ -115,16 +124,42 @@ class _LazyTrialRng:
         return getattr(self._generator(), name)
 
 
+def view_of(rules, rep, learner, curves, behaviour, finite=None, fresh_curves=None) -> ModelView:
+    """What the rules read: the learner, the learning curves and the behaviour estimates."""
+    spec = rules.spec
+    perf, beh = spec.performance, spec.behaviour
+    actions = _actions_table(rules)
+    return ModelView(learner, rep, curves, perf.chance, perf.sigma2, finite, fresh_curves, behaviour, beh.sigma2,
+                     beh.prior_var, actions, spec.choice_cues())
+
+
+def _actions_table(rules) -> dict[str, tuple[str, ...]] | None:
+    """cue -> its actions when the learner holds action values, else None (kept per rule file)."""
+    hit = _ACTIONS.get(id(rules))
+    if hit is not None and hit[0] is rules:
+        return hit[1]
+    table = None
+    if rules.learner.values == "cue_action":
+        table = {c: rules.spec.actions_of(c) for c in rules.cues}
+    if len(_ACTIONS) > 64:
+        _ACTIONS.clear()
+    _ACTIONS[id(rules)] = (rules, table)
+    return table
+
+
+_ACTIONS: dict[int, tuple] = {}
+
+
 def _decide(subject: str, ctx: SessionContext, rules, rep, learner, curves, schedule, next_trial: int,
-            extra_warnings=(), fresh_curves=None, finite=None):
+            extra_warnings=(), fresh_curves=None, finite=None, behaviour=None):
     """The rules' decision about ``next_trial``, as a Decision (valve time included).
 
     ``fresh_curves`` (a dict the view takes over) are LearningCurve objects this step
     already holds for some conditions (equal to ``curves``' entries), so the view need
-    not rebuild them; ``finite``: whether the learner's state is known to be finite.
+    not rebuild them; ``finite``: whether the learner's state is known to be finite;
+    ``behaviour``: the behaviour estimates after this trial.
     """
-    perf = rules.spec.performance
-    view = ModelView(learner, rep, curves, perf.chance, perf.sigma2, finite, fresh_curves)
+    view = view_of(rules, rep, learner, curves, behaviour, finite, fresh_curves)
     schedule, plan = rules.decide(schedule, view, next_trial, _LazyTrialRng(ctx.seed, next_trial))
     warnings = plan.warnings
     if extra_warnings:
@@ -174,7 +209,7 @@ def begin_session(
     schedule = rules.open_session(state.schedule, session, float(wall_time))
     state = replace(state, learner=learner, learner_key=key, curves=curves, context=ctx, last_trial=0)
     schedule, decision = _decide(state.subject, ctx, rules, representation_for(rules), learner, curves, schedule, 1,
-                                 warnings)
+                                 warnings, behaviour=state.behaviour)
     state = replace(state, schedule=schedule, context=replace(ctx, first_decision=decision.to_dict()))
     return state, decision
 
@@ -191,6 +226,82 @@ def _scored(event: TrialEvent) -> bool | None:
     if result == "incorrect":
         return False
     return None
+
+
+def _is_go(spec, schedule, cue: str) -> bool | None:
+    """Whether the current block rewards ``cue`` (None: the cue is not in the block)."""
+    stage = spec.stages.get(schedule.stage)
+    block = stage.blocks.get(schedule.block) if stage is not None else None
+    if block is None or cue not in block.contingency:
+        return None
+    return block.contingency[cue].rewarded
+
+
+def _action_cues(event: TrialEvent, kind: str, did: bool | None) -> list[tuple[str, float, float]]:
+    """The trial's cues as the action-value learner's columns: ``cue:action`` for the
+    action the animal took; none when it took none that was observed (an omission)."""
+    if did is None:
+        return []
+    if kind == B.RIGHT:
+        action = "right" if did else "left"
+    else:
+        action = "respond" if did else "withhold"
+    return [(action_cue(c.cue, action), c.onset, c.offset) for c in event.cues]
+
+
+def _punishments(spec, event: TrialEvent) -> list[tuple[float, float]]:
+    """The trial's punishment as a learner outcome ``(time, value in reward units)``.
+
+    A named punishment, or a timeout (``timeout_s`` > 0 with none named), counts once at
+    its time: ``punishment_time``, else the response's latency, else the last cue's end.
+    """
+    out = event.outcome
+    kind = out.punishment
+    if kind is None:
+        if not out.timeout_s > 0.0:
+            return []
+        kind = "timeout"
+    value = spec.outcomes.value_of(kind)
+    if value == 0.0:
+        return []
+    t = out.punishment_time
+    if t is None:
+        t = event.response.latency
+    if t is None:
+        t = max((c.offset for c in event.cues), default=0.0)
+    return [(min(t, event.duration), value)]
+
+
+def _behaviour_quantities(quantities: dict, spec, behaviour) -> None:
+    """``p_respond[cue]`` / ``p_right[cue]`` and their 95% band, for every cue, before the trial."""
+    beh = spec.behaviour
+    choice = spec.choice_cues()
+    z = _Z95
+    for cue in spec.cues:
+        est = behaviour.get(cue)
+        mean, var = (0.0, beh.prior_var) if est is None else (est[0], est[1])
+        half = z * math.sqrt(var + beh.sigma2)
+        name, lo, hi = B.quantity_names(cue, B.RIGHT if cue in choice else B.RESPOND)
+        quantities[name] = B.logistic(mean)
+        quantities[lo], quantities[hi] = B.logistic(mean - half), B.logistic(mean + half)
+
+
+def _p_model(spec, cue: str, choice_cues, quantities, history: float, actions) -> float | None:
+    """What the learner and the response model predict for the trial's response to ``cue``:
+    P(respond), or P(right) for a two-choice cue (action-value learners only)."""
+    link = spec.response
+    if cue in choice_cues:
+        if actions is None:
+            return None  # cue values say nothing about a side
+        ql, qr = quantities[f"q[{action_cue(cue, 'left')}]"], quantities[f"q[{action_cue(cue, 'right')}]"]
+        return float(p_right(ql, qr, link.beta, link.bias, link.lapse, link.persev, history))
+    if actions is None:
+        theta = 0.5 if link.theta is None else link.theta
+        v = quantities[f"value[{cue}]"]
+    else:
+        theta = 0.0 if link.theta is None else link.theta
+        v = quantities[f"q[{action_cue(cue, 'respond')}]"] - quantities[f"q[{action_cue(cue, 'withhold')}]"]
+    return float(p_respond(v, link.beta, theta, link.lapse))
 
 
 def _cue_ids(event: TrialEvent) -> list[str]:
@@ -252,20 +363,38 @@ def step(state: SubjectState, event: TrialEvent, rules) -> tuple[SubjectState, D
 
     rep = representation_for(rules)
     cue_ids = _cue_ids(event)
+    actions = _actions_table(rules)
 
-    rows = rep._event_rows(event, rules.reward_unit_ul)
+    # what the animal did: the response to the trial's first cue, as its behaviour estimate reads it
+    scored_cue = cue_ids[0] if cue_ids else None
+    choice_cues = spec.choice_cues()
+    kind = B.RIGHT if scored_cue in choice_cues else B.RESPOND
+    did = None if scored_cue is None else B.observed(event, kind, _is_go(spec, state.schedule, scored_cue))
+
+    learner_cues = None if actions is None else _action_cues(event, kind, did)
+    rows = rep._event_rows(event, rules.reward_unit_ul, learner_cues, _punishments(spec, event))
     # the learner after this trial: a new one, the state's own stays as it was
     learner, result, finite = state.learner._learned(rows.X, rows.r)
 
     # value and sd of each presented cue at its onset, before this trial's learning
     # (the state's own learner)
     quantities: dict[str, float | None] = {}
-    if cue_ids:
+    before = None  # the view of the state before this trial (action-value learners)
+    if cue_ids and actions is None:
         read = state.learner._onset_reader(finite)
         for cue in cue_ids:
             mean, var = read(*rep._onset_entry(cue))
             quantities[f"value[{cue}]"] = float(mean)
             quantities[f"sd[{cue}]"] = math.sqrt(max(float(var), 0.0))
+    elif cue_ids:
+        before = view_of(rules, rep, state.learner, state.curves, state.behaviour)
+        for cue in cue_ids:
+            quantities[f"value[{cue}]"], quantities[f"sd[{cue}]"] = before.value_mean(cue), before.value_sd(cue)
+            for a in actions[cue]:
+                quantities[f"q[{action_cue(cue, a)}]"] = before.q_value(cue, a)[0]
+    _behaviour_quantities(quantities, spec, state.behaviour)
+    for cue in cue_ids:
+        quantities[f"p_model[{cue}]"] = _p_model(spec, cue, choice_cues, quantities, state.choice_history, actions)
     values, errors = result.values, result.errors
 
     if rep.timed:
@@ -313,10 +442,22 @@ def step(state: SubjectState, event: TrialEvent, rules) -> tuple[SubjectState, D
         quantities["p_correct"] = all_curve.p()
         quantities["p_lo95"], quantities["p_hi95"] = lo, hi
 
+    behaviour = state.behaviour
+    if did is not None:
+        est = behaviour.get(scored_cue)
+        beh = spec.behaviour
+        est = B.CueEstimate.prior(beh.prior_var) if est is None else B.CueEstimate(*est)
+        behaviour = dict(behaviour)
+        behaviour[scored_cue] = est.updated(did, beh.sigma2).as_tuple()
+    history = state.choice_history
+    side = event.response.value
+    if side == "left" or side == "right":
+        history = float(history_step(history, choice_code(side), spec.response.decay))
+
     schedule = rules.observe(state.schedule, event)
     schedule, decision = _decide(state.subject, ctx, rules, rep, learner, curves, schedule, event.trial + 1,
-                                 fresh_curves=fresh, finite=finite)
+                                 fresh_curves=fresh, finite=finite, behaviour=behaviour)
     next_state = _next_state(state.subject, learner, state.learner_key, curves, schedule, ctx, event.trial,
-                             state.trials_total + 1, state.notes)
+                             state.trials_total + 1, state.notes, behaviour, history)
     update = _update(state.subject, ctx.session, event.trial, quantities, values, errors)
     return next_state, decision, update

@@ -1,8 +1,9 @@
 """SubjectState: everything one animal carries from trial to trial.
 
 The state is the animal's learner (weights and, for Bayesian learners, their
-covariance), one learning curve per condition, and the schedule (stage, block,
-counters, staircase, welfare tallies) owned by the rules package. It is a value:
+covariance), one learning curve per condition, the estimate of its own behaviour per
+cue (``behaviour``: what it does, rigloop.behaviour), its choice-history kernel, and the
+schedule (stage, block, counters, staircase, welfare tallies) owned by the rules package. It is a value:
 ``step`` never changes a state it is given, it returns a new one.
 
 ``to_bytes`` / ``from_bytes`` give an exact, deterministic byte round trip (msgpack),
@@ -21,12 +22,13 @@ import msgpack
 import numpy as np
 
 from .errors import BadArgument, StoreError
+from .behaviour import DEFAULT_PRIOR_VAR, DEFAULT_SIGMA2, band, dprime_estimate, logistic, p_difference_above
 from .features import make_representation
 from .learners import LEARNERS, make_learner
 from .performance import LearningCurve
 from .values import builder
 
-STATE_FORMAT = 1
+STATE_FORMAT = 2  # 2: behaviour estimates and the choice kernel (a format-1 snapshot is replayed past)
 ALL = "all"  # the condition that pools every scored trial
 
 
@@ -48,7 +50,9 @@ class SubjectState:
 
     ``learner`` is owned by this value: never mutate it; ``step`` works on a copy.
     ``curves`` maps a condition (a cue id, or ``"all"``) to its LearningCurve state dict.
-    ``schedule`` is the rules package's ScheduleState.
+    ``schedule`` is the rules package's ScheduleState. ``behaviour`` maps a cue to its
+    behaviour estimate ``(x, var, n)`` (rigloop.behaviour.CueEstimate); ``choice_history``
+    is the animal's recent-choice kernel h in [-1, 1] (+1 right).
     """
 
     subject: str
@@ -60,6 +64,8 @@ class SubjectState:
     last_trial: int = 0
     trials_total: int = 0
     notes: tuple[str, ...] = field(default=())
+    behaviour: Mapping[str, tuple[float, float, int]] = field(default_factory=dict)
+    choice_history: float = 0.0
 
     # -- bytes ----------------------------------------------------------------
 
@@ -84,6 +90,8 @@ class SubjectState:
             "last_trial": self.last_trial,
             "trials_total": self.trials_total,
             "notes": list(self.notes),
+            "behaviour": {k: list(v) for k, v in sorted(self.behaviour.items())},
+            "choice_history": self.choice_history,
         }
         return msgpack.packb(doc, use_bin_type=True)
 
@@ -120,6 +128,8 @@ class SubjectState:
             last_trial=doc["last_trial"],
             trials_total=doc["trials_total"],
             notes=tuple(doc["notes"]),
+            behaviour={k: (v[0], v[1], v[2]) for k, v in doc["behaviour"].items()},
+            choice_history=doc["choice_history"],
         )
 
     def digest(self) -> str:
@@ -163,7 +173,7 @@ def representation_for(rules):
     hit = _REP_BY_RULES.get(id(rules))
     if hit is not None and hit[0] is rules:
         return hit[1]
-    rep = _representation(rules.features.kind, tuple(rules.cues), rules.features.dt,
+    rep = _representation(rules.features.kind, feature_cues(rules), rules.features.dt,
                           rules.features.n_bins, rules.features.decay)
     if len(_REP_BY_RULES) > 64:
         _REP_BY_RULES.clear()
@@ -190,6 +200,18 @@ def _representation(kind, cues, dt, n_bins, decay):
     return rep
 
 
+def feature_cues(rules) -> tuple[str, ...]:
+    """The learner's column blocks: each cue, or with action values each ``cue:action`` pair."""
+    if rules.learner.values != "cue_action":
+        return tuple(rules.cues)
+    return tuple(action_cue(c, a) for c in rules.cues for a in rules.spec.actions_of(c))
+
+
+def action_cue(cue: str, action: str) -> str:
+    """The feature name of doing ``action`` on ``cue``."""
+    return f"{cue}:{action}"
+
+
 def learner_key(rules) -> str:
     """What the learner's weights mean: learner, parameters, features and cue columns.
 
@@ -198,7 +220,8 @@ def learner_key(rules) -> str:
     """
     f = rules.features
     params = ",".join(f"{k}={v!r}" for k, v in sorted(rules.learner.params.items()))
-    return f"{rules.learner.name}({params})|{f.kind}:dt={f.dt!r}:bins={f.n_bins!r}:decay={f.decay!r}|{','.join(rules.cues)}"
+    return f"{rules.learner.name}({params})|{f.kind}:dt={f.dt!r}:bins={f.n_bins!r}:decay={f.decay!r}|" \
+           f"{','.join(feature_cues(rules))}"
 
 
 def new_learner(rules):
@@ -229,12 +252,19 @@ class ModelView:
     costs one small quadratic form.
     """
 
-    __slots__ = ("_learner", "_rep", "_curves", "_chance", "_sigma2", "_values", "_held", "_read", "_finite")
+    __slots__ = ("_learner", "_rep", "_curves", "_chance", "_sigma2", "_values", "_held", "_read", "_finite",
+                 "_behaviour", "_bsigma2", "_bprior", "_actions", "_choice")
 
     def __init__(self, learner, rep, curves: Mapping[str, Mapping[str, Any]], chance: float, sigma2: float,
-                 finite: bool | None = None, held: dict[str, LearningCurve] | None = None):
+                 finite: bool | None = None, held: dict[str, LearningCurve] | None = None,
+                 behaviour: Mapping[str, tuple] | None = None, bsigma2: float = DEFAULT_SIGMA2,
+                 bprior: float = DEFAULT_PRIOR_VAR, actions: Mapping[str, tuple[str, ...]] | None = None,
+                 choice_cues: frozenset[str] = frozenset()):
         """``finite``: whether every entry of the learner's state is finite, if known;
-        ``held``: curves equal to the ones their states give (a dict the view takes over)."""
+        ``held``: curves equal to the ones their states give (a dict the view takes over);
+        ``behaviour``: the per-cue behaviour estimates ``(x, var, n)`` with their random-walk
+        and prior variances; ``actions``: cue -> its actions when the learner holds action
+        values (None: cue values); ``choice_cues``: the two-choice cues."""
         self._learner = learner
         self._finite = finite
         self._rep = rep
@@ -244,9 +274,15 @@ class ModelView:
         self._values: dict[str, tuple[float, float]] = {}  # cue -> (mean, sd)
         self._held: dict[str, LearningCurve] = {} if held is None else held  # condition -> its curve
         self._read = None  # the learner's onset reader, made on first use
+        self._behaviour = {} if behaviour is None else behaviour
+        self._bsigma2, self._bprior = bsigma2, bprior
+        self._actions = actions
+        self._choice = choice_cues
 
     def _value(self, cue: str) -> tuple[float, float]:
         hit = self._values.get(cue)
+        if hit is None and self._actions is not None:
+            hit = self._values[cue] = self._policy_value(cue)
         if hit is None:
             read = self._read
             if read is None:
@@ -289,3 +325,54 @@ class ModelView:
 
     def trials_in_condition(self, cond: str) -> int:
         return int(self._curve(cond).n)
+
+    # -- action values ----------------------------------------------------------
+
+    def action_probs(self, cue: str) -> tuple[float, ...]:
+        """P(each of the cue's actions) by the animal's behaviour estimate: (respond,
+        withhold) = (p, 1 - p), or (left, right) = (1 - p_right, p_right)."""
+        p = self.p_behaviour(cue)
+        return (1.0 - p, p) if cue in self._choice else (p, 1.0 - p)
+
+    def q_value(self, cue: str, action: str) -> tuple[float, float]:
+        """(mean, sd) of the value of doing ``action`` on ``cue`` (action-value learners)."""
+        return self._value(action_cue(cue, action)) if self._actions is not None else (math.nan, math.nan)
+
+    def _policy_value(self, cue: str) -> tuple[float, float] | None:
+        """The value of a cue under the animal's own behaviour: the row sum_a p(a) x(cue:a),
+        its mean and sd by the learner's prediction. None for a feature column of its own."""
+        if cue not in self._actions:
+            return None  # a "cue:action" column itself: read below
+        rows = [self._rep._onset_entry(action_cue(cue, a))[0] for a in self._actions[cue]]
+        x = sum(p * row for p, row in zip(self.action_probs(cue), rows))
+        mean, var = self._learner.predict(x)
+        return float(mean), math.sqrt(max(float(var), 0.0))
+
+    # -- the animal's behaviour ---------------------------------------------------
+
+    def behaviour_state(self, cue: str) -> tuple[float, float]:
+        """(mean, variance) of the cue's logit behaviour state on its next trial."""
+        hit = self._behaviour.get(cue)
+        if hit is None:
+            return 0.0, self._bprior + self._bsigma2
+        return hit[0], hit[1] + self._bsigma2
+
+    def p_behaviour(self, cue: str) -> float:
+        """Estimated P(respond | cue), or P(right | cue) for a two-choice cue."""
+        return logistic(self.behaviour_state(cue)[0])
+
+    def behaviour_interval(self, cue: str, level: float) -> tuple[float, float]:
+        return band(*self.behaviour_state(cue), level)
+
+    def p_discriminates(self, a: str, b: str, margin: float) -> float:
+        return p_difference_above(*self.behaviour_state(a), *self.behaviour_state(b), margin)
+
+    def dprime_between(self, a: str, b: str, level: float) -> tuple[float, float, float]:
+        return dprime_estimate(*self.behaviour_state(a), *self.behaviour_state(b), level)
+
+    def side_bias(self) -> float:
+        """Mean of P(right | cue) over the two-choice cues, minus 1/2 (0 without such cues)."""
+        if not self._choice:
+            return 0.0
+        cues = sorted(self._choice)
+        return sum(self.p_behaviour(c) for c in cues) / len(cues) - 0.5

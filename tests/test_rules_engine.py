@@ -129,10 +129,11 @@ def test_reversal_block_end_reason():
     s = enter_stage(r.spec, r.open_session(r.start_subject(), "s1", T0), "reversal")
     for t in range(1, 41):
         s = r.observe(s, event(t, "tone_lo", "correct", ul=4.0))
-    view = StaticView(mean={"tone_lo": 0.9, "tone_hi": 0.05}, sd={"tone_lo": 0.2, "tone_hi": 0.1})
+    # licks to tone_lo at logit 2.2 (p 0.9), to tone_hi at logit -2.2 (p 0.1): P(difference > 0.3) near 1
+    view = StaticView(behaviour={"tone_lo": (2.2, 0.2), "tone_hi": (-2.2, 0.2)})
     s, plan = r.decide(s, view, 41, np.random.default_rng(0))
     assert plan.reasons[0] == (
-        "block 'reversed' ended: p_value_above(tone_lo, 0.5) = 0.977 >= 0.95; value(tone_hi) = 0.05 < 0.2 "
+        "block 'reversed' ended: p_discriminates(tone_lo, tone_hi, 0.3) = 1 >= 0.95 "
         "after 40 trials -> block 'forward'"
     )
     assert (plan.block, s.trials_in_block, s.blocks_in_stage) == ("forward", 0, 1)
@@ -145,8 +146,23 @@ def test_min_trials_hold_a_block():
     s = enter_stage(r.spec, r.open_session(r.start_subject(), "s1", T0), "reversal")
     for t in range(1, 40):
         s = r.observe(s, event(t, "tone_lo", "correct", ul=4.0))
-    view = StaticView(mean={"tone_lo": 0.9, "tone_hi": 0.05}, sd={"tone_lo": 0.2, "tone_hi": 0.1})
+    view = StaticView(behaviour={"tone_lo": (2.2, 0.2), "tone_hi": (-2.2, 0.2)})
     _, plan = r.decide(s, view, 40, np.random.default_rng(0))
+    assert plan.block == "reversed"
+
+
+def test_a_learner_that_learned_the_payouts_does_not_end_a_block():
+    """The reversal criterion reads the animal's licking: confident values alone end nothing."""
+    r = load_example("tone_reversal")
+    from rigloop.rules.engine import enter_stage
+
+    s = enter_stage(r.spec, r.open_session(r.start_subject(), "s1", T0), "reversal")
+    for t in range(1, 101):
+        s = r.observe(s, event(t, "tone_lo", "correct", ul=4.0))
+    # the task's payouts learned perfectly; the animal licks 90% to both tones
+    view = StaticView(mean={"tone_lo": 0.95, "tone_hi": 0.0}, sd={"tone_lo": 0.05, "tone_hi": 0.05},
+                      behaviour={"tone_lo": (2.2, 0.05), "tone_hi": (2.2, 0.05)})
+    _, plan = r.decide(s, view, 101, np.random.default_rng(0))
     assert plan.block == "reversed"
 
 
@@ -156,22 +172,32 @@ def test_stage_advance_and_step_back():
     s = r.open_session(r.start_subject(), "s1", T0)
     for t in range(1, 31):
         s = r.observe(s, event(t, "odor_a", "correct", ul=6.0))
-    s, plan = r.decide(s, StaticView(correct={"odor_a": 0.9}), 31, np.random.default_rng(0))
+    # presses to odor_a at logit 2.2 +/- 0.3 (p 0.9, 95% band from 0.834)
+    s, plan = r.decide(s, StaticView(behaviour={"odor_a": (2.2, 0.09)}), 31, np.random.default_rng(0))
     assert plan.stage == "nogo_intro"
-    assert plan.reasons[0] == ("stage 'lever_shaping' advances to 'nogo_intro': p_lower(odor_a) = 0.8 >= 0.7; "
-                               "trials_in_stage = 30 >= 30 after 30 trials in the stage")
+    assert plan.reasons[0] == ("stage 'lever_shaping' advances to 'nogo_intro': p_respond_lower(odor_a) = 0.834 "
+                               ">= 0.7; trials_in_stage = 30 >= 30 after 30 trials in the stage")
     for t in range(31, 81):  # false alarms: responding, so no disengagement
         s = r.observe(s, event(t, "odor_b", "incorrect"))
-    s, plan = r.decide(s, StaticView(correct={"odor_a": 0.3}), 81, np.random.default_rng(0))
+    s, plan = r.decide(s, StaticView(behaviour={"odor_a": (-1.4, 0.09)}), 81, np.random.default_rng(0))
     assert plan.stage == "lever_shaping" and "steps back to 'lever_shaping'" in plan.reasons[0]
 
 
+WALD_SPRT = 'sprt = { test = "wald", p0 = 0.6, p1 = 0.85, alpha = 0.05, beta = 0.2, cond = "all" }'
+
+
 def test_go_nogo_counts_dprime_and_sprt():
-    """Go/no-go counts feed d' (log-linear) and the block's SPRT reaches its verdict."""
+    """Go/no-go counts feed d' (log-linear) and the block's Wald SPRT reaches its verdict."""
+    import re
+
     from rigloop.performance import dprime
+    from rigloop.rules.load import example_text
     from rigloop.rules.engine import ScheduleEnv, enter_stage
 
-    r = load_example("gonogo_shaping")
+    # the example's criterion block, with Wald's SPRT named explicitly (cusum is the default)
+    text, n = re.subn(r"^sprt = \{.*\}$", WALD_SPRT, example_text("gonogo_shaping"), flags=re.M)
+    assert n == 1
+    r = load_rules(text)
     s = enter_stage(r.spec, r.open_session(r.start_subject(), "s1", T0), "full_task")
     t = 0
     for _ in range(20):

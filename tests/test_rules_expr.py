@@ -39,7 +39,8 @@ def test_unknown_function_message_is_pinned():
         "      vlaue(tone_hi) > 0.6\n"
         "      ^^^^^\n"
         "    allowed functions: value, sd, p_value_above, p_correct, p_lower, p_upper, p_above_chance, "
-        "min, max, abs"
+        "p_respond, p_respond_lower, p_respond_upper, p_right, p_right_lower, p_right_upper, p_discriminates, "
+        "dprime_of, dprime_lower, dprime_upper, min, max, abs"
     ]
 
 

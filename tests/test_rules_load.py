@@ -162,7 +162,9 @@ def test_all_problems_reported_at_once():
         "stages.s1.blocks.b1.end.when: unknown function 'vlaue'\n"
         "      vlaue(tone_hi) > 0.6\n"
         "      ^^^^^\n"
-        "    allowed functions: value, sd, p_value_above, p_correct, p_lower, p_upper, p_above_chance, min, max, abs"
+        "    allowed functions: value, sd, p_value_above, p_correct, p_lower, p_upper, p_above_chance, p_respond, p_respond_lower, "
+        "p_respond_upper, p_right, p_right_lower, p_right_upper, p_discriminates, dprime_of, dprime_lower, "
+        "dprime_upper, min, max, abs"
     )
     assert got[2] == "stages.s1.blocks.b2.contingency.tone_mid: unknown cue 'tone_mid' (declared cues: tone_hi, tone_lo)"
     assert len(got) == 3
@@ -202,7 +204,7 @@ def test_learner_feature_mismatch():
 
 def test_learner_parameter_ranges():
     got = problems(BASE.replace('model = "kalman_filter"', 'model = "kalman_filter"\nnoise = -1\nalpha = 0.1'))
-    assert "learner.alpha: unknown key (allowed: model, diffusion, noise, prior_var)" in got
+    assert "learner.alpha: unknown key (allowed: model, values, diffusion, noise, prior_var)" in got
     assert "learner.noise: must be a number in (0, 100] (got -1)" in got
 
 

@@ -23,11 +23,11 @@ from typing import Any
 import numpy as np
 
 from ..performance import dprime as _dprime
-from ..performance import sprt_bounds
+from ..performance import sequential_bounds, sequential_step
 from ..values import builder
 from .derived import derived
 from .expr import Env, compiled, evaluate, explain_if, fmt
-from .model import Block, Spec, Stage
+from .model import Block, Spec, Sprt, Stage
 from .policies import choose_cue, reward_prob, staircase_step
 from .state import ScheduleState
 from .welfare import limit_values
@@ -102,6 +102,8 @@ class ScheduleEnv(Env):
             return math.nan if s.stair_level is None else float(s.stair_level)
         if name == "reversals":
             return float(s.stair_reversals)
+        if name == "side_bias":
+            return float(self.view.side_bias())
         raise KeyError(name)  # pragma: no cover - the checker admits only known names
 
     def call(self, func: str, args) -> float:
@@ -123,7 +125,32 @@ class ScheduleEnv(Env):
                 return math.nan
             lo, hi = v.p_interval(cue, level)
             return float(lo if func == "p_lower" else hi)
-        raise KeyError(func)  # pragma: no cover
+        return _behaviour_call(v, func, cue, args, self.cue)
+
+
+def _behaviour_call(v, func: str, cue: str, args, placeholder: str | None) -> float:
+    """The behaviour functions (``p_respond``, ``p_discriminates``, ``dprime_of``, ...)."""
+    if func in ("p_respond", "p_right"):
+        return float(v.p_behaviour(cue))
+    if func in ("p_respond_lower", "p_respond_upper", "p_right_lower", "p_right_upper"):
+        level = float(args[1]) if len(args) > 1 else 0.95
+        if not 0.0 < level < 1.0:
+            return math.nan
+        lo, hi = v.behaviour_interval(cue, level)
+        return float(lo if func.endswith("_lower") else hi)
+    other = placeholder if args[1] == "cue" else args[1]
+    if func == "p_discriminates":
+        margin = float(args[2]) if len(args) > 2 else 0.0
+        if not 0.0 <= margin < 1.0:
+            return math.nan
+        return float(v.p_discriminates(cue, other, margin))
+    if func in ("dprime_of", "dprime_lower", "dprime_upper"):
+        level = float(args[2]) if len(args) > 2 else 0.95
+        if not 0.0 < level < 1.0:
+            return math.nan
+        d, lo, hi = v.dprime_between(cue, other, level)
+        return float(d if func == "dprime_of" else lo if func == "dprime_lower" else hi)
+    raise KeyError(func)  # pragma: no cover - the checker admits only known functions
 
 
 # --------------------------------------------------------------------------- state moves
@@ -237,12 +264,12 @@ def observe(spec: Spec, sched: ScheduleState, event) -> ScheduleState:
         ch.update(staircase_step(block.staircase, sched, correct))
     if block is not None and block.sprt is not None and (correct or incorrect):
         t = block.sprt
-        if sched.sprt_verdict == "continue" and (t.cond == "all" or t.cond == cue):
-            # Lambda += ln(p1/p0) on a success, ln((1 - p1)/(1 - p0)) on a failure (Wald 1945)
-            llr = sched.sprt_llr + (math.log(t.p1 / t.p0) if correct else math.log((1 - t.p1) / (1 - t.p0)))
-            ln_b, ln_a = sprt_bounds(t.alpha, t.beta)
-            ch["sprt_llr"] = llr
-            ch["sprt_verdict"] = "accept_h1" if llr >= ln_a else "accept_h0" if llr <= ln_b else "continue"
+        verdict = sched.sprt_verdict
+        if verdict != "accept_h1" and (t.cond == "all" or t.cond == cue):
+            # a pass stays until the block changes; after Wald's "accept_h0" the test starts again at 0
+            up, down, upper, lower = _sequential_bounds(t)
+            ch["sprt_llr"], ch["sprt_verdict"] = sequential_step(
+                t.test, sched.sprt_llr if verdict == "continue" else 0.0, correct, up, down, upper, lower)
     side = event.response.value
     if side in ("left", "right"):
         window = block.next_cue.window if block is not None and block.next_cue.kind == "anti_bias" else 10
@@ -374,6 +401,13 @@ def _move_tests(stage: Stage) -> tuple:
     return derived(stage, "moves", lambda st: tuple(
         (m, verb, compiled(m.when)) for m, verb in ((st.step_back, "steps back"), (st.advance, "advances"))
         if m is not None))
+
+
+def _sequential_bounds(t: Sprt) -> tuple[float, float, float, float]:
+    """(up, down, upper, lower) of a block's sequential criterion: its log-LR steps and
+    thresholds, computed once per rule file (no log() per trial)."""
+    return derived(t, "sequential_bounds", lambda x: sequential_bounds(
+        x.test, x.p0, x.p1, x.alpha, x.beta, x.horizon))
 
 
 def _largest_ul(spec: Spec) -> float:

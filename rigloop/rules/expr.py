@@ -90,6 +90,8 @@ NAMES: dict[str, NameSpec] = {
     "difficulty": NameSpec(NUM, -INF, INF, "the block's staircase level"),
     "reversals": NameSpec(NUM, 0, INF, "reversals of the block's staircase"),
     "right_bias": NameSpec(NUM, 0, 1, "recent fraction of 'right' choices (two-choice tasks)"),
+    "side_bias": NameSpec(NUM, -0.5, 0.5, "mean over two-choice cues of the estimated P(right | cue), minus 0.5 "
+                                          "(> 0: the animal leans right)"),
     "true": NameSpec(BOOL, 0, 1, "the constant true"),
     "false": NameSpec(BOOL, 0, 1, "the constant false"),
 }
@@ -102,6 +104,25 @@ FUNCTIONS: dict[str, FuncSpec] = {
     "p_lower": FuncSpec(("cond", "level"), 1, NUM, *_P, "lower end of the two-sided credible interval (level 0.95)"),
     "p_upper": FuncSpec(("cond", "level"), 1, NUM, *_P, "upper end of the two-sided credible interval (level 0.95)"),
     "p_above_chance": FuncSpec(("cond",), 0, NUM, *_P, "P(response probability > chance)"),
+    # the animal's own behaviour per cue (rigloop.behaviour): what it does, not what the task pays
+    "p_respond": FuncSpec(("rcue",), 0, NUM, *_P, "estimated P(the animal responds to a go/no-go cue) on its next trial"),
+    "p_respond_lower": FuncSpec(("rcue", "level"), 1, NUM, *_P,
+                                "lower end of the two-sided credible interval of p_respond (level 0.95)"),
+    "p_respond_upper": FuncSpec(("rcue", "level"), 1, NUM, *_P,
+                                "upper end of the two-sided credible interval of p_respond (level 0.95)"),
+    "p_right": FuncSpec(("ccue",), 0, NUM, *_P, "estimated P(the animal chooses right | a two-choice cue)"),
+    "p_right_lower": FuncSpec(("ccue", "level"), 1, NUM, *_P,
+                              "lower end of the two-sided credible interval of p_right (level 0.95)"),
+    "p_right_upper": FuncSpec(("ccue", "level"), 1, NUM, *_P,
+                              "upper end of the two-sided credible interval of p_right (level 0.95)"),
+    "p_discriminates": FuncSpec(("bcue", "bcue", "margin"), 1, NUM, *_P,
+                                "posterior P(response probability to the first cue - to the second > margin (0))"),
+    "dprime_of": FuncSpec(("bcue", "bcue"), 0, NUM, -INF, INF,
+                          "behavioural d' of the first cue (go, or right) against the second, from the estimates"),
+    "dprime_lower": FuncSpec(("bcue", "bcue", "level"), 1, NUM, -INF, INF,
+                             "lower end of the two-sided credible interval of dprime_of (level 0.95)"),
+    "dprime_upper": FuncSpec(("bcue", "bcue", "level"), 1, NUM, -INF, INF,
+                             "upper end of the two-sided credible interval of dprime_of (level 0.95)"),
     "min": FuncSpec(("number", "number"), 0, NUM, -INF, INF, "smallest of its numbers", variadic=True),
     "max": FuncSpec(("number", "number"), 0, NUM, -INF, INF, "largest of its numbers", variadic=True),
     "abs": FuncSpec(("number",), 0, NUM, 0, INF, "absolute value"),
@@ -259,6 +280,7 @@ class Context:
     cues: tuple[str, ...]
     cue_var: bool = False
     unavailable: Mapping[str, str] = field(default_factory=dict)
+    choice_cues: frozenset[str] = frozenset()  # two-choice cues (roles left/right); the rest respond or not
 
 
 def allowed_hint(kind: str = "all") -> str:
@@ -520,10 +542,19 @@ class _Checker:
             args.append(self._arg(fname, a, kind, depth))
         if any(a is None for a in args):
             return None, spec.returns
+        pair = [a.cue for a, kind in zip(args, kinds) if kind == "bcue" and a.cue != "cue"]
+        if len(pair) == 2:
+            if pair[0] == pair[1]:
+                return self.fail(n, f"{fname}() compares two different cues (got {pair[0]} twice)")
+            if (pair[0] in self.ctx.choice_cues) != (pair[1] in self.ctx.choice_cues):
+                return self.fail(n, f"{fname}() compares two cues of one kind: {pair[0]} and {pair[1]} are one "
+                                    "two-choice and one go/no-go cue")
         return Call(col, end, fname, tuple(args)), spec.returns
 
     def _arg(self, fname: str, a: ast.AST, kind: str, depth: int) -> Node | None:
         col, end = _span(a, self.text)
+        if kind in _CUE_KINDS:
+            return self._behaviour_cue(fname, a, kind, col, end)
         if kind in ("cue", "cond"):
             cue = a.id if isinstance(a, ast.Name) else a.value if isinstance(a, ast.Constant) and isinstance(a.value, str) else None
             if cue is None:
@@ -542,7 +573,37 @@ class _Checker:
         if kind == "level" and isinstance(node, Const) and not 0.0 < node.value < 1.0:
             self.fail(a, f"out-of-range constant {self.text[col:end]}: a credible level is in (0, 1), e.g. 0.95")
             return None
+        if kind == "margin" and isinstance(node, Const) and not 0.0 <= node.value < 1.0:
+            self.fail(a, f"out-of-range constant {self.text[col:end]}: a margin between response probabilities "
+                         "is in [0, 1), e.g. 0.3")
+            return None
         return node
+
+    def _behaviour_cue(self, fname: str, a: ast.AST, kind: str, col: int, end: int) -> Node | None:
+        """A cue argument of a behaviour function: a go/no-go cue (``rcue``), a two-choice
+        cue (``ccue``), or either (``bcue``; a call's two cues must then be of one kind)."""
+        cue = a.id if isinstance(a, ast.Name) else a.value if isinstance(a, ast.Constant) and isinstance(a.value, str) else None
+        if cue is None:
+            self.fail(a, f"{fname}() needs a cue id here")
+            return None
+        if cue == "cue" and self.ctx.cue_var:
+            return CueRef(col, end, cue)
+        if cue not in self.ctx.cues:
+            allowed = list(self.ctx.cues) + (["cue"] if self.ctx.cue_var else [])
+            self.fail(a, f"unknown cue '{cue}'", "allowed cues: " + (", ".join(allowed) or "(none declared)"))
+            return None
+        choice = cue in self.ctx.choice_cues
+        if kind == "rcue" and choice:
+            self.fail(a, f"'{cue}' is a two-choice cue: the animal chooses a side, it does not respond or withhold; "
+                         f"use p_right({cue})")
+            return None
+        if kind == "ccue" and not choice:
+            self.fail(a, f"'{cue}' is not a two-choice cue (role left or right); use p_respond({cue})")
+            return None
+        return CueRef(col, end, cue)
+
+
+_CUE_KINDS = ("rcue", "ccue", "bcue")  # the cue arguments of the behaviour functions
 
 
 def _is_number(v) -> bool:

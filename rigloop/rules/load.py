@@ -11,6 +11,9 @@ The file format is described in the README section "Rule files"; in short::
     [learner]      model = "kalman_td", gamma = ..., ...
     [features]     kind = "serial_compound", dt = 0.25, n_bins = 8
     [performance]  chance = 0.5, sigma2 = 0.05
+    [behaviour]    sigma2 = 0.08, prior_var = 2.0   (the per-cue estimate of what the animal does)
+    [outcomes]     timeout = -0.5, airpuff = -1.0, noise = -0.25   (reward units)
+    [response_model]  beta, theta, lapse, bias, persev, decay
     [cues]         tone_hi = { role = "go" }
     [stages.S]     first_block, advance = {when, to}, step_back = {when, to}, new_session
     [stages.S.blocks.B]  contingency, next_cue, reward, staircase, sprt, end
@@ -35,6 +38,9 @@ from .model import (
     FEATURE_KINDS,
     LEARNERS,
     REWARD_LEARNERS,
+    SEQUENTIAL_TESTS,
+    VALUE_KINDS,
+    BehaviourSpec,
     Block,
     BlockEnd,
     Contingency,
@@ -43,7 +49,9 @@ from .model import (
     LearnerSpec,
     Move,
     NextCue,
+    OutcomeValues,
     PerformanceSpec,
+    ResponseSpec,
     RewardPolicy,
     SessionEnd,
     Spec,
@@ -224,7 +232,7 @@ def load_any(name_or_path: str):
 
 
 TOP_KEYS = ["name", "description", "reward_unit_ul", "first_stage", "learner", "features", "performance",
-            "cues", "stages", "session_end", "welfare"]
+            "behaviour", "outcomes", "response_model", "cues", "stages", "session_end", "welfare"]
 
 
 def parse_spec(data: dict) -> tuple[Spec | None, list[str]]:
@@ -242,6 +250,7 @@ def parse_spec(data: dict) -> tuple[Spec | None, list[str]]:
         chance=r.num(perf_t, "chance", "performance.chance", 0.5, lo=0, hi=1, lo_open=True, hi_open=True),
         sigma2=r.num(perf_t, "sigma2", "performance.sigma2", 0.05, lo=0, lo_open=True, hi=10),
     )
+    behaviour, outcomes, response = _behaviour(r, data), _outcomes(r, data), _response_model(r, data)
     cues = _cues(r, data)
     welfare, wp = parse_limits(data.get("welfare"), "welfare")
     r.problems.extend(wp)
@@ -260,16 +269,50 @@ def parse_spec(data: dict) -> tuple[Spec | None, list[str]]:
     spec = Spec(
         name=name, description=description, reward_unit_ul=unit, learner=learner, features=features,
         performance=performance, cues=cues, stages=stages, first_stage=first_stage,
-        session_end=tuple(session_end), welfare=welfare,
+        session_end=tuple(session_end), welfare=welfare, behaviour=behaviour, outcomes=outcomes, response=response,
     )
     return spec, []
+
+
+def _behaviour(r: _Reader, data: dict) -> BehaviourSpec:
+    t = r.table(data, "behaviour", "behaviour") or {}
+    r.keys(t, ["sigma2", "prior_var"], "behaviour")
+    d = BehaviourSpec()
+    return BehaviourSpec(
+        sigma2=float(r.num(t, "sigma2", "behaviour.sigma2", d.sigma2, lo=0, lo_open=True, hi=5)),
+        prior_var=float(r.num(t, "prior_var", "behaviour.prior_var", d.prior_var, lo=0, lo_open=True, hi=25)),
+    )
+
+
+def _outcomes(r: _Reader, data: dict) -> OutcomeValues:
+    t = r.table(data, "outcomes", "outcomes") or {}
+    names = ["timeout", "airpuff", "noise"]
+    r.keys(t, names, "outcomes")
+    d = OutcomeValues()
+    vals = {k: float(r.num(t, k, f"outcomes.{k}", getattr(d, k), lo=-10, hi=0)) for k in names}
+    return OutcomeValues(**vals)
+
+
+def _response_model(r: _Reader, data: dict) -> ResponseSpec:
+    t = r.table(data, "response_model", "response_model") or {}
+    r.keys(t, ["beta", "theta", "lapse", "bias", "persev", "decay"], "response_model")
+    d = ResponseSpec()
+
+    def get(key: str, **bounds) -> float | None:
+        v = r.num(t, key, f"response_model.{key}", getattr(d, key), **bounds)
+        return None if v is None else float(v)
+
+    return ResponseSpec(beta=get("beta", lo=0, hi=100), theta=get("theta", lo=-10, hi=10),
+                        lapse=get("lapse", lo=0, hi=1, hi_open=True), bias=get("bias", lo=-10, hi=10),
+                        persev=get("persev", lo=-10, hi=10), decay=get("decay", lo=0, hi=1, hi_open=True))
 
 
 def _learner(r: _Reader, data: dict) -> LearnerSpec:
     t = r.table(data, "learner", "learner", required=True) or {}
     model = r.text(t, "model", "learner.model", choices=LEARNERS, required=True) or "rescorla_wagner"
     table = LEARNER_PARAMS[model]
-    r.keys(t, ["model", *table], "learner")
+    r.keys(t, ["model", "values", *table], "learner")
+    values = r.text(t, "values", "learner.values", "cue", choices=VALUE_KINDS) or "cue"
     params: dict[str, Any] = {}
     for key, (default, lo, hi, lo_open) in table.items():
         path = f"learner.{key}"
@@ -280,7 +323,7 @@ def _learner(r: _Reader, data: dict) -> LearnerSpec:
             params[key] = [float(x) for x in items]
         else:
             params[key] = r.num({key: v}, key, path, default, lo=lo, hi=hi, lo_open=lo_open)
-    return LearnerSpec(model, params)
+    return LearnerSpec(model, params, values)
 
 
 def _features(r: _Reader, data: dict, learner: LearnerSpec) -> FeatureSpec:
@@ -306,6 +349,10 @@ def _features(r: _Reader, data: dict, learner: LearnerSpec) -> FeatureSpec:
         r.add("features.kind", f"'{kind}' features are timed; learner '{learner.name}' learns one reward per "
                                "trial and needs kind = \"identity\"")
     return FeatureSpec(kind, dt, n_bins, decay)
+
+
+def _choice_cues(cues: dict[str, CueSpec]) -> frozenset[str]:
+    return frozenset(c for c, k in cues.items() if k.role in ("left", "right"))
 
 
 def _cues(r: _Reader, data: dict) -> dict[str, CueSpec]:
@@ -347,7 +394,7 @@ def _stages(r: _Reader, data: dict, cues: dict[str, CueSpec], welfare) -> dict[s
         r.add("stages", f"at most {MAX_STAGES} stages (got {len(t)})")
     names = list(t)
     out: dict[str, Stage] = {}
-    ctx = X.Context(tuple(cues))
+    ctx = X.Context(tuple(cues), choice_cues=_choice_cues(cues))
     for i, (sname, st) in enumerate(t.items()):
         path = f"stages.{sname}"
         if not isinstance(st, dict):
@@ -440,7 +487,7 @@ def _block(r: _Reader, b: dict, path: str, name: str, bnames: list[str], default
     if not has_stair:
         for n in ("difficulty", "reversals"):
             unavailable[n] = f"needs a staircase: add [{path}.staircase]"
-    ctx = X.Context(tuple(cues), unavailable=unavailable)
+    ctx = X.Context(tuple(cues), unavailable=unavailable, choice_cues=_choice_cues(cues))
     reward = _reward(r, b, path, cues)
     staircase = _staircase(r, b, path)
     sprt = _sprt(r, b, path, bcues)
@@ -534,7 +581,7 @@ def _reward(r: _Reader, b: dict, path: str, cues) -> RewardPolicy:
         return RewardPolicy("fixed")
     r.keys(t, ["policy", "floor", "certainty"], rpath)
     floor = r.num(t, "floor", f"{rpath}.floor", None, lo=0, hi=1, required=True)
-    ctx = X.Context(tuple(cues), cue_var=True)
+    ctx = X.Context(tuple(cues), cue_var=True, choice_cues=_choice_cues(cues))
     certainty = r.expr(t, "certainty", f"{rpath}.certainty", ctx, X.NUM)
     if "certainty" not in t:
         certainty = X.parse("p_value_above(cue, 0.5)", ctx, X.NUM)
@@ -576,22 +623,34 @@ def _sprt(r: _Reader, b: dict, path: str, bcues: tuple[str, ...]) -> Sprt | None
     t = r.table(b, "sprt", spath)
     if t is None:
         return None
-    r.keys(t, ["p0", "p1", "alpha", "beta", "cond"], spath)
+    r.keys(t, ["test", "p0", "p1", "alpha", "beta", "horizon", "cond"], spath)
+    test = r.text(t, "test", f"{spath}.test", None, choices=SEQUENTIAL_TESTS) if "test" in t else "cusum"
     p0 = r.num(t, "p0", f"{spath}.p0", 0.5, lo=0, hi=1, lo_open=True, hi_open=True, required=True)
     p1 = r.num(t, "p1", f"{spath}.p1", 0.8, lo=0, hi=1, lo_open=True, hi_open=True, required=True)
     if p1 <= p0:
         r.add(f"{spath}.p1", f"{X.fmt(p1)} must be above p0 {X.fmt(p0)} (H1 is 'performing at p1')")
     alpha = r.num(t, "alpha", f"{spath}.alpha", 0.05, lo=0, hi=0.5, lo_open=True, hi_open=True)
-    beta = r.num(t, "beta", f"{spath}.beta", 0.2, lo=0, hi=0.5, lo_open=True, hi_open=True)
+    # beta only for wald, horizon only for cusum (with an unknown test, reported above, only their ranges)
+    beta, horizon = 0.2, 2000
+    if "beta" in t and test not in (None, "wald"):
+        r.add(f"{spath}.beta", f'is allowed only with test = "wald" (this test is "{test}", which has no '
+                               "'performing at p0' boundary and so no miss rate)")
+    else:
+        beta = r.num(t, "beta", f"{spath}.beta", beta, lo=0, hi=0.5, lo_open=True, hi_open=True)
+    if "horizon" in t and test not in (None, "cusum"):
+        r.add(f"{spath}.horizon", f'is allowed only with test = "cusum" (this test is "{test}"; only the '
+                                  "CUSUM states its guarantee over a horizon of trials)")
+    else:
+        horizon = r.num(t, "horizon", f"{spath}.horizon", horizon, lo=10, hi=10_000_000, integer=True)
     cond = r.text(t, "cond", f"{spath}.cond", "all")
     if cond != "all" and cond not in bcues:
         r.add(f"{spath}.cond", f"must be all or a cue of this block (cues: {', '.join(bcues)}; got {cond!r})")
-    return Sprt(p0, p1, alpha, beta, cond or "all")
+    return Sprt(p0, p1, test or "cusum", alpha, beta, horizon, cond or "all")
 
 
 def _session_end(r: _Reader, data: dict, cues) -> list[SessionEnd]:
     t = r.table(data, "session_end", "session_end") or {}
-    ctx = X.Context(tuple(cues))
+    ctx = X.Context(tuple(cues), choice_cues=_choice_cues(cues))
     out = []
     for name, v in t.items():
         path = f"session_end.{name}"

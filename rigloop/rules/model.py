@@ -10,6 +10,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import Any
 
+from ..performance import SEQUENTIAL_TESTS
 from .expr import Expr
 
 LEARNERS = ("rescorla_wagner", "kalman_filter", "td", "kalman_td")
@@ -19,12 +20,66 @@ CUE_ROLES = ("go_nogo", "go", "nogo", "left", "right", "plain")
 SIDES = ("left", "right")
 
 
+VALUE_KINDS = ("cue", "cue_action")
+RESPOND_ACTIONS = ("respond", "withhold")  # what an animal can do on a go/no-go cue
+CHOICE_ACTIONS = ("left", "right")  # ... and on a two-choice cue
+
+
 @dataclass(frozen=True, slots=True)
 class LearnerSpec:
-    """The learner: ``name`` in LEARNERS; ``params`` floats (or per-cue lists)."""
+    """The learner: ``name`` in LEARNERS; ``params`` floats (or per-cue lists).
+
+    ``values``: ``cue`` (Pavlovian: the value of each cue) or ``cue_action`` (operant:
+    the value of each (cue, action) pair, learned from what the animal did and got).
+    """
 
     name: str
     params: dict[str, Any]
+    values: str = "cue"
+
+
+@dataclass(frozen=True, slots=True)
+class BehaviourSpec:
+    """The per-cue behaviour estimate (rigloop.behaviour): random-walk variance of the
+    logit state per cue trial (forgetting) and its variance before the first trial."""
+
+    sigma2: float = 0.08
+    prior_var: float = 2.0
+
+
+@dataclass(frozen=True, slots=True)
+class OutcomeValues:
+    """What each punishment is worth to the learner, in reward units (negative: aversive).
+
+    A trial with ``punishment`` set (or ``timeout_s`` > 0 and none named, a timeout) adds
+    its value at ``punishment_time`` (without one: at the response, else the last cue's end).
+    """
+
+    timeout: float = -0.5
+    airpuff: float = -1.0
+    noise: float = -0.25
+
+    def value_of(self, punishment: str) -> float:
+        return float(getattr(self, punishment))
+
+
+@dataclass(frozen=True, slots=True)
+class ResponseSpec:
+    """The response model that turns learner values into a predicted response
+    probability (``p_model[cue]``; rigloop.response_models, shared with ``fit``).
+
+    go/no-go: p = lapse/2 + (1 - lapse) logistic(beta (V - theta)), V the cue's value (with
+    action values: Q(respond) - Q(withhold)); two-choice (action values):
+    p_right = lapse/2 + (1 - lapse) logistic(beta (Q_right - Q_left) + bias + persev h), h the
+    choice-history kernel (decay per trial).
+    """
+
+    beta: float = 5.0
+    theta: float | None = None  # None: 0.5 with cue values, 0 with action values
+    lapse: float = 0.05
+    bias: float = 0.0
+    persev: float = 0.0
+    decay: float = 0.7
 
 
 @dataclass(frozen=True, slots=True)
@@ -123,12 +178,21 @@ class Staircase:
 
 @dataclass(frozen=True, slots=True)
 class Sprt:
-    """A block's SPRT on correct/incorrect trials of ``cond`` (a cue id or ``all``)."""
+    """A block's sequential criterion on correct/incorrect trials of ``cond`` (a cue id or
+    ``all``): does the animal perform at p1 rather than p0?
+
+    ``test`` in SEQUENTIAL_TESTS: ``cusum`` (Page's CUSUM; false passes within ``horizon``
+    trials at most ``alpha``), ``power_one`` (Robbins; false passes ever at most ``alpha``),
+    ``wald`` (Wald's SPRT, restarting when it accepts p0; ``beta`` is its miss rate).
+    ``beta`` is read by wald only, ``horizon`` by cusum only.
+    """
 
     p0: float
     p1: float
+    test: str = "cusum"
     alpha: float = 0.05
     beta: float = 0.2
+    horizon: int = 2000
     cond: str = "all"
 
 
@@ -204,3 +268,14 @@ class Spec:
     welfare: Any  # welfare.WelfareLimits
     choice_window: int = 10
     extra: dict[str, Any] = field(default_factory=dict)
+    behaviour: BehaviourSpec = field(default_factory=BehaviourSpec)
+    outcomes: OutcomeValues = field(default_factory=OutcomeValues)
+    response: ResponseSpec = field(default_factory=ResponseSpec)
+
+    def choice_cues(self) -> frozenset[str]:
+        """The two-choice cues (roles left and right)."""
+        return frozenset(c for c, k in self.cues.items() if k.role in SIDES)
+
+    def actions_of(self, cue: str) -> tuple[str, ...]:
+        """What the animal can do on ``cue``: choose a side, or respond / withhold."""
+        return CHOICE_ACTIONS if self.cues[cue].role in SIDES else RESPOND_ACTIONS

@@ -2,8 +2,9 @@
 
 from __future__ import annotations
 
+from ..performance import sequential_summary
 from .expr import fmt
-from .model import Block, NextCue, Spec
+from .model import Block, NextCue, Spec, Sprt
 
 _LEARNER_NAMES = {
     "rescorla_wagner": "Rescorla-Wagner",
@@ -107,8 +108,7 @@ def _block(add, b: Block) -> None:
             f"{st.up} error{'s' if st.up > 1 else ''} -> {fmt(st.step_easier)} easier; "
             f"targets about {fmt(100 * st.target())}% correct with equal steps and 1 up (Levitt 1971)")
     if b.sprt is not None:
-        t = b.sprt
-        add(f"    SPRT on {t.cond}: p0 {fmt(t.p0)} vs p1 {fmt(t.p1)}, alpha {fmt(t.alpha)}, beta {fmt(t.beta)}")
+        _sequential(add, b.sprt)
     e = b.end
     if e is None:
         add("    does not end by itself")
@@ -120,6 +120,31 @@ def _block(add, b: Block) -> None:
         parts.append(f"at {e.max_trials} trials at the latest")
     floor = f" (not before {e.min_trials} trials)" if e.min_trials else ""
     add(f"    ends {'; or '.join(parts)}{floor}, then block '{e.then}'")
+
+
+def _sequential(add, t: Sprt) -> None:
+    """The block's sequential criterion: the test, its threshold, its guarantee, how soon
+    it passes an animal at p1; for Wald's, a warning that restarts spend alpha again."""
+    sm = sequential_summary(t.test, t.p0, t.p1, t.alpha, t.beta, t.horizon)
+    h = fmt(sm["threshold"])
+    if t.test == "cusum":
+        how = (f"S = max(0, S + the trial's log likelihood ratio) reaches h = ln(horizon {t.horizon} / "
+               f"alpha {fmt(t.alpha)}) = {h}")
+    elif t.test == "power_one":
+        how = f"the log likelihood ratio (no lower boundary) reaches ln(1 / alpha {fmt(t.alpha)}) = {h}"
+    else:
+        how = (f"the log likelihood ratio reaches ln A = {h} (alpha {fmt(t.alpha)}, beta {fmt(t.beta)}); "
+               f"at ln B = {fmt(sm['restart_at'])} it accepts p0 (sprt_reject, until the next trial it "
+               "counts) and starts again from 0")
+    source = {"cusum": "Page 1954", "power_one": "Robbins 1970", "wald": "Wald 1945"}[t.test]
+    add(f"    sequential criterion on {t.cond} ({sm['name']}; {source}): p0 {fmt(t.p0)} vs p1 {fmt(t.p1)}; "
+        f"sprt_accept once {how}; a pass stays until the block changes")
+    add(f"      guarantee: {sm['guarantee']}")
+    add(f"      expect about {sm['trials_to_pass_p1']:.0f} trials to pass once the animal performs at p1 "
+        "(approximate)" + (", more after a long poor stretch" if t.test == "power_one" else ""))
+    if t.test == "wald":
+        add("      warning: Wald's SPRT spends alpha again at every restart, so it bounds nothing over many "
+            'restarts; test = "cusum" bounds false passes over a horizon of trials')
 
 
 def _next_cue(n: NextCue) -> str:

@@ -10,6 +10,8 @@ import math
 from collections.abc import Mapping
 from typing import Protocol, runtime_checkable
 
+from .. import behaviour as B
+
 
 @runtime_checkable
 class SubjectView(Protocol):
@@ -31,12 +33,29 @@ class SubjectView(Protocol):
     def prob_above_chance(self, cond: str) -> float:
         """P(response probability > chance)."""
 
+    def p_behaviour(self, cue: str) -> float:
+        """Estimated P(respond | cue), or P(right | cue) for a two-choice cue (rigloop.behaviour)."""
+
+    def behaviour_interval(self, cue: str, level: float) -> tuple[float, float]:
+        """Two-sided credible interval of ``p_behaviour``."""
+
+    def p_discriminates(self, a: str, b: str, margin: float) -> float:
+        """P(p_behaviour(a) - p_behaviour(b) > margin) under the estimates."""
+
+    def dprime_between(self, a: str, b: str, level: float) -> tuple[float, float, float]:
+        """Behavioural d' of a against b from the estimates, and its credible interval."""
+
+    def side_bias(self) -> float:
+        """Mean estimated P(right | cue) over the two-choice cues, minus 1/2."""
+
 
 class StaticView:
     """A view with fixed numbers: ``mean``/``sd`` per cue, ``correct`` per condition.
 
     The interval is ``correct ± halfwidth`` clipped to [0, 1] (any level);
-    ``above_chance`` defaults to 1 when correct > 0.5, else 0.
+    ``above_chance`` defaults to 1 when correct > 0.5, else 0. ``behaviour`` gives a
+    cue's behaviour estimate as (mean, variance) of its logit state (default (0, 1):
+    an animal about which nothing is known); ``choice_cues`` are the two-choice cues.
     """
 
     def __init__(
@@ -46,12 +65,35 @@ class StaticView:
         correct: Mapping[str, float] | None = None,
         halfwidth: float = 0.1,
         above_chance: Mapping[str, float] | None = None,
+        behaviour: Mapping[str, tuple[float, float]] | None = None,
+        choice_cues: frozenset[str] = frozenset(),
     ):
         self.mean = dict(mean or {})
         self.sd = dict(sd or {})
         self.correct = dict(correct or {})
         self.halfwidth = float(halfwidth)
         self.above_chance = dict(above_chance or {})
+        self.behaviour = dict(behaviour or {})
+        self.choice_cues = frozenset(choice_cues)
+
+    def _state(self, cue: str) -> tuple[float, float]:
+        return self.behaviour.get(cue, (0.0, 1.0))
+
+    def p_behaviour(self, cue: str) -> float:
+        return B.logistic(self._state(cue)[0])
+
+    def behaviour_interval(self, cue: str, level: float) -> tuple[float, float]:
+        return B.band(*self._state(cue), level)
+
+    def p_discriminates(self, a: str, b: str, margin: float) -> float:
+        return B.p_difference_above(*self._state(a), *self._state(b), margin)
+
+    def dprime_between(self, a: str, b: str, level: float) -> tuple[float, float, float]:
+        return B.dprime_estimate(*self._state(a), *self._state(b), level)
+
+    def side_bias(self) -> float:
+        cues = sorted(self.choice_cues)
+        return sum(self.p_behaviour(c) for c in cues) / len(cues) - 0.5 if cues else 0.0
 
     def value_mean(self, cue: str) -> float:
         return float(self.mean.get(cue, 0.0))

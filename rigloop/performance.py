@@ -563,7 +563,7 @@ def llr_steps(p0: float, p1: float) -> tuple[float, float]:
 
 def kl_bernoulli(p: float, q: float) -> float:
     """Kullback-Leibler divergence KL(p || q) = p ln(p/q) + (1 - p) ln((1 - p)/(1 - q)) in
-    nats: the mean log-LR gain per trial of q against p when the truth is p."""
+    nats: the mean per-trial log likelihood ratio of p against q when the truth is p."""
     p, q = _open_unit("p", p), _open_unit("q", q)
     return p * math.log(p / q) + (1.0 - p) * math.log((1.0 - p) / (1.0 - q))
 
@@ -724,7 +724,8 @@ def sequential_summary(test: str, p0: float, p1: float, alpha: float = 0.05, bet
     Keys: ``test``, ``name``, ``threshold`` (pass when the statistic reaches it, log-LR
     units), ``restart_at`` (Wald's ln B, else None), ``false_pass_bound`` (the bound on
     passing an animal at p0: within ``horizon`` trials for cusum, ever for power_one, per
-    test for wald), ``mean_trials_to_false_pass`` (a lower bound; None for wald),
+    test for wald: Wald 1945), ``mean_trials_to_false_pass`` (at least, at p0: e^h for
+    cusum (Lorden 1971), inf for power_one (some such animals never pass), None for wald),
     ``guarantee`` (in words; for wald it says how soon an animal at p0 passes),
     ``trials_to_pass_p1`` and, if ``p`` is given,
     ``trials_to_pass_at_p`` (expected trials from a fresh start, approximate: the overshoot
@@ -744,9 +745,9 @@ def sequential_summary(test: str, p0: float, p1: float, alpha: float = 0.05, bet
     else:
         bound, mean_false = alpha / (1.0 - float(beta)), None
         soon = wald_trials_to_pass(float(p0), up, down, lower, upper)
-        words = (f"each test passes an animal at p0 with probability at most about {bound:.3g}, and "
-                 "every restart spends that again: an animal that stays at p0 passes after about "
-                 f"{soon:.0f} trials on average")
+        words = (f"each test passes an animal at p0 with probability at most alpha/(1 - beta) = "
+                 f"{bound:.3g}; every restart spends that again: an animal that stays at p0 passes "
+                 f"after about {soon:.0f} trials on average")
     out: dict[str, Any] = {
         "test": test, "name": _TEST_NAMES[test], "threshold": upper,
         "restart_at": lower if test == "wald" else None, "false_pass_bound": bound,

@@ -50,7 +50,7 @@ from .performance import _filter_step, _z_two_sided
 RESPOND = "respond"  # P(respond | cue)
 RIGHT = "right"  # P(choose right | cue)
 CHOICE_ROLES = ("left", "right")
-DEFAULT_SIGMA2 = 0.08  # random-walk variance per cue trial (forgetting); see the calibration tests
+DEFAULT_SIGMA2 = 0.2  # random-walk variance per cue trial (forgetting); calibrated in tests/test_behaviour_calibration.py
 DEFAULT_PRIOR_VAR = 2.0  # logit variance before a cue's first trial: a 95% band of about [0.06, 0.94]
 
 _NORMAL = NormalDist()

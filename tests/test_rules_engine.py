@@ -175,8 +175,9 @@ def test_stage_advance_and_step_back():
     # presses to odor_a at logit 2.2 +/- 0.3 (p 0.9, 95% band from 0.834)
     s, plan = r.decide(s, StaticView(behaviour={"odor_a": (2.2, 0.09)}), 31, np.random.default_rng(0))
     assert plan.stage == "nogo_intro"
-    assert plan.reasons[0] == ("stage 'lever_shaping' advances to 'nogo_intro': p_respond_lower(odor_a) = 0.834 "
-                               ">= 0.7; trials_in_stage = 30 >= 30 after 30 trials in the stage")
+    assert plan.reasons[0] == ("stage 'lever_shaping' advances to 'nogo_intro': p_respond(odor_a) = 0.9 >= 0.85; "
+                               "p_respond_lower(odor_a) = 0.834 >= 0.5; trials_in_stage = 30 >= 30 after 30 trials "
+                               "in the stage")
     for t in range(31, 81):  # false alarms: responding, so no disengagement
         s = r.observe(s, event(t, "odor_b", "incorrect"))
     s, plan = r.decide(s, StaticView(behaviour={"odor_a": (-1.4, 0.09)}), 81, np.random.default_rng(0))

@@ -11,7 +11,7 @@ The file format is described in the README section "Rule files"; in short::
     [learner]      model = "kalman_td", gamma = ..., ...
     [features]     kind = "serial_compound", dt = 0.25, n_bins = 8
     [performance]  chance = 0.5, sigma2 = 0.05
-    [behaviour]    sigma2 = 0.08, prior_var = 2.0   (the per-cue estimate of what the animal does)
+    [behaviour]    sigma2 = 0.2, prior_var = 2.0   (the per-cue estimate of what the animal does)
     [outcomes]     timeout = -0.5, airpuff = -1.0, noise = -0.25   (reward units)
     [response_model]  beta, theta, lapse, bias, persev, decay
     [cues]         tone_hi = { role = "go" }

@@ -43,7 +43,7 @@ class BehaviourSpec:
     """The per-cue behaviour estimate (rigloop.behaviour): random-walk variance of the
     logit state per cue trial (forgetting) and its variance before the first trial."""
 
-    sigma2: float = 0.08
+    sigma2: float = 0.2
     prior_var: float = 2.0
 
 

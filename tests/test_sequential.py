@@ -412,9 +412,12 @@ def test_engine_wald_restarts_and_sprt_reject_means_just_accepted_p0():
 def test_loader_errors_name_the_key():
     """beta only with wald, horizon only with cusum (whole number in [10, 1e7]), known tests only."""
     path = "stages.s.blocks.training.sprt"
-    assert _problems("p0 = 0.6, p1 = 0.85, beta = 0.2") == [
+    assert _problems('test = "cusum", p0 = 0.6, p1 = 0.85, beta = 0.2') == [
         f'{path}.beta: is allowed only with test = "wald" (this test is "cusum", which has no '
         "'performing at p0' boundary and so no miss rate)"]
+    # a table with beta and no test was written for Wald's SPRT, before the CUSUM default: it stays Wald
+    legacy = _rules("p0 = 0.6, p1 = 0.85, beta = 0.2").spec.stages["s"].blocks["training"]
+    assert legacy.sprt.test == "wald"
     assert _problems('test = "power_one", p0 = 0.6, p1 = 0.85, beta = 0.2')[0].startswith(
         f'{path}.beta: is allowed only with test = "wald" (this test is "power_one"')
     assert _problems('test = "wald", p0 = 0.6, p1 = 0.85, horizon = 500') == [

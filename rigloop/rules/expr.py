@@ -84,9 +84,11 @@ NAMES: dict[str, NameSpec] = {
     "correct_rejections": NameSpec(NUM, 0, INF, "no-go-cue trials withheld, this block"),
     "dprime": NameSpec(NUM, -INF, INF, "d' this block from hits and false alarms (log-linear correction)"),
     "bias_c": NameSpec(NUM, -INF, INF, "response criterion c this block (log-linear correction)"),
-    "sprt_accept": NameSpec(BOOL, 0, 1, "the block's SPRT accepted 'performing at p1'"),
-    "sprt_reject": NameSpec(BOOL, 0, 1, "the block's SPRT accepted 'performing at p0'"),
-    "sprt_llr": NameSpec(NUM, -INF, INF, "the block's SPRT log-likelihood ratio"),
+    "sprt_accept": NameSpec(BOOL, 0, 1, "the block's sequential test passed: 'performing at p1' (stays until "
+                                        "the block changes)"),
+    "sprt_reject": NameSpec(BOOL, 0, 1, "the block's Wald test just accepted 'performing at p0' (it restarts on "
+                                        "the next trial it counts; never true for cusum and power_one)"),
+    "sprt_llr": NameSpec(NUM, -INF, INF, "the block's sequential statistic (CUSUM value, or log-likelihood ratio)"),
     "difficulty": NameSpec(NUM, -INF, INF, "the block's staircase level"),
     "reversals": NameSpec(NUM, 0, INF, "reversals of the block's staircase"),
     "right_bias": NameSpec(NUM, 0, 1, "recent fraction of 'right' choices (two-choice tasks)"),
@@ -116,7 +118,8 @@ FUNCTIONS: dict[str, FuncSpec] = {
     "p_right_upper": FuncSpec(("ccue", "level"), 1, NUM, *_P,
                               "upper end of the two-sided credible interval of p_right (level 0.95)"),
     "p_discriminates": FuncSpec(("bcue", "bcue", "margin"), 1, NUM, *_P,
-                                "posterior P(response probability to the first cue - to the second > margin (0))"),
+                                "posterior probability that the animal responds to the first cue more often than to "
+                                "the second by more than margin (default 0): it tells them apart"),
     "dprime_of": FuncSpec(("bcue", "bcue"), 0, NUM, -INF, INF,
                           "behavioural d' of the first cue (go, or right) against the second, from the estimates"),
     "dprime_lower": FuncSpec(("bcue", "bcue", "level"), 1, NUM, -INF, INF,

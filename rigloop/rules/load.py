@@ -624,7 +624,12 @@ def _sprt(r: _Reader, b: dict, path: str, bcues: tuple[str, ...]) -> Sprt | None
     if t is None:
         return None
     r.keys(t, ["test", "p0", "p1", "alpha", "beta", "horizon", "cond"], spath)
-    test = r.text(t, "test", f"{spath}.test", None, choices=SEQUENTIAL_TESTS) if "test" in t else "cusum"
+    if "test" in t:
+        test = r.text(t, "test", f"{spath}.test", None, choices=SEQUENTIAL_TESTS)
+    else:
+        # a table with Wald's beta and no test is a rule file written before the CUSUM default
+        # (stored sessions keep loading): it keeps Wald's test, now restarting after an H0 acceptance
+        test = "wald" if "beta" in t else "cusum"
     p0 = r.num(t, "p0", f"{spath}.p0", 0.5, lo=0, hi=1, lo_open=True, hi_open=True, required=True)
     p1 = r.num(t, "p1", f"{spath}.p1", 0.8, lo=0, hi=1, lo_open=True, hi_open=True, required=True)
     if p1 <= p0:

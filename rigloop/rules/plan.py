@@ -43,6 +43,15 @@ def describe(rules, profile=None) -> str:
     add(f"reward unit: {fmt(s.reward_unit_ul)} µL counts as reward 1.0")
     add(f"performance: learning curve per cue and overall, chance {fmt(s.performance.chance)}, "
         f"random-walk variance {fmt(s.performance.sigma2)}")
+    add(f"behaviour: the animal's own P(respond | cue) (P(right | cue) for two-choice cues) per cue, "
+        f"from its responses, forgetting {fmt(s.behaviour.sigma2)} per trial of the cue (logit random-walk "
+        f"variance), prior variance {fmt(s.behaviour.prior_var)}")
+    o = s.outcomes
+    add(f"outcomes: rewards in reward units; timeout {fmt(o.timeout)}, air puff {fmt(o.airpuff)}, "
+        f"noise {fmt(o.noise)} reach the learner as negative outcomes")
+    if s.learner.values == "cue_action":
+        add("learner values: one per (cue, action): respond/withhold on go/no-go cues, left/right on "
+            "two-choice cues, learned from what the animal did and what it got")
     add("cues: " + ", ".join(f"{c.name} ({c.role}{', ' + c.label if c.label else ''})" for c in s.cues.values()))
     add("")
     for i, st in enumerate(s.stages.values(), 1):
@@ -74,6 +83,20 @@ def describe(rules, profile=None) -> str:
     add(f"  no single reward above {fmt(w.max_reward_ul)} µL")
     if w.relax:
         add(f"  loosened on purpose: {', '.join(w.relax)}")
+    from .lint import glossary, warnings
+
+    words = glossary(s)
+    if words:
+        add("")
+        add("what the criteria read:")
+        for line in words:
+            add(f"  {line}")
+    cautions = warnings(s)
+    if cautions:
+        add("")
+        add("warnings:")
+        for line in cautions:
+            add(f"  - {line}")
     if profile is not None:
         add("")
         lo, hi = profile.ul_range

@@ -104,13 +104,18 @@ def _add_simulate(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--task", choices=("lick", "choice"), default=None, help="default: from the rule file's cues")
     p.add_argument("--seed", type=int, default=1)
     p.add_argument("--db", default=None, help="also store every simulated trial in this SQLite file")
+    p.add_argument("--animal", default="typical", metavar="PRESET",
+                   help="the kind of simulated animal (default typical; see rigloop/simulate.py for the presets)")
+    p.add_argument("--mix", default=None, metavar="PRESET=FRACTION,...",
+                   help="a mix of presets over the subjects instead, e.g. typical=0.75,non_discriminator=0.25")
 
     def run(args: argparse.Namespace) -> int:
         from .rules.load import load_any
         from .sweep import print_simulation
 
         return print_simulation(load_any(args.rules), subjects=args.subjects, sessions=args.sessions,
-                                max_trials=args.max_trials, task=args.task, seed=args.seed, db=args.db)
+                                max_trials=args.max_trials, task=args.task, seed=args.seed, db=args.db,
+                                animal=args.animal, mix=args.mix)
 
     p.set_defaults(func=run)
 

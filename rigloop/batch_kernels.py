@@ -1,4 +1,5 @@
-"""Compiled Kalman steps for ``rigloop.batch``: plain loops, one subject at a time.
+"""Compiled Kalman steps (and behaviour-estimate steps) for ``rigloop.batch``: plain
+loops, one subject at a time.
 
 The only module that imports numba (the optional extra ``rigloop[fast]``). Importing it
 without numba raises ImportError, and ``rigloop.batch`` then runs its numpy path;
@@ -26,6 +27,9 @@ OpenMP layer is not fork-safe) and calls while another thread holds the threaded
 run serially instead, so no thread waits and nothing hangs. The threaded kernel is not
 the default: on a shared 2-core machine it measured no faster than the serial one, and
 about 2× slower while other processes kept the cores busy (its threads wait on each other).
+
+``behaviour_steps`` is ``BatchBehaviour.update``'s compiled path: each subject's filter
+step exactly as ``performance._filter_step`` runs it, bit for bit.
 """
 
 from __future__ import annotations
@@ -182,3 +186,57 @@ def _steps_parallel(A, X, x_after, r, lengths, g, tau2, noise, skip_empty,
         _subject(A[s], X[s], x_after[s], r[s], lengths[s], g[s], tau2[s], noise[s],
                  skip_empty, values[s], errors[s], variances[s], h, u, nz)
 
+
+
+@njit(cache=True, nogil=True)
+def behaviour_steps(x, var, n, held, cue, y, sigma2, newton_max, tol) -> None:
+    """One forward-filter step of each observed subject's estimate of its cue, in place.
+
+    x, var: (S, C) float64 logit modes and variances; n: (S, C) int64 counts; held:
+    (S, C) bool, set where an estimate now exists; cue: (S,) intp; y: (S,) float64, 1.0,
+    0.0 or nan (not observed: skipped); sigma2: (S,). Subject s runs
+    ``performance._filter_step(x, var, y, 0.0, sigma2)`` operation for operation (the
+    same bracket, Newton step, bisection fallback and tolerance; ``math.exp`` is the C
+    library's, as Python's is), so the numbers are the scalar filter's bit for bit.
+    """
+    for s in range(y.shape[0]):
+        ys = y[s]
+        if ys != ys:
+            continue
+        j = cue[s]
+        xs = x[s, j]
+        var_pred = var[s, j] + sigma2[s]
+        if ys == 1.0:
+            lo, hi = xs, xs + var_pred
+        else:
+            lo, hi = xs - var_pred, xs
+        z = xs
+        for _ in range(newton_max):
+            # p = logistic(z)  (mu = 0)
+            if z >= 0.0:
+                p = 1.0 / (1.0 + math.exp(-z))
+            else:
+                e = math.exp(z)
+                p = e / (1.0 + e)
+            f = z - xs - var_pred * (ys - p)
+            if f > 0.0:
+                hi = z
+            else:
+                lo = z
+            step = f / (1.0 + var_pred * p * (1.0 - p))
+            z_new = z - step
+            if not (lo <= z_new and z_new <= hi):
+                z_new = 0.5 * (lo + hi)
+            if abs(z_new - z) <= tol * (1.0 + abs(z)):
+                z = z_new
+                break
+            z = z_new
+        if z >= 0.0:
+            p = 1.0 / (1.0 + math.exp(-z))
+        else:
+            e = math.exp(z)
+            p = e / (1.0 + e)
+        x[s, j] = z
+        var[s, j] = 1.0 / (1.0 / var_pred + p * (1.0 - p))
+        n[s, j] += 1
+        held[s, j] = True

@@ -448,3 +448,272 @@ def test_no_numba_variable_switches_the_path(monkeypatch):
     assert batch_module.backend() == "numpy"
     monkeypatch.setenv("RIGLOOP_NO_NUMBA", "0")
     assert batch_module.backend() == ("numpy" if NO_NUMBA else "numba")
+
+
+# --------------------------------------------------------------------------- behaviour estimates
+
+
+def behaviour_stream(rng, S, T, C, p_missing=0.1):
+    """Random trials: cue indices (T, S), responses (T, S) 1.0 / 0.0, nan (not observed)
+    where a trial is missing; each subject responds to each cue with its own probability."""
+    p = rng.uniform(0.05, 0.95, (S, C))
+    cues = rng.integers(0, C, (T, S))
+    y = (rng.random((T, S)) < p[np.arange(S), cues]).astype(float)
+    y[rng.random((T, S)) < p_missing] = np.nan
+    return cues, y
+
+
+def behaviour_params(rng, S):
+    return dict(sigma2=rng.uniform(0.005, 0.5, S), prior_var=rng.uniform(0.3, 4.0, S))
+
+
+def estimate_arrays(maps, cues):
+    """(3, S, C) x, var, n of per-subject maps cue -> (x, var, n) (nan where absent)."""
+    out = np.full((3, len(maps), len(cues)), np.nan)
+    for s, est in enumerate(maps):
+        for j, cue in enumerate(cues):
+            if cue in est:
+                out[:, s, j] = est[cue]
+    return out
+
+
+def assert_same_estimates(maps, batch, path):
+    """batch.to_estimates() holds the same cues as ``maps``, the same counts, and x, var
+    bit for bit on the compiled path (the scalar filter's operations with the C library's
+    exp), to 1e-12 on the numpy path (numpy's exp may differ in the last bit); returns
+    max |Δ|."""
+    got = batch.to_estimates()
+    assert [sorted(m) for m in got] == [sorted(m) for m in maps]
+    for a, b in zip(maps, got, strict=True):
+        for cue in a:
+            assert a[cue][2] == b[cue][2], "observed-trial counts"
+    ref, arr = estimate_arrays(maps, batch.cues), estimate_arrays(got, batch.cues)
+    diff = float(np.nanmax(np.abs(ref - arr))) if np.isfinite(ref).any() else 0.0
+    if path == "numba":
+        np.testing.assert_array_equal(arr, ref)
+    assert diff <= TOL, f"batch estimates differ from CueEstimate.updated by {diff:.3g}"
+    return diff
+
+
+def test_behaviour_equals_cue_estimate_updates(path, capsys):
+    """200 subjects × 300 trials of random cues (3) and responses, each subject with its own
+    sigma2 and prior_var, about 10% unobserved: BatchBehaviour.update equals a loop of
+    CueEstimate.updated per subject (the scalar forward filter) after every 50 trials
+    and at the end: bit for bit on the compiled path, to 1e-12 on the numpy path."""
+    from rigloop.batch import BatchBehaviour
+    from rigloop.behaviour import CueEstimate
+
+    rng = np.random.default_rng(70)
+    S, T, cues = 200, 300, ("tone_hi", "tone_lo", "light")
+    params = behaviour_params(rng, S)
+    batch = BatchBehaviour(S, cues, **params)
+    single = [{} for _ in range(S)]
+    sigma2, prior = params["sigma2"].tolist(), params["prior_var"].tolist()
+    cue_idx, y = behaviour_stream(rng, S, T, len(cues))
+    worst = 0.0
+    for t in range(T):
+        batch.update(cue_idx[t], y[t])
+        for s in range(S):
+            if not np.isnan(y[t, s]):
+                cue = cues[cue_idx[t, s]]
+                est = single[s].get(cue) or CueEstimate.prior(prior[s])
+                single[s][cue] = est.updated(y[t, s] == 1.0, sigma2[s])
+        if t % 50 == 49:
+            maps = [{c: e.as_tuple() for c, e in d.items()} for d in single]
+            worst = max(worst, assert_same_estimates(maps, batch, path))
+    with capsys.disabled():
+        print(f"\n[{path}] BatchBehaviour vs CueEstimate.updated, {S} × {T}: max |Δ| = {worst:.3g}")
+    assert batch.n.sum() == int(np.isfinite(y).sum())
+
+
+def test_behaviour_step_solves_the_mode_equation(path):
+    """One batch step per subject is the forward filter of Smith, Frank, Wirth et al. 2004
+    (J Neurosci 24:447; methods.md §5; mu = 0): the mode x solves
+    x = x_prev + v (y - logistic(x)), v = var_prev + sigma2 (root by scipy.optimize.brentq),
+    and the variance is 1 / (1/v + p (1 - p)) at it; to 1e-12."""
+    from scipy import optimize, special
+
+    from rigloop.batch import BatchBehaviour
+
+    rng = np.random.default_rng(71)
+    S = 40
+    x0, v0 = rng.normal(0.0, 3.0, S), rng.uniform(0.01, 6.0, S)
+    sigma2 = rng.uniform(0.001, 2.0, S)
+    y = (rng.random(S) < 0.5).astype(float)
+    batch = BatchBehaviour.from_estimates([{"a": (float(x0[s]), float(v0[s]), 3)} for s in range(S)],
+                                          ("a",), sigma2=sigma2)
+    batch.update(np.zeros(S, dtype=int), y)
+    for s in range(S):
+        v = v0[s] + sigma2[s]
+        def mode_equation(z, a=x0[s], v=v, ys=y[s]):
+            return z - a - v * (ys - special.expit(z))
+
+        # 0 < logistic < 1, so the root lies within x_prev -/+ v
+        x = optimize.brentq(mode_equation, x0[s] - v - 1.0, x0[s] + v + 1.0, xtol=1e-15,
+                            rtol=4 * np.finfo(float).eps, maxiter=500)
+        p = special.expit(x)
+        assert batch.x[s, 0] == pytest.approx(x, abs=1e-12)
+        assert batch.var[s, 0] == pytest.approx(1.0 / (1.0 / v + p * (1.0 - p)), abs=1e-12)
+        assert batch.n[s, 0] == 4
+
+
+def test_behaviour_unobserved_subjects_are_unchanged(path):
+    """A nan response leaves the subject's every estimate, count and map as they were (its
+    cue index is not even read); an all-nan call changes nothing."""
+    from rigloop.batch import BatchBehaviour
+
+    rng = np.random.default_rng(72)
+    S, cues = 30, ("a", "b")
+    batch = BatchBehaviour(S, cues, **behaviour_params(rng, S))
+    cue_idx, y = behaviour_stream(rng, S, 20, 2, p_missing=0.0)
+    for t in range(20):
+        batch.update(cue_idx[t], y[t])
+    before = [batch.x.copy(), batch.var.copy(), batch.n.copy()]
+    maps = batch.to_estimates()
+    batch.update(np.full(S, 99), np.full(S, np.nan))
+    for a, b in zip(before, (batch.x, batch.var, batch.n), strict=True):
+        np.testing.assert_array_equal(a, b)
+    missing = rng.random(S) < 0.5
+    yy = np.where(missing, np.nan, 1.0)
+    idx = np.where(missing, -5, 1)
+    batch.update(idx, yy)
+    after = batch.to_estimates()
+    for s in np.flatnonzero(missing):
+        assert after[s] == maps[s]
+    for s in np.flatnonzero(~missing):
+        assert after[s]["b"][2] == maps[s].get("b", (0, 0, 0))[2] + 1 and after[s].get("a") == maps[s].get("a")
+
+
+def test_behaviour_round_trips_are_exact(path):
+    """from_estimates(to_estimates()) and to_estimates(from_estimates(maps)) give back the
+    same maps bit for bit (floats stay floats, counts ints); cues never seen stay out of
+    a subject's map and hold the prior (0, prior_var, 0)."""
+    from rigloop.batch import BatchBehaviour
+
+    rng = np.random.default_rng(73)
+    S, cues = 25, ("a", "b", "c")
+    params = behaviour_params(rng, S)
+    batch = BatchBehaviour(S, cues, **params)
+    assert batch.to_estimates() == [{}] * S
+    cue_idx, y = behaviour_stream(rng, S, 8, 3, p_missing=0.3)
+    for t in range(8):
+        batch.update(cue_idx[t], y[t])
+    maps = batch.to_estimates()
+    assert any(len(m) < 3 for m in maps)  # some cue some subject never saw
+    back = BatchBehaviour.from_estimates(maps, cues, **params)
+    assert back.to_estimates() == maps
+    for m in back.to_estimates():
+        for x, var, n in m.values():
+            assert type(x) is float and type(var) is float and type(n) is int
+    for name in ("x", "var", "n"):
+        np.testing.assert_array_equal(getattr(back, name), getattr(batch, name))
+    unseen = batch.n == 0
+    np.testing.assert_array_equal(batch.x[unseen], 0.0)
+    np.testing.assert_array_equal(batch.var[unseen], np.broadcast_to(params["prior_var"][:, None], (S, 3))[unseen])
+    # maps as a SubjectState stores them, with an n = 0 entry and cues in any order
+    hand = [{"c": (0.25, 1.5, 0), "a": (-1.0, 0.3, 12)}, {}, {"b": (2.0, 0.125, 40)}]
+    assert BatchBehaviour.from_estimates(hand, cues).to_estimates() == hand
+
+
+def test_behaviour_predictive_p_and_band_equal_the_scalar_ones(path):
+    """predictive() is CueEstimate.predictive, p() logistic(x) and band(level)
+    behaviour.band of the predictive state, entry by entry (bit for bit: the same exp on
+    the compiled path's state; numpy's exp may differ in the last bit, so 1e-15 there)."""
+    from rigloop import behaviour as B
+    from rigloop.batch import BatchBehaviour
+
+    rng = np.random.default_rng(74)
+    S, cues = 20, ("a", "b")
+    params = behaviour_params(rng, S)
+    batch = BatchBehaviour(S, cues, **params)
+    cue_idx, y = behaviour_stream(rng, S, 15, 2)
+    for t in range(15):
+        batch.update(cue_idx[t], y[t])
+    mean, var = batch.predictive()
+    p = batch.p()
+    lo, hi = batch.band(0.9)
+    lo95, hi95 = batch.band()
+    for s in range(S):
+        for j in range(2):
+            est = B.CueEstimate(float(batch.x[s, j]), float(batch.var[s, j]), int(batch.n[s, j]))
+            m, v = est.predictive(float(params["sigma2"][s]))
+            assert (mean[s, j], var[s, j]) == (m, v)
+            assert p[s, j] == pytest.approx(B.logistic(m), abs=1e-15)
+            assert (lo[s, j], hi[s, j]) == pytest.approx(B.band(m, v, 0.9), abs=1e-15)
+            assert (lo95[s, j], hi95[s, j]) == pytest.approx(B.band(m, v, 0.95), abs=1e-15)
+
+
+@pytest.fixture(scope="module")
+def simulated_runs():
+    """Two sessions each of the example tone_reversal for three simulated animals that tire
+    (so some trials are omitted): (rules, [(events of both sessions, final SubjectState)])."""
+    from rigloop.rules import load_example
+    from rigloop.simulate import SimulatedAnimal, simulate_session
+
+    rules = load_example("tone_reversal")
+    runs = []
+    for k in (1, 2, 3):
+        animal, state, events = SimulatedAnimal(f"m{k}", seed=k, engagement=40), None, []
+        for day in (1, 2):
+            run = simulate_session(rules, animal, session=f"s{day}", state=state, start_time=1.8e9 + day * 86400,
+                                   max_trials=120)
+            state = run.state
+            events += run.events
+        runs.append((events, state))
+    return rules, runs
+
+
+def test_behaviour_equals_the_stepped_subject_state(simulated_runs, path):
+    """Fed the trials of simulated tone_reversal sessions (the first cue's id; response 1.0
+    when its licks value > 0, unobserved when omitted, as rigloop.behaviour.observed reads
+    them), the batch ends with the ``behaviour`` each stepped SubjectState holds."""
+    from rigloop.batch import BatchBehaviour
+
+    rules, runs = simulated_runs
+    cues = tuple(rules.spec.cues)
+    beh = rules.spec.behaviour
+    T = max(len(events) for events, _ in runs)
+    S = len(runs)
+    cue_idx, y = np.zeros((T, S), dtype=int), np.full((T, S), np.nan)
+    for s, (events, _) in enumerate(runs):
+        for t, event in enumerate(events):
+            if not event.cues or event.response.result == "omitted":
+                continue
+            cue_idx[t, s] = cues.index(event.cues[0].cue)
+            y[t, s] = 1.0 if event.response.value > 0 else 0.0
+    assert np.isnan(y).any() and (y == 1.0).any() and (y == 0.0).any()
+    batch = BatchBehaviour(S, cues, sigma2=beh.sigma2, prior_var=beh.prior_var)
+    for t in range(T):
+        batch.update(cue_idx[t], y[t])
+    maps = [dict(state.behaviour) for _, state in runs]
+    assert all(maps)
+    assert_same_estimates(maps, batch, path)
+
+
+def test_behaviour_bad_arguments_name_the_argument():
+    """Wrong shapes, responses other than 1/0/nan, cue indices out of range where observed
+    and bad estimates raise BadArgument naming the argument; nothing changes."""
+    from rigloop.batch import BatchBehaviour
+
+    batch = BatchBehaviour(3, ("a", "b"))
+    with pytest.raises(BadArgument, match=r"^'y' must be entries 1\.0, 0\.0 or nan \(not observed\) "
+                                          r"\(got 0\.5 at index 1\)$"):
+        batch.update(np.array([0, 1, 0]), [1.0, 0.5, 0.0])
+    with pytest.raises(BadArgument, match=r"^'y' must be a float array of shape \(3,\) \(got shape \(2,\)\)$"):
+        batch.update(np.array([0, 1, 0]), [1.0, 0.0])
+    with pytest.raises(BadArgument, match=r"^'cue_index' must be cue indices in \[0, 2\) where y is observed "
+                                          r"\(got 2 at index 2\)$"):
+        batch.update(np.array([0, 1, 2]), [1.0, 0.0, 1.0])
+    with pytest.raises(BadArgument, match=r"^'cue_index' must be an integer array of shape \(3,\)"):
+        batch.update(np.array([0.0, 1.0, 0.0]), [1.0, 0.0, 1.0])
+    assert batch.to_estimates() == [{}, {}, {}]
+    with pytest.raises(BadArgument, match=r"^'sigma2\[1\]' must be a finite number > 0 \(got 0\.0\)$"):
+        BatchBehaviour(3, ("a",), sigma2=[0.1, 0.0, 0.1])
+    with pytest.raises(BadArgument, match=r"^'cues' must be distinct cue names \(got \['a'\]\)$"):
+        BatchBehaviour(3, ("a", "a"))
+    with pytest.raises(BadArgument, match=r"^'estimates\[1\]' must be cues among a, b \(got 'c'\)$"):
+        BatchBehaviour.from_estimates([{}, {"c": (0.0, 1.0, 1)}], ("a", "b"))
+    with pytest.raises(BadArgument, match=r"^'estimates\[0\]\[a\]' must be a triple \(x, var, n\)"):
+        BatchBehaviour.from_estimates([{"a": (0.0, -1.0, 1)}], ("a", "b"))
+    with pytest.raises(BadArgument, match=r"^'level' must be a probability strictly between 0 and 1"):
+        batch.band(1.0)

@@ -11,6 +11,14 @@ the prior: (a) ``KalmanTD.learn_trial`` subject by subject, trial by trial, and 
 default) and (d) with ``parallel=True`` over numba's threads. The script asserts every batch's final
 weights agree with the loop's (max |Δw| ≤ 1e-9) and prints the largest difference.
 
+Each trial also updates every subject's behaviour estimate of the trial's cue (the
+animal's P(respond | cue), rigloop.behaviour) with a random binary response, each
+subject with its own sigma2 and prior_var: the loop calls ``CueEstimate.updated`` per
+subject, every batch path one ``BatchBehaviour.update`` for all (the numpy path, or the
+compiled kernel on the kernel paths; it has no threaded form). That part is timed on
+its own; the script asserts the estimates agree with the loop's (max |Δ| ≤ 1e-12) and
+reports ``speedup_behaviour`` and ``speedup_combined`` (Kalman TD and behaviour together).
+
 The kernel is compiled (or loaded from numba's disk cache) by a warm-up call before any
 timing; that one-off cost is printed separately and excluded from the figures.
 Repetitions rotate which side runs first, so drift in machine load hits all; figures
@@ -35,17 +43,20 @@ import time
 import numpy as np
 
 from rigloop import batch as batch_module
-from rigloop.batch import BatchKalmanTD
+from rigloop.batch import BatchBehaviour, BatchKalmanTD
+from rigloop.behaviour import CueEstimate
 from rigloop.features import CueList, make_representation
 from rigloop.learners import KalmanTD
 
 CUES = ("cs_plus", "cs_minus")
 N_BINS, DT = 16, 0.25
 TARGET_SPEEDUP, TARGET_RATE, TOLERANCE = 30.0, 1e6, 1e-9
+BEHAVIOUR_TOLERANCE = 1e-12  # the scalar filter's numbers (tests/test_batch.py pins the same)
 
 
 def make_task(subjects: int, trials: int, seed: int):
-    """Per trial: padded Xs (S, T, n), rs (S, T), lengths (S,); and per-subject parameters."""
+    """Per trial: padded Xs (S, T, n), rs (S, T), lengths (S,) and the cue index (S,) of
+    each subject's trial; and per-subject parameters."""
     rng = np.random.default_rng(seed)
     rep = make_representation("serial_compound", CueList(CUES), dt=DT, n_bins=N_BINS)
     # every (cue, lead-in) pair gives one trial shape: build each once with the real features
@@ -56,7 +67,7 @@ def make_task(subjects: int, trials: int, seed: int):
             outcomes = [(offset, 1.0)] if cue == "cs_plus" else []
             shapes[cue, lead] = rep.rows([(cue, onset, offset)], outcomes, offset + 2 * DT)
     T = max(rows.steps for rows in shapes.values())
-    batch = []
+    batch, cue_of = [], []
     for _ in range(trials):
         cues = rng.integers(0, len(CUES), subjects)
         leads = rng.integers(2, 5, subjects)
@@ -69,27 +80,66 @@ def make_task(subjects: int, trials: int, seed: int):
             Xs[s, : rows.steps] = rows.X
             rs[s, : rows.steps] = rows.r
         batch.append((Xs, rs, lengths))
+        cue_of.append(cues)
     params = {
         "gamma": rng.uniform(0.9, 0.99, subjects),
         "diffusion": rng.uniform(1e-4, 1e-2, subjects),
         "noise": rng.uniform(0.1, 1.0, subjects),
         "prior_var": rng.uniform(0.5, 2.0, subjects),
     }
-    return rep.n_features, batch, params
+    return rep.n_features, batch, params, cue_of
 
 
-def run_loop(n, batch, params) -> tuple[float, np.ndarray]:
+def make_behaviour(cue_of: list[np.ndarray], seed: int):
+    """Per trial (cue index (S,), response (S,) 1.0 / 0.0), and per-subject behaviour
+    parameters; from a generator of its own, so the Kalman task stays as it was."""
+    rng = np.random.default_rng(seed + 1)
+    subjects = len(cue_of[0])
+    p_respond = rng.uniform(0.1, 0.9, (subjects, len(CUES)))
+    rows = np.arange(subjects)
+    trials = [(cues, (rng.random(subjects) < p_respond[rows, cues]).astype(np.float64)) for cues in cue_of]
+    params = {"sigma2": rng.uniform(0.01, 0.2, subjects), "prior_var": rng.uniform(1.0, 3.0, subjects)}
+    return trials, params
+
+
+def behaviour_arrays(estimates: list[dict]) -> np.ndarray:
+    """(3, S, C) x, var, n of per-subject maps cue -> (x, var, n); the prior where absent."""
+    out = np.full((3, len(estimates), len(CUES)), np.nan)
+    for s, est in enumerate(estimates):
+        for j, cue in enumerate(CUES):
+            if cue in est:
+                out[:, s, j] = est[cue]
+    return out
+
+
+def run_loop(n, batch, params, behaviour, bparams) -> tuple[float, np.ndarray, float, np.ndarray]:
+    """Kalman TD seconds, final weights, behaviour seconds, final (3, S, C) estimates."""
     S = len(params["gamma"])
     learners = [KalmanTD(n, **{k: float(v[s]) for k, v in params.items()}) for s in range(S)]
     # each subject's own rows, cut to its length (as the daemon would hand them over)
     work = [[(X[:L], r[:L]) for X, r, L in zip(Xs, rs, lengths, strict=True)]
             for Xs, rs, lengths in batch]
-    start = time.perf_counter()
-    for trial in work:
+    # each subject's trial cue and response, as step reads them: a cue name and a bool
+    responses = [list(zip([CUES[c] for c in cues.tolist()], (y == 1.0).tolist(), strict=True))
+                 for cues, y in behaviour]
+    sigma2, prior_var = bparams["sigma2"].tolist(), bparams["prior_var"].tolist()
+    estimates: list[dict[str, CueEstimate]] = [{} for _ in range(S)]
+    kalman_s = behaviour_s = 0.0
+    for trial, seen in zip(work, responses, strict=True):
+        start = time.perf_counter()
         for learner, (X, r) in zip(learners, trial, strict=True):
             learner.learn_trial(X, r)
-    elapsed = time.perf_counter() - start
-    return elapsed, np.array([lr.w for lr in learners])
+        middle = time.perf_counter()
+        for s, (cue, did) in enumerate(seen):
+            est = estimates[s].get(cue)
+            if est is None:
+                est = CueEstimate.prior(prior_var[s])
+            estimates[s][cue] = est.updated(did, sigma2[s])
+        end = time.perf_counter()
+        kalman_s += middle - start
+        behaviour_s += end - middle
+    held = behaviour_arrays([{c: e.as_tuple() for c, e in est.items()} for est in estimates])
+    return kalman_s, np.array([lr.w for lr in learners]), behaviour_s, held
 
 
 class Path:
@@ -129,54 +179,75 @@ def available_paths() -> list[Path]:
     return paths
 
 
-def run_batch(n, batch, params, path: Path) -> tuple[float, np.ndarray]:
+def run_batch(n, batch, params, behaviour, bparams, path: Path) -> tuple[float, np.ndarray, float, np.ndarray]:
+    """As ``run_loop``, through one BatchKalmanTD and one BatchBehaviour on ``path``."""
     S = len(params["gamma"])
     learners = BatchKalmanTD(S, n, **params, parallel=path.parallel)
+    estimates = BatchBehaviour(S, CUES, **bparams)
+    kalman_s = behaviour_s = 0.0
     with path:
-        start = time.perf_counter()
-        for Xs, rs, lengths in batch:
+        for (Xs, rs, lengths), (cues, y) in zip(batch, behaviour, strict=True):
+            start = time.perf_counter()
             learners.learn_trials(Xs, rs, lengths)
-        elapsed = time.perf_counter() - start
-    return elapsed, learners.w.copy()
+            middle = time.perf_counter()
+            estimates.update(cues, y)
+            end = time.perf_counter()
+            kalman_s += middle - start
+            behaviour_s += end - middle
+    return kalman_s, learners.w.copy(), behaviour_s, behaviour_arrays(estimates.to_estimates())
 
 
-def warm_up(n, batch, params, paths: list[Path]) -> float:
-    """One untimed call per path (the kernel compiles, or loads from its disk cache, on
-    its first call); returns the seconds that took in all."""
+def warm_up(n, batch, params, behaviour, bparams, paths: list[Path]) -> float:
+    """One untimed call per path (the kernels compile, or load from their disk cache, on
+    their first call); returns the seconds that took in all."""
     start = time.perf_counter()
     for path in paths:
-        run_batch(n, batch[:1], params, path)
+        run_batch(n, batch[:1], params, behaviour[:1], bparams, path)
     return time.perf_counter() - start
 
 
 def measure(subjects: int, trials: int, reps: int, seed: int = 7) -> dict:
-    n, batch, params = make_task(subjects, trials, seed)
+    n, batch, params, cue_of = make_task(subjects, trials, seed)
+    behaviour, bparams = make_behaviour(cue_of, seed)
     steps = int(sum(lengths.sum() for _, _, lengths in batch))
     paths = available_paths()
-    warm_s = warm_up(n, batch, params, paths)
+    warm_s = warm_up(n, batch, params, behaviour, bparams, paths)
     sides = ["loop"] + [p.name for p in paths]
     times: dict[str, list[float]] = {side: [] for side in sides}
+    btimes: dict[str, list[float]] = {side: [] for side in sides}
     diffs: dict[str, list[float]] = {p.name: [] for p in paths}
+    bdiffs: dict[str, list[float]] = {p.name: [] for p in paths}
     by_name = {p.name: p for p in paths}
     gc.disable()
     try:
         for rep in range(reps):
             order = sides[rep % len(sides):] + sides[: rep % len(sides)]
-            weights = {}
+            weights, held = {}, {}
             for side in order:
                 if side == "loop":
-                    times[side].append((res := run_loop(n, batch, params))[0])
+                    res = run_loop(n, batch, params, behaviour, bparams)
                 else:
-                    times[side].append((res := run_batch(n, batch, params, by_name[side]))[0])
-                weights[side] = res[1]
+                    res = run_batch(n, batch, params, behaviour, bparams, by_name[side])
+                times[side].append(res[0])
+                btimes[side].append(res[2])
+                weights[side], held[side] = res[1], res[3]
                 gc.collect()
             for p in paths:
                 diffs[p.name].append(float(np.max(np.abs(weights["loop"] - weights[p.name]))))
+                same_cells = np.array_equal(np.isnan(held["loop"]), np.isnan(held[p.name]))
+                assert same_cells, f"{p.name}: the batch holds estimates of other cues than the loop"
+                bdiffs[p.name].append(float(np.nanmax(np.abs(held["loop"] - held[p.name]))))
     finally:
         gc.enable()
     max_diff = max(max(d) for d in diffs.values())
     assert max_diff <= TOLERANCE, f"batched weights differ from the loop's by {max_diff:.3g}"
+    max_bdiff = max(max(d) for d in bdiffs.values())
+    assert max_bdiff <= BEHAVIOUR_TOLERANCE, f"batched behaviour estimates differ from the loop's by {max_bdiff:.3g}"
     med = {side: statistics.median(t) for side, t in times.items()}
+    bmed = {side: statistics.median(t) for side, t in btimes.items()}
+    # combined: the median over repetitions of each run's Kalman TD + behaviour seconds
+    cmed = {side: statistics.median(k + b for k, b in zip(times[side], btimes[side], strict=True))
+            for side in sides}
     tl = med["loop"]
     best = min((p.name for p in paths), key=lambda name: med[name])
     result = {
@@ -203,8 +274,19 @@ def measure(subjects: int, trials: int, reps: int, seed: int = 7) -> dict:
         "target": {"speedup_min": TARGET_SPEEDUP, "subject_steps_per_s_min": TARGET_RATE,
                    "max_abs_diff": TOLERANCE},
         "labels": {p.name: p.label for p in paths},
+        # behaviour estimates (BatchBehaviour vs CueEstimate per subject), on the best path
+        "speedup_behaviour": bmed["loop"] / bmed[best],
+        "speedup_combined": cmed["loop"] / cmed[best],
+        "speedup_behaviour_by_path": {p.name: bmed["loop"] / bmed[p.name] for p in paths},
+        "speedup_combined_by_path": {p.name: cmed["loop"] / cmed[p.name] for p in paths},
+        "behaviour_seconds_by_path": bmed,
+        "combined_seconds_by_path": cmed,
+        "behaviour_updates": subjects * trials,
+        "max_abs_diff_behaviour": max_bdiff,
+        "max_abs_diff_behaviour_by_path": {name: max(d) for name, d in bdiffs.items()},
     }
     result["met"] = bool(result["speedup"] >= TARGET_SPEEDUP and result["subject_steps_per_s"] >= TARGET_RATE)
+    result["met_combined"] = bool(result["speedup_combined"] >= TARGET_SPEEDUP)
     return result
 
 
@@ -238,6 +320,20 @@ def main(argv: list[str] | None = None) -> int:
           f"subject-steps/s (target ≥ {TARGET_RATE:,.0f}/s); "
           f"max |Δw| = {result['max_abs_diff']:.2e} (≤ {TOLERANCE:g})")
     print("target met" if result["met"] else "target NOT met")
+    print()
+    print(f"behaviour estimates, {result['behaviour_updates']:,} updates (one per subject and trial); "
+          f"combined = Kalman TD + behaviour")
+    print(f"{'':28}{'seconds':>10}{'speedup':>10}{'combined s':>12}{'speedup':>10}{'max |Δ|':>10}")
+    bsec, csec = result["behaviour_seconds_by_path"], result["combined_seconds_by_path"]
+    print(f"{'per-subject loop':28}{bsec['loop']:>10.4f}{'1.0×':>10}{csec['loop']:>12.3f}{'1.0×':>10}")
+    for name, label in result["labels"].items():
+        print(f"{label:28}{bsec[name]:>10.4f}{result['speedup_behaviour_by_path'][name]:>9.1f}×"
+              f"{csec[name]:>12.3f}{result['speedup_combined_by_path'][name]:>9.1f}×"
+              f"{result['max_abs_diff_behaviour_by_path'][name]:>10.1e}")
+    print(f"best: behaviour {result['speedup_behaviour']:.1f}×, combined {result['speedup_combined']:.1f}× "
+          f"(target ≥ {TARGET_SPEEDUP:.0f}×); max |Δ| of the estimates = {result['max_abs_diff_behaviour']:.2e} "
+          f"(≤ {BEHAVIOUR_TOLERANCE:g})")
+    print("combined target met" if result["met_combined"] else "combined target NOT met")
     return 0
 
 

@@ -54,7 +54,8 @@ DEFAULT_SIGMA2 = 0.2  # random-walk variance per cue trial (forgetting); calibra
 DEFAULT_PRIOR_VAR = 2.0  # logit variance before a cue's first trial: a 95% band of about [0.06, 0.94]
 
 _NORMAL = NormalDist()
-_GH_NODES = 24  # Gauss-Hermite nodes for the two-cue integrals (exact for polynomials of degree < 48)
+_GH_NODES = 24  # Gauss-Hermite nodes for d's distribution (exact for polynomials of degree < 48)
+_GL_NODES = 64  # Gauss-Legendre nodes for P(p_a - p_b > margin)
 
 
 def kind_of_role(role: str) -> str:
@@ -167,45 +168,55 @@ def _hermite() -> tuple[np.ndarray, np.ndarray]:
     return z, w / w.sum()
 
 
+_MINUS_SQRT_HALF = -math.sqrt(0.5)
+
+
 def _phi(a: np.ndarray) -> np.ndarray:
     # Phi(a) = erfc(-a / sqrt 2) / 2, elementwise (math.erfc: numpy has no erf)
-    return np.array([0.5 * math.erfc(-v / math.sqrt(2.0)) for v in a.tolist()])
+    return 0.5 * np.fromiter(map(math.erfc, (a * _MINUS_SQRT_HALF).tolist()), float, len(a))
+
+
+@functools.lru_cache(maxsize=1)
+def _legendre() -> tuple[np.ndarray, np.ndarray]:
+    """Gauss-Legendre nodes and weights on [-1, 1]."""
+    return np.polynomial.legendre.leggauss(_GL_NODES)
 
 
 def p_difference_above(mean_a: float, var_a: float, mean_b: float, var_b: float, margin: float = 0.0) -> float:
     """P(logistic(A) - logistic(B) > margin) for independent A ~ N(mean_a, var_a), B ~ N(mean_b, var_b).
 
     margin 0: Phi((mean_a - mean_b) / sqrt(var_a + var_b)) exactly (logistic is increasing).
-    Otherwise E_A[ P(B < logit(logistic(A) - margin)) ] by Gauss-Hermite quadrature over A
-    (zero where logistic(A) <= margin).
+    Otherwise the integral over A of phi_A(a) P(B < logit(logistic(a) - margin)) da, which is
+    zero where logistic(a) <= margin: Gauss-Legendre over a from max(logit(margin),
+    mean_a - 10 sd_a) to mean_a + 10 sd_a (the integrand is smooth there; a rule over the
+    whole line would straddle the kink at logit(margin)).
     """
     if margin == 0.0:
         return _NORMAL.cdf((mean_a - mean_b) / math.sqrt(var_a + var_b))
-    z, w = _hermite()
-    pa = 0.5 * (1.0 + np.tanh(0.5 * (mean_a + math.sqrt(var_a) * z)))  # logistic(A) at the nodes
-    target = pa - margin
-    ok = (target > 0.0) & (target < 1.0)
-    out = np.where(target >= 1.0, 1.0, 0.0)
-    if ok.any():
-        t = target[ok]
-        b_star = np.log(t / (1.0 - t))
-        out[ok] = _phi((b_star - mean_b) / math.sqrt(var_b))
-    return float(min(1.0, max(0.0, float(w @ out))))
+    sa = math.sqrt(var_a)
+    lo, hi = max(math.log(margin / (1.0 - margin)), mean_a - 10.0 * sa), mean_a + 10.0 * sa
+    if lo >= hi:
+        return 0.0
+    t, w = _legendre()
+    a = 0.5 * (hi - lo) * t + 0.5 * (hi + lo)
+    dens = np.exp(-0.5 * ((a - mean_a) / sa) ** 2) / (sa * math.sqrt(2.0 * math.pi))
+    target = np.clip(0.5 * (1.0 + np.tanh(0.5 * a)) - margin, 1e-300, 1.0)  # logistic(a) - margin > 0
+    b_star = np.log(target / (1.0 - target + 1e-300))
+    inner = _phi((b_star - mean_b) / math.sqrt(var_b))
+    total = 0.5 * (hi - lo) * float(w @ (dens * inner))
+    return min(1.0, max(0.0, total))
 
 
-def _probit_of_logit(a: np.ndarray) -> list[float]:
-    # Phi^-1(logistic(a)), elementwise; logistic kept inside (0, 1)
+def _probit_of_logit(a: np.ndarray) -> np.ndarray:
+    # g(a) = Phi^-1(logistic(a)), elementwise; logistic kept inside (0, 1)
     p = np.clip(0.5 * (1.0 + np.tanh(0.5 * a)), 1e-15, 1.0 - 1e-15)
-    inv = _NORMAL.inv_cdf
-    return [inv(v) for v in p.tolist()]
+    return np.fromiter(map(_NORMAL.inv_cdf, p.tolist()), float, len(p))
 
 
-def _probit_moments(mean: float, var: float) -> tuple[float, float]:
-    """E and Var of g(A) = Phi^-1(logistic(A)), A ~ N(mean, var), by Gauss-Hermite quadrature."""
-    z, w = _hermite()
-    g = np.array(_probit_of_logit(mean + math.sqrt(var) * z))
-    m = float(w @ g)
-    return m, float(w @ (g - m) ** 2)
+def _logit_of_probit(u: np.ndarray) -> np.ndarray:
+    # g^-1(u) = logit(Phi(u)), elementwise
+    p = np.clip(_phi(u), 1e-300, 1.0 - 1e-16)
+    return np.log(p / (1.0 - p))
 
 
 def dprime_estimate(mean_a: float, var_a: float, mean_b: float, var_b: float,
@@ -213,19 +224,77 @@ def dprime_estimate(mean_a: float, var_a: float, mean_b: float, var_b: float,
     """Behavioural d' of cue a (go / signal / right side) against cue b, and its interval.
 
     d' = Phi^-1(p_a) - Phi^-1(p_b) at the estimates' modes. The ``level`` two-sided
-    credible interval is that of D = g(A) - g(B), g = Phi^-1 o logistic, from D's
-    posterior mean and variance (Gauss-Hermite quadrature over A and over B, which are
-    independent) as a normal: E[D] -/+ z sd(D). g is close to linear (g(a) ~ a / 1.7), so
-    D is close to normal; the tests hold the interval to a Monte Carlo reference.
-    Returns (d', lower, upper).
+    credible interval is the quantiles of D = g(A) - g(B), g = Phi^-1 o logistic
+    (increasing), A and B independent. Its distribution function, integrating over the
+    narrower of the two by Gauss-Hermite quadrature:
+
+        P(D <= t) = E_B[ Phi((g^-1(g(B) + t) - mean_a) / sd_a) ]      (B the narrower)
+                  = E_A[ 1 - Phi((g^-1(g(A) - t) - mean_b) / sd_b) ]  (A the narrower)
+
+    and each quantile is found by a safeguarded Newton search from the normal approximation of
+    D (its moments by the same nodes), to 1e-5 in d' (about 140 us). Returns (d', lower, upper).
     """
     clip = 1e-15
     d = _NORMAL.inv_cdf(min(max(logistic(mean_a), clip), 1 - clip)) - \
         _NORMAL.inv_cdf(min(max(logistic(mean_b), clip), 1 - clip))
-    ma, va = _probit_moments(mean_a, var_a)
-    mb, vb = _probit_moments(mean_b, var_b)
-    half = _z_two_sided(level) * math.sqrt(va + vb)
-    return d, ma - mb - half, ma - mb + half
+    z, w = _hermite()
+    sa, sb = math.sqrt(var_a), math.sqrt(var_b)
+    ga, gb = _probit_of_logit(mean_a + sa * z), _probit_of_logit(mean_b + sb * z)
+    # each returns (F(t), F'(t)); P = Phi(g + t) or Phi(g - t), and h = logit(P) has h' = +/- phi / (P (1 - P))
+    if sb <= sa:
+        def cdf(t: float) -> tuple[float, float]:
+            P, dh = _phi_and_slope(gb + t)
+            u = (np.log(P / (1.0 - P)) - mean_a) / sa
+            return float(w @ _phi(u)), float(w @ (_density(u) * dh)) / sa
+    else:
+        def cdf(t: float) -> tuple[float, float]:
+            P, dh = _phi_and_slope(ga - t)
+            u = (np.log(P / (1.0 - P)) - mean_b) / sb
+            return float(w @ (1.0 - _phi(u))), float(w @ (_density(u) * dh)) / sb
+
+    # the normal approximation from D's moments (the same nodes) starts the search
+    ma, mb = float(w @ ga), float(w @ gb)
+    spread = math.sqrt(float(w @ (ga - ma) ** 2) + float(w @ (gb - mb) ** 2))
+    alpha = (1.0 - level) / 2.0
+    zq = _z_two_sided(level)
+    return d, _solve(cdf, alpha, ma - mb - zq * spread), _solve(cdf, 1.0 - alpha, ma - mb + zq * spread)
+
+
+def _density(u: np.ndarray) -> np.ndarray:
+    # phi(u), the standard normal density
+    return np.exp(-0.5 * u * u) / math.sqrt(2.0 * math.pi)
+
+
+def _phi_and_slope(u: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """P = Phi(u) (kept inside (0, 1)) and d logit(P) / du = phi(u) / (P (1 - P))."""
+    P = np.clip(_phi(u), 1e-300, 1.0 - 1e-16)
+    return P, _density(u) / (P * (1.0 - P))
+
+
+def _solve(cdf, q: float, start: float) -> float:
+    """The t with F(t) = q (F increasing; ``cdf`` gives F and F'): Newton's method from
+    ``start``, bisecting whenever a step would leave the bracket known so far."""
+    lo, hi = -math.inf, math.inf
+    t = start
+    for _ in range(60):
+        f, slope = cdf(t)
+        f -= q
+        if f < 0.0:
+            lo = t
+        else:
+            hi = t
+        nxt = t - f / slope if slope > 0.0 else math.nan
+        if not lo < nxt < hi:
+            if math.isinf(lo):
+                nxt = hi - 1.0 - 2.0 * abs(hi - t)
+            elif math.isinf(hi):
+                nxt = lo + 1.0 + 2.0 * abs(t - lo)
+            else:
+                nxt = 0.5 * (lo + hi)
+        if abs(nxt - t) < 1e-5:
+            return nxt
+        t = nxt
+    return t
 
 
 # --------------------------------------------------------------------------- all cues

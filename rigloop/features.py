@@ -391,18 +391,20 @@ class Representation:
         for t, value in punishments:
             times.append(t)
             amounts.append(value)
-        if cues is None:
-            cues = []
-            for c in event.cues:
-                cues.append((c.cue, c.onset, c.offset))
         if not all(map(math.isfinite, amounts)):
+            if cues is None:
+                cues = [(c.cue, c.onset, c.offset) for c in event.cues]
             return self.rows(cues, list(zip(times, amounts)), event.duration)
         index = self.cues.index
-        if self.kind == "identity":
-            return self._identity_kept([index(c) for c, _, _ in cues], amounts)
         cols = []
-        for c, on, off in cues:
-            cols.append((index(c), on, off))
+        if cues is None:  # the event's own cues (the common case: no list of tuples in between)
+            for c in event.cues:
+                cols.append((index(c.cue), c.onset, c.offset))
+        else:
+            for c, on, off in cues:
+                cols.append((index(c), on, off))
+        if self.kind == "identity":
+            return self._identity_kept([col for col, _, _ in cols], amounts)
         return self._timed_kept(cols, times, amounts, event.duration)
 
     def _check_cues(

@@ -59,7 +59,12 @@ def p_respond(value: Any, beta: float, theta: float, lapse: float) -> Any:
     """P(respond) = lapse/2 + (1 − lapse)·σ(β(V − θ)), elementwise over ``value``.
 
     Finite for every finite input (no overflow however large |β(V − θ)|); nan stays nan.
+    A Python float in takes a scalar path (``step`` computes one per trial, where numpy's
+    per-call cost exceeds the arithmetic); it agrees with the array path to one ulp
+    (math.exp and numpy's exp may round the last bit differently).
     """
+    if type(value) is float:
+        return _lapse_logistic_scalar(beta * (value - theta), lapse)
     v = np.asarray(value, dtype=np.float64)
     # z = β(V − θ)
     z = beta * (v - theta)
@@ -90,6 +95,9 @@ def p_right(q_left: Any, q_right: Any, beta: float, bias: float, lapse: float,
     and persev < 0 alternates. Swapping the sides (Q_L ↔ Q_R, bias → −bias, h → −h) gives
     1 − P(right).
     """
+    if type(q_left) is float and type(q_right) is float and type(history) is float:
+        # z = β(Q_R − Q_L) + bias + persev·h, on floats (as p_respond's scalar path)
+        return _lapse_logistic_scalar(beta * (q_right - q_left) + bias + persev * history, lapse)
     z = _choice_logit(q_left, q_right, beta, bias, persev, history)
     return _plain(_lapse_logistic(z, lapse))
 
@@ -117,6 +125,9 @@ def history_step(h: Any, choice: Any, decay: float) -> Any:
     choices, the shape that fits the choice-history kernels of Lau & Glimcher (2005,
     J Exp Anal Behav 84:555; page from memory).
     """
+    if type(h) is float and (choice == 1.0 or choice == -1.0):
+        # one float and a side: the same formula without numpy's per-call cost
+        return decay * h + (1 - decay) * choice
     c = np.asarray(choice, dtype=np.float64)
     chosen = np.abs(c) == 1.0
     if not np.all(chosen | (c == 0.0) | np.isnan(c)):
@@ -208,6 +219,16 @@ def _lapse_logistic(z: np.ndarray, lapse: float) -> np.ndarray:
         # far tail: σ(z) = e^z/(1 + e^z), with e^z < 1e−304
         p = np.where(far, lapse / 2 + (1 - lapse) * (ez / (1 + ez)), p)
     return p
+
+
+def _lapse_logistic_scalar(z: float, lapse: float) -> float:
+    """:func:`_lapse_logistic` of one float, by the same formula (nan stays nan)."""
+    if z != z:
+        return z
+    if z < -_EXP_MAX:
+        ez = math.exp(z)
+        return lapse / 2 + (1 - lapse) * (ez / (1 + ez))
+    return lapse / 2 + (1 - lapse) / (1 + math.exp(-z))
 
 
 def _log_lik(z: np.ndarray, y: Any, lapse: float) -> np.ndarray:

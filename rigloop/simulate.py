@@ -107,6 +107,7 @@ class SimulatedAnimal:
     alpha_down: float | None = None
     false_alarm_timeout_s: float | None = None
     cues: tuple[str, ...] = ()
+    record_truth: bool = True  # False: events carry no truth in extra (as a real rig's; the benchmarks)
 
     def __post_init__(self):
         self._check()
@@ -299,7 +300,7 @@ class SimulatedAnimal:
             response=response,
             duration=max(times),
             wall_time=wall_time,
-            extra=truth,
+            extra=truth if self.record_truth else {},
         )
 
 

@@ -290,3 +290,19 @@ def test_module_is_pure():
     for name in _imports(PKG / "response_models.py"):
         assert name in stdlib | {"numpy", "rigloop"}, name
         assert name not in {"os", "time", "socket", "sqlite3", "threading", "subprocess"}, name
+
+
+def test_scalar_paths_agree_with_the_array_paths():
+    """A float in takes a scalar path (step's per-trial case); it equals the array path to
+    one ulp (math.exp and numpy's exp may round the last bit differently)."""
+    rng = np.random.default_rng(11)
+    for v, ql, qr, h in rng.normal(0.0, 3.0, (200, 4)):
+        a = rm.p_respond(float(v), 5.0, 0.5, 0.05)
+        b = float(rm.p_respond(np.array([v]), 5.0, 0.5, 0.05)[0])
+        assert type(a) is float and abs(a - b) <= 2 * np.spacing(b)
+        h = float(np.tanh(h))
+        a = rm.p_right(float(ql), float(qr), 3.0, 0.4, 0.1, 0.7, h)
+        b = float(rm.p_right(np.array([ql]), np.array([qr]), 3.0, 0.4, 0.1, 0.7, np.array([h]))[0])
+        assert abs(a - b) <= 2 * np.spacing(b)
+        assert rm.history_step(h, 1.0, 0.7) == float(rm.history_step(np.array([h]), np.array([1.0]), 0.7)[0])
+    assert math.isnan(rm.p_respond(math.nan, 5.0, 0.5, 0.05))

@@ -100,7 +100,7 @@ def main(argv: list[str] | None = None) -> int:
         while len(trial_ms) < args.trials:
             if decision is None or decision.end_session:
                 n_session += 1
-                animal = SimulatedAnimal(f"b{n_session}", seed=n_session)
+                animal = SimulatedAnimal(f"b{n_session}", seed=n_session, record_truth=False)  # frames as a rig sends them
                 decision = rig.open(animal.subject, "s1", RULES, wall_time=t_wall).decision
             event = animal.trial(decision, rig.rig, t_wall)
             t_wall += 4.0

@@ -53,7 +53,7 @@ class Rig:
     def __init__(self, ctx, endpoint: str, n: int):
         self.name = f"rig{n:03d}"
         self.link = zlink.DealerLink(ctx, endpoint)
-        self.animal = SimulatedAnimal(f"L{n:03d}", seed=n)
+        self.animal = SimulatedAnimal(f"L{n:03d}", seed=n, record_truth=False)  # frames as a rig sends them
         self.session = 0
         self.decision = None
         self.frame = b""

@@ -14,10 +14,9 @@ Layout (data flows top to bottom; see DEVELOPERS.md):
   replay, simulate, fit, report: offline tools over the same core
 """
 
+from .core.trial import CuePresentation, Decision, Outcome, Response, TrialEvent
 from .errors import BadArgument, BadEvent, RigloopError, RuleError, StoreError, WireError
-from .trial import CuePresentation, Decision, Outcome, Response, TrialEvent
-
-__version__ = "0.1.0"
+from .version import __version__
 
 __all__ = [
     "BadArgument",

@@ -13,12 +13,12 @@ import sys
 
 import numpy as np
 
+from rigloop.core.step import begin_session, session_seed, step
+from rigloop.core.subject import new_subject
+from rigloop.core.trial import CuePresentation, Decision, Outcome, Response, TrialEvent
 from rigloop.replay import recover
 from rigloop.rules import load_example
-from rigloop.step import begin_session, session_seed, step
 from rigloop.store import SessionInfo, Store
-from rigloop.subject import new_subject
-from rigloop.trial import CuePresentation, Decision, Outcome, Response, TrialEvent
 
 RULES = load_example("gonogo_shaping")
 SUBJECT, SESSION, RIG, START = "m01", "s1", "box1", 1.8e9

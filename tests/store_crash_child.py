@@ -10,8 +10,8 @@ from __future__ import annotations
 
 import sys
 
+from rigloop.core.trial import CuePresentation, Decision, Outcome, Response, TrialEvent
 from rigloop.store import SessionInfo, Store
-from rigloop.trial import CuePresentation, Decision, Outcome, Response, TrialEvent
 
 
 def event(session: str, trial: int) -> TrialEvent:

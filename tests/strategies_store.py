@@ -5,7 +5,7 @@ from __future__ import annotations
 
 from hypothesis import strategies as st
 
-from rigloop.trial import (
+from rigloop.core.trial import (
     PUNISHMENTS,
     RESPONSE_RESULTS,
     CuePresentation,

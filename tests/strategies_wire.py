@@ -10,7 +10,7 @@ import string
 
 from hypothesis import strategies as st
 
-from rigloop.trial import (
+from rigloop.core.trial import (
     PUNISHMENTS,
     RESPONSE_RESULTS,
     CuePresentation,

@@ -8,10 +8,10 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from rigloop import batch as batch_module
-from rigloop.batch import BatchKalmanFilter, BatchKalmanTD, BatchRescorlaWagner, BatchTD
+from rigloop.core.learners import TD, KalmanFilter, KalmanTD, RescorlaWagner
 from rigloop.errors import BadArgument
-from rigloop.learners import TD, KalmanFilter, KalmanTD, RescorlaWagner
+from rigloop.offline import batch as batch_module
+from rigloop.offline.batch import BatchKalmanFilter, BatchKalmanTD, BatchRescorlaWagner, BatchTD
 
 TOL = 1e-12
 
@@ -394,7 +394,7 @@ def test_parallel_and_serial_kernels_give_the_same_numbers(monkeypatch):
     single learners to 1e-12."""
     import numba
 
-    from rigloop import batch_kernels
+    from rigloop.offline import batch_kernels
 
     monkeypatch.delenv("RIGLOOP_NO_NUMBA", raising=False)
     calls = []
@@ -500,8 +500,8 @@ def test_behaviour_equals_cue_estimate_updates(path, capsys):
     sigma2 and prior_var, about 10% unobserved: BatchBehaviour.update equals a loop of
     CueEstimate.updated per subject (the scalar forward filter) after every 50 trials
     and at the end: bit for bit on the compiled path, to 1e-12 on the numpy path."""
-    from rigloop.batch import BatchBehaviour
-    from rigloop.behaviour import CueEstimate
+    from rigloop.core.behaviour import CueEstimate
+    from rigloop.offline.batch import BatchBehaviour
 
     rng = np.random.default_rng(70)
     S, T, cues = 200, 300, ("tone_hi", "tone_lo", "light")
@@ -533,7 +533,7 @@ def test_behaviour_step_solves_the_mode_equation(path):
     and the variance is 1 / (1/v + p (1 - p)) at it; to 1e-12."""
     from scipy import optimize, special
 
-    from rigloop.batch import BatchBehaviour
+    from rigloop.offline.batch import BatchBehaviour
 
     rng = np.random.default_rng(71)
     S = 40
@@ -560,7 +560,7 @@ def test_behaviour_step_solves_the_mode_equation(path):
 def test_behaviour_unobserved_subjects_are_unchanged(path):
     """A nan response leaves the subject's every estimate, count and map as they were (its
     cue index is not even read); an all-nan call changes nothing."""
-    from rigloop.batch import BatchBehaviour
+    from rigloop.offline.batch import BatchBehaviour
 
     rng = np.random.default_rng(72)
     S, cues = 30, ("a", "b")
@@ -588,7 +588,7 @@ def test_behaviour_round_trips_are_exact(path):
     """from_estimates(to_estimates()) and to_estimates(from_estimates(maps)) give back the
     same maps bit for bit (floats stay floats, counts ints); cues never seen stay out of
     a subject's map and hold the prior (0, prior_var, 0)."""
-    from rigloop.batch import BatchBehaviour
+    from rigloop.offline.batch import BatchBehaviour
 
     rng = np.random.default_rng(73)
     S, cues = 25, ("a", "b", "c")
@@ -619,8 +619,8 @@ def test_behaviour_predictive_p_and_band_equal_the_scalar_ones(path):
     """predictive() is CueEstimate.predictive, p() logistic(x) and band(level)
     behaviour.band of the predictive state, entry by entry (bit for bit: the same exp on
     the compiled path's state; numpy's exp may differ in the last bit, so 1e-15 there)."""
-    from rigloop import behaviour as B
-    from rigloop.batch import BatchBehaviour
+    from rigloop.core import behaviour as B
+    from rigloop.offline.batch import BatchBehaviour
 
     rng = np.random.default_rng(74)
     S, cues = 20, ("a", "b")
@@ -647,8 +647,8 @@ def test_behaviour_predictive_p_and_band_equal_the_scalar_ones(path):
 def simulated_runs():
     """Two sessions each of the example tone_reversal for three simulated animals that tire
     (so some trials are omitted): (rules, [(events of both sessions, final SubjectState)])."""
+    from rigloop.offline.simulate import SimulatedAnimal, simulate_session
     from rigloop.rules import load_example
-    from rigloop.simulate import SimulatedAnimal, simulate_session
 
     rules = load_example("tone_reversal")
     runs = []
@@ -667,7 +667,7 @@ def test_behaviour_equals_the_stepped_subject_state(simulated_runs, path):
     """Fed the trials of simulated tone_reversal sessions (the first cue's id; response 1.0
     when its licks value > 0, unobserved when omitted, as rigloop.behaviour.observed reads
     them), the batch ends with the ``behaviour`` each stepped SubjectState holds."""
-    from rigloop.batch import BatchBehaviour
+    from rigloop.offline.batch import BatchBehaviour
 
     rules, runs = simulated_runs
     cues = tuple(rules.spec.cues)
@@ -693,7 +693,7 @@ def test_behaviour_equals_the_stepped_subject_state(simulated_runs, path):
 def test_behaviour_bad_arguments_name_the_argument():
     """Wrong shapes, responses other than 1/0/nan, cue indices out of range where observed
     and bad estimates raise BadArgument naming the argument; nothing changes."""
-    from rigloop.batch import BatchBehaviour
+    from rigloop.offline.batch import BatchBehaviour
 
     batch = BatchBehaviour(3, ("a", "b"))
     with pytest.raises(BadArgument, match=r"^'y' must be entries 1\.0, 0\.0 or nan \(not observed\) "

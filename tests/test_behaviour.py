@@ -10,7 +10,7 @@ import pytest
 from scipy import optimize, special, stats
 
 from rigloop import CuePresentation, Outcome, Response, TrialEvent
-from rigloop import behaviour as B
+from rigloop.core import behaviour as B
 from rigloop.errors import BadArgument
 
 MC_DRAWS = 1_000_000

@@ -17,13 +17,13 @@ import msgpack
 import pytest
 
 from rigloop import wire
-from rigloop.daemon import Daemon, Settings, read_state_file
+from rigloop.core.trial import TrialEvent
 from rigloop.links import zmq as zlink
+from rigloop.offline.simulate import SimulatedAnimal
 from rigloop.replay import replay_subject
-from rigloop.simulate import SimulatedAnimal
+from rigloop.serve.daemon import Daemon, Settings, read_state_file
 from rigloop.store import Store
 from rigloop.testing import PtyPort, RigRefused, SerialRig, ZmqRig, drive_session
-from rigloop.trial import TrialEvent
 
 RULES = "tone_reversal"
 
@@ -362,7 +362,7 @@ def test_serial_session_unplug_and_noise(daemon, tmp_path):
 def test_watch_table_from_published_updates(daemon, rig_factory):
     """The PUB stream carries each decision and update; the watch table shows the
     subject with its values, stage, block and last decision."""
-    from rigloop.watch import main as watch_main
+    from rigloop.serve.watch import main as watch_main
 
     d = daemon()
     rig = rig_factory(d.endpoints["zmq"])

@@ -9,12 +9,12 @@ import time
 
 import pytest
 
+from rigloop.core.step import begin_session, step
+from rigloop.core.subject import new_subject
+from rigloop.offline.simulate import SimulatedAnimal
 from rigloop.replay import replay_subject
 from rigloop.rules import load_example
-from rigloop.simulate import SimulatedAnimal
-from rigloop.step import begin_session, step
 from rigloop.store import Store
-from rigloop.subject import new_subject
 from rigloop.testing import DaemonProcess, ZmqRig, drive_session
 
 RULES = "tone_reversal"

@@ -11,9 +11,9 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from rigloop import truth as T
+from rigloop.offline import truth as T
+from rigloop.offline.simulate import preset_animal, simulate_session
 from rigloop.rules import load_example
-from rigloop.simulate import preset_animal, simulate_session
 
 DAY = 86_400.0
 

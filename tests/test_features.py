@@ -12,8 +12,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from rigloop import CuePresentation, Outcome, TrialEvent
+from rigloop.core.features import REPRESENTATIONS, CueList, make_representation
 from rigloop.errors import BadArgument
-from rigloop.features import REPRESENTATIONS, CueList, make_representation
 
 CUES = CueList(["tone_hi", "tone_lo", "light"])
 
@@ -232,7 +232,7 @@ def test_jittered_times_in_the_same_bins_give_the_same_rows(kind):
 
 def test_the_layout_cache_stays_bounded():
     """However many distinct layouts a representation sees, it keeps a bounded number."""
-    from rigloop.features import _LAYOUTS_MAX
+    from rigloop.core.features import _LAYOUTS_MAX
 
     r = rep("presence", dt=0.01)
     for k in range(3 * _LAYOUTS_MAX):

@@ -10,10 +10,10 @@ from scipy import stats
 
 from rigloop import fit
 from rigloop.cli import main
+from rigloop.core.features import CueList, make_representation
+from rigloop.core.learners import make_learner
+from rigloop.core.trial import CuePresentation, Outcome, Response, TrialEvent
 from rigloop.errors import BadArgument
-from rigloop.features import CueList, make_representation
-from rigloop.learners import make_learner
-from rigloop.trial import CuePresentation, Outcome, Response, TrialEvent
 
 TONES = CueList(["tone_hi", "tone_lo"])
 IDENTITY = make_representation("identity", TONES)
@@ -253,8 +253,8 @@ def test_missing_scipy_is_a_clear_error(monkeypatch, rw_events):
 
 @pytest.fixture(scope="module")
 def store_path(tmp_path_factory):
+    from rigloop.offline.simulate import SimulatedAnimal, record_session
     from rigloop.rules import load_example
-    from rigloop.simulate import SimulatedAnimal, record_session
     from rigloop.store import Store
 
     path = tmp_path_factory.mktemp("fit") / "rig.db"

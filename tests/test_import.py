@@ -5,11 +5,11 @@ import pathlib
 import pytest
 
 from rigloop.cli import main
-from rigloop.importer import import_csv
+from rigloop.offline.importer import import_csv
+from rigloop.offline.tables import CsvRejected
 from rigloop.replay import replay_subject
 from rigloop.rules import load_rules_file
 from rigloop.store import Store
-from rigloop.tables import CsvRejected
 
 DATA = pathlib.Path(__file__).parent / "data"
 

@@ -5,8 +5,7 @@ import math
 import numpy as np
 import pytest
 
-from rigloop.errors import BadArgument
-from rigloop.learners import (
+from rigloop.core.learners import (
     LEARNERS,
     TD,
     KalmanFilter,
@@ -15,6 +14,7 @@ from rigloop.learners import (
     TrialResult,
     make_learner,
 )
+from rigloop.errors import BadArgument
 
 KINDS = {
     "rescorla_wagner": ("reward", False),

@@ -7,7 +7,7 @@ import pytest
 from filterpy.kalman import KalmanFilter as ReferenceFilter
 from scipy.linalg import solve_discrete_are
 
-from rigloop.learners import KalmanFilter, kalman_correct, kalman_predict
+from rigloop.core.learners import KalmanFilter, kalman_correct, kalman_predict
 
 A, B = np.array([1.0, 0.0]), np.array([0.0, 1.0])
 AB = A + B

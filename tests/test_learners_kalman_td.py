@@ -4,8 +4,8 @@ import numpy as np
 import pytest
 from filterpy.kalman import KalmanFilter as ReferenceFilter
 
+from rigloop.core.learners import KalmanFilter, KalmanTD
 from rigloop.errors import BadArgument
-from rigloop.learners import KalmanFilter, KalmanTD
 
 
 def trial_rows(X: np.ndarray, gamma: float) -> np.ndarray:
@@ -127,7 +127,7 @@ def test_featureless_pre_cue_rows_do_not_drag_cue_values():
     with reward on leaving its last bin (methods.md §3 [C])."""
     import numpy as np
 
-    from rigloop.learners import KalmanTD
+    from rigloop.core.learners import KalmanTD
 
     L, gamma, pre = 5, 0.9, 3
     cue = np.eye(L)
@@ -212,7 +212,7 @@ def test_finite_pass_equals_the_full_products():
     """On finite states (signed zeros, tiny and huge entries, zero variances included),
     the pass that skips featureless rows and reads one-hot rows as ŵ_i and Σ_ii gives
     what computing every product gives, bit for bit."""
-    from rigloop.learners.kalman_td import _rows_of
+    from rigloop.core.learners.kalman_td import _rows_of
 
     rng = np.random.default_rng(17)
     n = 6

@@ -5,7 +5,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from strategies import learner_cases
 
-from rigloop.learners import make_learner
+from rigloop.core.learners import make_learner
 
 FEW = settings(max_examples=40, deadline=None)
 

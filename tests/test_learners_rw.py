@@ -3,7 +3,7 @@
 import numpy as np
 import pytest
 
-from rigloop.learners import RescorlaWagner
+from rigloop.core.learners import RescorlaWagner
 
 A, B = np.array([1.0, 0.0]), np.array([0.0, 1.0])
 AB = A + B

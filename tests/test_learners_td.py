@@ -3,7 +3,7 @@
 import numpy as np
 import pytest
 
-from rigloop.learners import TD
+from rigloop.core.learners import TD
 
 
 def csc_trial(cue_steps: int) -> np.ndarray:

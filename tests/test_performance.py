@@ -9,8 +9,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy import optimize, stats
 
-from rigloop.errors import BadArgument
-from rigloop.performance import (
+from rigloop.core.performance import (
     BernoulliSPRT,
     LearningCurve,
     binomial_p_above,
@@ -19,6 +18,7 @@ from rigloop.performance import (
     smooth,
     sprt_bounds,
 )
+from rigloop.errors import BadArgument
 
 
 def logistic(a):
@@ -398,7 +398,7 @@ def test_credible_levels_give_the_normal_quantiles():
     """The cached quantiles are Phi^-1 of the level (one-sided) and of (1 + level)/2."""
     from statistics import NormalDist
 
-    from rigloop.performance import _logistic
+    from rigloop.core.performance import _logistic
 
     c = LearningCurve(0.5, 0.05)
     c.update(True)

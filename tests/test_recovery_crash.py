@@ -19,8 +19,8 @@ import sys
 import time
 from pathlib import Path
 
+from rigloop.core.step import step
 from rigloop.replay import recover
-from rigloop.step import step
 from rigloop.store import Store
 
 sys.path.insert(0, str(Path(__file__).parent))

@@ -6,12 +6,12 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
+from rigloop.core.step import step
+from rigloop.core.subject import new_subject
+from rigloop.offline.simulate import SimulatedAnimal, record_session, simulate_session
 from rigloop.replay import open_stored_session, recover, replay_subject
 from rigloop.rules import load_example
-from rigloop.simulate import SimulatedAnimal, record_session, simulate_session
-from rigloop.step import step
 from rigloop.store import Store
-from rigloop.subject import new_subject
 
 
 @pytest.fixture(scope="module")

@@ -11,7 +11,7 @@ from scipy import special, stats
 from test_layout import PKG, _imports
 
 from rigloop import fit
-from rigloop import response_models as rm
+from rigloop.core import responses as rm
 from rigloop.errors import BadArgument
 
 RNG_SEED = 20240611
@@ -287,7 +287,7 @@ def test_response_link_takes_numpy_and_integer_numbers_as_floats():
 def test_module_is_pure():
     """standard library and numpy only (the rule tests/test_layout.py holds for pure modules)."""
     stdlib = set(sys.stdlib_module_names)
-    for name in _imports(PKG / "response_models.py"):
+    for name in _imports(PKG / "core" / "responses.py"):
         assert name in stdlib | {"numpy", "rigloop"}, name
         assert name not in {"os", "time", "socket", "sqlite3", "threading", "subprocess"}, name
 

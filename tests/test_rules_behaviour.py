@@ -4,7 +4,7 @@ functions' values through the engine's decide, and the loader's new tables."""
 import numpy as np
 import pytest
 
-from rigloop import behaviour as B
+from rigloop.core import behaviour as B
 from rigloop.errors import RuleError
 from rigloop.rules import StaticView, load_rules
 from rigloop.rules import expr as X

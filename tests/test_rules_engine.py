@@ -5,8 +5,8 @@ import itertools
 import numpy as np
 import pytest
 
+from rigloop.core.trial import CuePresentation, Decision, Outcome, Response, TrialEvent
 from rigloop.rules import Plan, ScheduleState, StaticView, load_example, load_rules
-from rigloop.trial import CuePresentation, Decision, Outcome, Response, TrialEvent
 
 T0 = 1.7e9  # 2023-11-14 22:13:20 UTC
 
@@ -191,9 +191,9 @@ def test_go_nogo_counts_dprime_and_sprt():
     """Go/no-go counts feed d' (log-linear) and the block's Wald SPRT reaches its verdict."""
     import re
 
-    from rigloop.performance import dprime
-    from rigloop.rules.load import example_text
+    from rigloop.core.performance import dprime
     from rigloop.rules.engine import ScheduleEnv, enter_stage
+    from rigloop.rules.load import example_text
 
     # the example's criterion block, with Wald's SPRT named explicitly (cusum is the default)
     text, n = re.subn(r"^sprt = \{.*\}$", WALD_SPRT, example_text("gonogo_shaping"), flags=re.M)

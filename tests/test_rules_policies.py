@@ -5,11 +5,11 @@ import math
 import numpy as np
 import pytest
 
+from rigloop.core.trial import CuePresentation, Outcome, Response, TrialEvent
 from rigloop.rules import StaticView, load_example, load_rules
 from rigloop.rules.model import Staircase
 from rigloop.rules.policies import mini_block, run_ok, staircase_step
 from rigloop.rules.state import ScheduleState
-from rigloop.trial import CuePresentation, Outcome, Response, TrialEvent
 
 
 def event(trial, cue, result="correct", ul=0.0, value=None, kind="licks", wall=1.7e9):

@@ -12,9 +12,8 @@ import pytest
 
 from rigloop import wire
 from rigloop.cli import main as cli_main
-from rigloop.daemon import Daemon, Settings
 from rigloop.links import zmq as zlink
-from rigloop.security import (
+from rigloop.links.curve import (
     SecurityError,
     create_rig_keys,
     create_server_keys,
@@ -24,6 +23,7 @@ from rigloop.security import (
     load_client_keys,
     load_server_keys,
 )
+from rigloop.serve.daemon import Daemon, Settings
 from rigloop.testing import RigRefused, RigTimeout, ZmqRig
 
 RULES = "tone_reversal"

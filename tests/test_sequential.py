@@ -14,8 +14,7 @@ import pytest
 from scipy import stats
 
 from rigloop import CuePresentation, Outcome, Response, TrialEvent
-from rigloop.errors import BadArgument, RuleError
-from rigloop.performance import (
+from rigloop.core.performance import (
     SEQUENTIAL_TESTS,
     BernoulliSPRT,
     cusum_step,
@@ -31,10 +30,11 @@ from rigloop.performance import (
     wald_restart_step,
     wald_trials_to_pass,
 )
+from rigloop.core.step import begin_session, step
+from rigloop.core.subject import new_subject
+from rigloop.errors import BadArgument, RuleError
 from rigloop.rules import load_rules
 from rigloop.rules.model import Sprt
-from rigloop.step import begin_session, step
-from rigloop.subject import new_subject
 
 P0, P1, ALPHA, HORIZON = 0.6, 0.85, 0.05, 2000
 T0 = 1.7e9

@@ -9,14 +9,14 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from rigloop import simulate, truth
 from rigloop.cli import main
+from rigloop.core.trial import CuePresentation, Decision, Response, TrialEvent
 from rigloop.errors import BadArgument
+from rigloop.offline import simulate, truth
+from rigloop.offline.simulate import PRESETS, SimulatedAnimal, preset_animal, record_session
+from rigloop.offline.sweep import animal_for, mix_presets, parse_mix, simulate_many
 from rigloop.rules import load_example
-from rigloop.simulate import PRESETS, SimulatedAnimal, preset_animal, record_session
 from rigloop.store import Store
-from rigloop.sweep import animal_for, mix_presets, parse_mix, simulate_many
-from rigloop.trial import CuePresentation, Decision, Response, TrialEvent
 
 TONES = load_example("tone_reversal")
 SHAPING = load_example("gonogo_shaping")

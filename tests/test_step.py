@@ -3,10 +3,10 @@
 import pytest
 
 from rigloop import BadEvent, CuePresentation, Outcome, Response, TrialEvent
+from rigloop.core.step import begin_session, session_seed, step, trial_rng
+from rigloop.core.subject import SubjectState, new_subject
+from rigloop.offline.simulate import SimulatedAnimal, simulate_session
 from rigloop.rules import ScheduleState, load_example
-from rigloop.simulate import SimulatedAnimal, simulate_session
-from rigloop.step import begin_session, session_seed, step, trial_rng
-from rigloop.subject import SubjectState, new_subject
 
 
 @pytest.fixture(scope="module")
@@ -70,7 +70,7 @@ def test_randomness_depends_on_seed_and_trial_only():
 
 def test_lazy_trial_generator_draws_what_trial_rng_draws():
     """The generator step hands the rules is built on first use and draws as trial_rng does."""
-    from rigloop.step import _LazyTrialRng
+    from rigloop.core.step import _LazyTrialRng
 
     lazy, real = _LazyTrialRng(123, 7), trial_rng(123, 7)
     assert lazy._rng is None
@@ -123,7 +123,7 @@ def test_surprise_equals_its_array_form():
     matches the numpy expression bit for bit, odd values included."""
     import numpy as np
 
-    from rigloop.step import _surprise
+    from rigloop.core.step import _surprise
 
     def array_form(errors, variances, noise):
         sd = np.sqrt(np.maximum(variances, 0.0) + noise)
@@ -146,9 +146,9 @@ def test_fast_builders_equal_the_dataclass_constructors():
     generated __init__) give equal, equally frozen values of every field."""
     import dataclasses
 
+    from rigloop.core.step import Update, _update
+    from rigloop.core.subject import SubjectState, _next_state
     from rigloop.rules.engine import Plan, _plan
-    from rigloop.step import Update, _update
-    from rigloop.subject import SubjectState, _next_state
 
     for cls, build in ((SubjectState, _next_state), (Update, _update), (Plan, _plan)):
         names = [f.name for f in dataclasses.fields(cls)]

@@ -14,15 +14,15 @@ import pytest
 from scipy import special, stats
 
 from rigloop import CuePresentation, Outcome, Response, StoreError, TrialEvent
-from rigloop import behaviour as B
+from rigloop.core import behaviour as B
+from rigloop.core.responses import p_respond, p_right
+from rigloop.core.step import begin_session, step
+from rigloop.core.subject import SubjectState, new_subject
+from rigloop.offline.simulate import SimulatedAnimal, record_session
 from rigloop.replay import recover, replay_subject
-from rigloop.response_models import p_respond, p_right
 from rigloop.rules import ScheduleState, load_rules
 from rigloop.rules.expr import fmt
-from rigloop.simulate import SimulatedAnimal, record_session
-from rigloop.step import begin_session, step
 from rigloop.store import Store
-from rigloop.subject import SubjectState, new_subject
 
 T0 = 1.8e9
 GO_NOGO = ("tone_go", "tone_nogo")

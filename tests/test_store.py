@@ -13,9 +13,9 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from strategies_store import decisions, events, quantity_maps
 
+from rigloop.core.trial import CuePresentation, Decision, Outcome, Response, TrialEvent
 from rigloop.errors import BadArgument, ConflictingTrial, SchemaTooNew, StoreError
 from rigloop.store import SCHEMA_VERSION, CommitResult, SessionInfo, Store, canonical_json
-from rigloop.trial import CuePresentation, Decision, Outcome, Response, TrialEvent
 
 
 def info(subject="m01", session="s1", rules="[learner]\nkind = 'rw'\n", opened_at=100.0, **kw):

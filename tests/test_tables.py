@@ -14,9 +14,9 @@ import pytest
 from hypothesis import HealthCheck, assume, given, settings
 from strategies_store import events
 
+from rigloop.core.trial import CuePresentation, Decision, Outcome, Response, TrialEvent
 from rigloop.errors import RuleError
-from rigloop.store import SessionInfo, Store
-from rigloop.tables import (
+from rigloop.offline.tables import (
     CsvRejected,
     MappingError,
     RowProblem,
@@ -27,7 +27,7 @@ from rigloop.tables import (
     parse_csv,
     read_events,
 )
-from rigloop.trial import CuePresentation, Decision, Outcome, Response, TrialEvent
+from rigloop.store import SessionInfo, Store
 
 DATA = Path(__file__).with_name("data")
 MAP = DATA / "import_map.toml"

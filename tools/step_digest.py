@@ -22,9 +22,9 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
+from rigloop.offline.simulate import simulate_session  # noqa: E402
+from rigloop.offline.sweep import animal_for  # noqa: E402
 from rigloop.rules import load_example  # noqa: E402
-from rigloop.simulate import simulate_session  # noqa: E402
-from rigloop.sweep import animal_for  # noqa: E402
 
 EXAMPLES = ("tone_reversal", "gonogo_shaping", "two_choice_staircase")
 

@@ -24,8 +24,8 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from rigloop.daemon import read_state_file  # noqa: E402
-from rigloop.simulate import SimulatedAnimal  # noqa: E402
+from rigloop.offline.simulate import SimulatedAnimal  # noqa: E402
+from rigloop.serve.daemon import read_state_file  # noqa: E402
 from rigloop.testing import PtyPort, RigTimeout, SerialRig, ZmqRig, drive_session  # noqa: E402
 
 
@@ -75,7 +75,7 @@ def main(argv: list[str] | None = None) -> int:
             endpoint = info["zmq"]
         curve = None
         if args.key:
-            from rigloop.security import load_client_keys
+            from rigloop.links.curve import load_client_keys
 
             curve = load_client_keys(args.key, args.server_key)
         client = ZmqRig(endpoint, args.rig, timeout_s=args.timeout, retries=args.retries, curve=curve)

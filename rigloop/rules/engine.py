@@ -22,10 +22,10 @@ from typing import Any
 
 import numpy as np
 
-from ..performance import dprime as _dprime
-from ..performance import sequential_bounds, sequential_step
-from ..values import builder
-from .derived import derived
+from ..core.derived import derived
+from ..core.performance import dprime as _dprime
+from ..core.performance import sequential_bounds, sequential_step
+from ..core.values import builder
 from .expr import Env, compiled, evaluate, explain_if, fmt
 from .model import Block, Spec, Sprt, Stage
 from .policies import choose_cue, reward_prob, staircase_step

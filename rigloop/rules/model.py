@@ -10,7 +10,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import Any
 
-from ..performance import SEQUENTIAL_TESTS
+from ..core.performance import SEQUENTIAL_TESTS  # noqa: F401  (the loader reads the test names here)
 from .expr import Expr
 
 LEARNERS = ("rescorla_wagner", "kalman_filter", "td", "kalman_td")

@@ -14,7 +14,7 @@ from typing import Any
 
 import numpy as np
 
-from .derived import derived
+from ..core.derived import derived
 from .expr import evaluate, fmt
 from .model import Block, CueSpec, NextCue, RewardPolicy, Staircase
 from .state import ScheduleState

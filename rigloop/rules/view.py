@@ -10,7 +10,7 @@ import math
 from collections.abc import Mapping
 from typing import Protocol, runtime_checkable
 
-from .. import behaviour as B
+from ..core import behaviour as B
 
 
 @runtime_checkable

@@ -12,8 +12,8 @@ from __future__ import annotations
 from collections.abc import Callable
 from typing import Any
 
+from ..core.trial import Decision, TrialEvent
 from ..errors import BadArgument, BadEvent
-from ..trial import Decision, TrialEvent
 from .messages import (
     MAX_LINE,
     REQUEST_TYPES,

@@ -17,8 +17,8 @@ from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Any, ClassVar
 
+from ..core.trial import Decision, TrialEvent
 from ..errors import BadArgument, WireError
-from ..trial import Decision, TrialEvent
 
 # --------------------------------------------------------------------------- limits
 

@@ -14,8 +14,8 @@ from typing import Any
 
 import msgpack
 
+from ..core.trial import Decision, TrialEvent
 from ..errors import BadArgument, BadEvent
-from ..trial import Decision, TrialEvent
 from .messages import (
     MAX_DEPTH,
     MAX_FRAME,

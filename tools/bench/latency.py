@@ -37,7 +37,7 @@ sys.path.insert(0, str(ROOT))
 
 from rigloop import wire  # noqa: E402
 from rigloop.links import zmq as zlink  # noqa: E402
-from rigloop.simulate import SimulatedAnimal  # noqa: E402
+from rigloop.offline.simulate import SimulatedAnimal  # noqa: E402
 from rigloop.testing import DaemonProcess, ZmqRig  # noqa: E402
 
 RULES = "tone_reversal"

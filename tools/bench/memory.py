@@ -25,11 +25,11 @@ import tracemalloc
 
 import numpy as np
 
+from rigloop.core.step import begin_session, step
+from rigloop.core.subject import new_subject, representation_for
+from rigloop.core.trial import CuePresentation, Outcome, Response, TrialEvent
 from rigloop.rules import load_rules
 from rigloop.rules.load import example_text
-from rigloop.step import begin_session, step
-from rigloop.subject import new_subject, representation_for
-from rigloop.trial import CuePresentation, Outcome, Response, TrialEvent
 
 TARGET_MB = 300.0
 N_FEATURES = 32

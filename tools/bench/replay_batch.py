@@ -42,11 +42,11 @@ import time
 
 import numpy as np
 
-from rigloop import batch as batch_module
-from rigloop.batch import BatchBehaviour, BatchKalmanTD
-from rigloop.behaviour import CueEstimate
-from rigloop.features import CueList, make_representation
-from rigloop.learners import KalmanTD
+from rigloop.core.behaviour import CueEstimate
+from rigloop.core.features import CueList, make_representation
+from rigloop.core.learners import KalmanTD
+from rigloop.offline import batch as batch_module
+from rigloop.offline.batch import BatchBehaviour, BatchKalmanTD
 
 CUES = ("cs_plus", "cs_minus")
 N_BINS, DT = 16, 0.25

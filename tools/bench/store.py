@@ -30,8 +30,8 @@ import sys
 import tempfile
 import time
 
+from rigloop.core.trial import CuePresentation, Decision, Outcome, Response, TrialEvent
 from rigloop.store import SessionInfo, Store, canonical_json
-from rigloop.trial import CuePresentation, Decision, Outcome, Response, TrialEvent
 
 GROUPS = (1, 8, 32)
 

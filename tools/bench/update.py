@@ -23,7 +23,7 @@ import time
 
 import numpy as np
 
-from rigloop.learners import KalmanTD
+from rigloop.core.learners import KalmanTD
 
 GAMMA, DIFFUSION, NOISE, PRIOR_VAR = 0.9, 0.01, 0.5, 1.0
 STEPS = {4: 600, 16: 600, 64: 300, 256: 40}

@@ -1,0 +1,47 @@
+"""The built-in demonstration (``rigloop demo`` / ``make demo``).
+
+Part 1 tours the four learners on an invented two-tone discrimination with a
+reversal. Part 2 runs the daemon on a fresh data directory with virtual rigs (ZeroMQ
+and serial) and shows what it decided and why; then replays, exports and plots.
+"""
+
+from __future__ import annotations
+
+import shutil
+import sys
+import tempfile
+from pathlib import Path
+
+from . import learners_tour as demo_learners
+
+MARKER = ".rigloop-demo"
+
+
+def _banner(text: str) -> None:
+    print("=" * 78)
+    print(text)
+    print("=" * 78)
+
+
+def main(args) -> int:
+    _banner("rigloop demo, part 1: the learning core")
+    demo_learners.run(per_block=args.trials or demo_learners.TRIALS_PER_BLOCK)
+
+    from . import daemon_tour as demo_daemon
+
+    _banner("rigloop demo, part 2: the daemon beside three virtual rigs")
+    data = Path(args.data) if getattr(args, "data", None) else Path(tempfile.mkdtemp(prefix="rigloop-demo-"))
+    if data.exists() and any(data.iterdir()):
+        if not (data / MARKER).exists():
+            print(f"rigloop demo: {data} is not empty and was not made by the demo; give a new directory",
+                  file=sys.stderr)
+            return 1
+        shutil.rmtree(data)  # the demo's own directory from an earlier run
+    data.mkdir(parents=True, exist_ok=True)
+    (data / MARKER).write_text("made by `rigloop demo`; the demo may delete this directory\n")
+    status = demo_daemon.run(data)
+    print("")
+    status |= demo_daemon.after(data)
+    print("")
+    print("demo finished" + ("" if status == 0 else " WITH PROBLEMS (see above)"))
+    return status

@@ -427,7 +427,7 @@ def test_without_numba_the_numpy_path_runs(monkeypatch):
     """If numba cannot be imported, backend() is 'numpy' and the batch still equals the
     single learners."""
     monkeypatch.delenv("RIGLOOP_NO_NUMBA", raising=False)
-    monkeypatch.setattr(batch_module, "_KERNELS", [None])  # as after a failed import
+    monkeypatch.setattr(batch_module.common, "_KERNELS", [None])  # as after a failed import
     assert batch_module.backend() == "numpy"
     rng = np.random.default_rng(61)
     S, n, T = 3, 4, 6

@@ -45,7 +45,7 @@ from statistics import NormalDist
 import numpy as np
 
 from ..errors import BadArgument
-from .performance import _filter_step, _z_two_sided
+from .curve import _filter_step, _z_two_sided
 
 RESPOND = "respond"  # P(respond | cue)
 RIGHT = "right"  # P(choose right | cue)

@@ -31,6 +31,7 @@ from typing import Any
 import numpy as np
 
 from ..errors import BadArgument
+from .checks import _number
 
 # Defaults, for rule files that name a link without all its parameters. β and θ are in
 # reward units (the rule file's reward_unit_ul is value 1.0).
@@ -172,7 +173,7 @@ class ResponseLink:
         if self.kind not in KINDS:
             raise BadArgument("kind", f"one of {', '.join(map(repr, KINDS))}", self.kind)
         for name in ("beta", "theta", "bias", "persev"):
-            object.__setattr__(self, name, _finite(name, getattr(self, name)))
+            object.__setattr__(self, name, _number(name, getattr(self, name)))
         object.__setattr__(self, "lapse", _unit_interval("lapse", self.lapse))
         object.__setattr__(self, "decay", _unit_interval("decay", self.decay))
 
@@ -261,18 +262,8 @@ def _plain(x: np.ndarray) -> Any:
     return float(x) if x.ndim == 0 else x
 
 
-def _finite(name: str, value: Any) -> float:
-    if isinstance(value, (bool, np.bool_)) or not isinstance(
-            value, (int, float, np.integer, np.floating)):
-        raise BadArgument(name, "a finite number", value)
-    value = float(value)
-    if not math.isfinite(value):
-        raise BadArgument(name, "a finite number", value)
-    return value
-
-
 def _unit_interval(name: str, value: Any) -> float:
-    value = _finite(name, value)
+    value = _number(name, value)
     if not 0.0 <= value < 1.0:
         raise BadArgument(name, "a number in [0, 1)", value)
     return value

@@ -23,7 +23,7 @@ import numpy as np
 from ..errors import BadEvent
 from . import behaviour as B
 from .derived import derived
-from .performance import LearningCurve, _z_two_sided
+from .curve import LearningCurve, _z_two_sided
 from .responses import choice_code, history_step, p_respond, p_right
 from .subject import (
     ALL,

@@ -32,7 +32,7 @@ from .behaviour import (
 )
 from .features import make_representation
 from .learners import LEARNERS, make_learner
-from .performance import LearningCurve
+from .curve import LearningCurve
 from .values import builder
 
 STATE_FORMAT = 2  # 2: behaviour estimates and the choice kernel (a format-1 snapshot is replayed past)

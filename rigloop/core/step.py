@@ -96,7 +96,8 @@ def trial_rng(seed: int, trial: int) -> np.random.Generator:
 
 
 class _LazyTrialRng:
-    """``trial_rng(seed, trial)``, built on its first use.
+    """``trial_rng(seed, trial)``, built on its first use (58x cheaper than building it for a
+    decision that draws nothing, tools/bench/step.py; test_fast_paths: the same draws).
 
     Building the generator (a SeedSequence) costs more than most decisions, and most
     decisions draw nothing; the draws, when made, are those of ``trial_rng``.
@@ -294,11 +295,23 @@ def _behaviour_quantities(quantities: dict, spec, behaviour) -> None:
         est = behaviour.get(cue)
         mean, var = (0.0, prior) if est is None else (est[0], est[1])
         half = z * sqrt(var + sigma2)
-        # B.logistic inline where its argument is >= 0 (1 / (1 + e^-a), the same bits): fewer calls per cue
+        # B.logistic inline where its argument is >= 0 (1 / (1 + e^-a), the same bits): 1.35x the
+        # reference's speed (tools/bench/step.py); _behaviour_quantities_reference is the plain form
         a, b = mean - half, mean + half
         quantities[name] = 1.0 / (1.0 + exp(-mean)) if mean >= 0.0 else B.logistic(mean)
         quantities[lo] = 1.0 / (1.0 + exp(-a)) if a >= 0.0 else B.logistic(a)
         quantities[hi] = 1.0 / (1.0 + exp(-b)) if b >= 0.0 else B.logistic(b)
+
+
+def _behaviour_quantities_reference(quantities: dict, spec, behaviour) -> None:
+    """:func:`_behaviour_quantities` written plainly (the tests hold the two to the same bits)."""
+    beh, choice = spec.behaviour, spec.choice_cues()
+    for cue in spec.cues:
+        est = behaviour.get(cue)
+        mean, var = (0.0, beh.prior_var) if est is None else (est[0], est[1])
+        name, lo, hi = B.quantity_names(cue, B.RIGHT if cue in choice else B.RESPOND)
+        quantities[name] = B.logistic(mean)
+        quantities[lo], quantities[hi] = B.band(mean, var + beh.sigma2, 0.95)
 
 
 def _p_model(spec, cue: str, choice_cues, quantities, history: float, actions) -> float | None:
@@ -336,7 +349,8 @@ def _surprise(errors: np.ndarray, variances: np.ndarray, noise: float) -> float 
     is not > 0); None without time steps. ``noise`` > 0 (a learner's checked variance).
 
     A loop over Python floats: a trial has a handful of time steps, where numpy's cost
-    per call exceeds the arithmetic. Each term is computed as the array form computes
+    per call exceeds the arithmetic (3.9x faster than ``_surprise_reference``, its array
+    form, tools/bench/step.py). Each term is computed as the array form computes
     it; only a NaN result (an infinite variance) is left to the array form, whose
     reduction decides which NaN comes out.
     """
@@ -355,6 +369,14 @@ def _surprise(errors: np.ndarray, variances: np.ndarray, noise: float) -> float 
         sd = np.sqrt(np.maximum(variances, 0.0) + noise)
         best = float(np.max(np.abs(errors) / np.where(sd > 0, sd, 1.0)))
     return best
+
+
+def _surprise_reference(errors: np.ndarray, variances: np.ndarray, noise: float) -> float | None:
+    """:func:`_surprise` as array code: the readable form the tests hold it to, bit for bit."""
+    if len(errors) == 0:
+        return None
+    sd = np.sqrt(np.maximum(variances, 0.0) + noise)
+    return float(np.max(np.abs(errors) / np.where(sd > 0, sd, 1.0)))
 
 
 def step(state: SubjectState, event: TrialEvent, rules) -> tuple[SubjectState, Decision, Update]:

@@ -71,6 +71,7 @@ class ScheduleState:
         return self._evolved(changes)
 
     def _evolved(self, changes: dict[str, Any]) -> ScheduleState:
+        # 15.7x dataclasses.replace (tools/bench/step.py); test_fast_paths: the same value
         """:meth:`evolve` of changes the engine made itself, whose names it knows are fields.
 
         The new instance dict is a copy of this one (a copy of a whole dict is about

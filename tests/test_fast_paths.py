@@ -1,0 +1,135 @@
+"""Every trick on the per-trial path equals its readable reference, bit for bit.
+
+The per-trial path keeps a few tricks that save Python calls (tools/bench/step.py prints
+what each buys, side by side with its reference). Each has a plain version beside it;
+these tests hold the two to the same bits on many inputs, so speed work can never move
+a stored decision (the replay promise).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from types import MappingProxyType
+
+import numpy as np
+import pytest
+
+from rigloop.core import curve, features
+from rigloop.core import step as core_step
+from rigloop.core.subject import SubjectState, _next_state, new_subject
+from rigloop.core.trial import CuePresentation, Outcome, Response, TrialEvent
+from rigloop.rules import load_example
+from rigloop.rules.engine import Plan, _plan
+from rigloop.rules.state import ScheduleState
+
+
+def _bits(x) -> bytes:
+    return np.float64(x).tobytes()
+
+
+def test_builder_builds_what_init_builds():
+    """values.builder makes the same value as the class's own __init__ (SubjectState, Update, Plan)."""
+    rules = load_example("tone_reversal")
+    state = new_subject("m1", rules)
+    fields = [getattr(state, f.name) for f in dataclasses.fields(SubjectState)]
+    assert _next_state(*fields) == SubjectState(*fields)
+    values = ("m1", "s1", 3, {"value[a]": 0.5}, np.zeros(2), np.ones(2))
+    built, made = core_step._update(*values), core_step.Update(*values)
+    assert built.to_dict() == made.to_dict()
+    plan_values = ("a", 0.5, 4.0, True, "b1", "st", False, None, ("why",), (), ())
+    assert _plan(*plan_values) == Plan(*plan_values)
+    with pytest.raises(TypeError, match="SubjectState has 11 fields, got 10 values"):
+        _next_state(*fields[:-1])
+
+
+@pytest.mark.parametrize("seed, trial", [(0, 1), (7, 3), (2**63 + 5, 999), (123456789, 2)])
+def test_lazy_trial_generator_draws_what_trial_rng_draws(seed, trial):
+    """_LazyTrialRng makes trial_rng(seed, trial) on first use: the draws are the same."""
+    lazy, plain = core_step._LazyTrialRng(seed, trial), core_step.trial_rng(seed, trial)
+    assert lazy.random() == plain.random()
+    assert lazy.integers(0, 10, size=5).tolist() == plain.integers(0, 10, size=5).tolist()
+    assert lazy.permutation(6).tolist() == plain.permutation(6).tolist()
+    assert lazy.normal() == plain.normal()  # any other method, through __getattr__
+
+
+def test_surprise_equals_the_array_form():
+    """step._surprise (a loop over floats) gives the array form's bits, zeros and infinities included."""
+    rng = np.random.default_rng(9)
+    for _ in range(2000):
+        n = int(rng.integers(1, 12))
+        errors = rng.normal(0, 2, n) * (rng.random(n) < 0.7)
+        variances = rng.uniform(-0.1, 3.0, n)
+        noise = float(rng.uniform(1e-4, 1.0))
+        assert _bits(core_step._surprise(errors, variances, noise)) == \
+            _bits(core_step._surprise_reference(errors, variances, noise))
+    inf = np.array([np.inf, 1.0])
+    got = core_step._surprise(np.array([1.0, 2.0]), inf, 0.1)
+    ref = core_step._surprise_reference(np.array([1.0, 2.0]), inf, 0.1)
+    assert _bits(got) == _bits(ref)
+    assert core_step._surprise(np.zeros(0), np.zeros(0), 0.1) is core_step._surprise_reference(
+        np.zeros(0), np.zeros(0), 0.1) is None
+
+
+def test_curve_from_a_plain_state_equals_the_checked_path():
+    """LearningCurve._from_plain (one test for a plain dict) builds what the checked path builds."""
+    rng = np.random.default_rng(2)
+    for _ in range(500):
+        c = curve.LearningCurve(float(rng.uniform(0.05, 0.95)), float(rng.uniform(1e-4, 1)))
+        for y in rng.random(int(rng.integers(0, 30))) < 0.6:
+            c.update(bool(y))
+        fast, checked = curve.LearningCurve.from_state(c.state()), curve.LearningCurve.from_state(
+            MappingProxyType(c.state()))
+        assert fast.state() == checked.state() and _bits(fast.mu) == _bits(checked.mu)
+
+
+def test_evolved_schedule_equals_replace():
+    """ScheduleState._evolved (a copied instance dict) equals dataclasses.replace."""
+    s = load_example("gonogo_shaping").start_subject()
+    changes = {"trials_in_block": 4, "hits": 2, "queue": ("odor_a",), "last_armed": True}
+    assert s._evolved(dict(changes)) == dataclasses.replace(s, **changes)
+    assert s.evolve(**changes) == dataclasses.replace(s, **changes)
+
+
+def _event(rng, cues: list[str]) -> TrialEvent:
+    shown = sorted(rng.choice(cues, size=int(rng.integers(0, len(cues) + 1)), replace=False).tolist())
+    presented = []
+    for c in shown:
+        on = float(rng.uniform(0, 1.5))
+        presented.append(CuePresentation(c, on, on + float(rng.uniform(0.0, 2.5))))
+    ul = float(rng.choice([0.0, 4.0]))
+    t = float(rng.uniform(0, 4)) if ul else None
+    return TrialEvent("m1", "r1", "s1", 1, tuple(presented), Outcome(ul, t), Response("licks", 1.0, "correct"),
+                      duration=5.0)
+
+
+@pytest.mark.parametrize("kind", ["identity", "presence", "serial_compound", "trace"])
+def test_kept_trial_rows_equal_the_checked_rows(kind):
+    """Representation._event_rows (step's rows, kept per binned layout) equal Representation.rows."""
+    rng = np.random.default_rng(hash(kind) % 2**32)
+    cues = ["a", "b", "c"]
+    extra = {"serial_compound": {"n_bins": 6}, "trace": {"decay": 0.8}}.get(kind, {})
+    rep = features.make_representation(kind, features.CueList(cues), dt=0.25, **extra)
+    for _ in range(300):
+        ev = _event(rng, cues)
+        kept = rep._event_rows(ev, 4.0)
+        plain = rep.rows([(c.cue, c.onset, c.offset) for c in ev.cues], [(t, a / 4.0) for t, a in ev.outcome_events()],
+                         ev.duration)
+        assert kept.X.tobytes() == plain.X.tobytes() and kept.r.tobytes() == plain.r.tobytes()
+        assert dict(kept.onset_steps) == dict(plain.onset_steps)
+
+
+def test_behaviour_quantities_equal_the_reference():
+    """step._behaviour_quantities (logistic inline, names kept per file) gives the reference's bits."""
+    rng = np.random.default_rng(4)
+    for name in ("tone_reversal", "two_choice_staircase"):
+        spec = load_example(name).spec
+        for _ in range(500):
+            est = {c: (float(rng.normal(0, 5)), float(rng.uniform(1e-4, 4)), int(rng.integers(50)))
+                   for c in spec.cues if rng.random() < 0.8}
+            fast, ref = {}, {}
+            core_step._behaviour_quantities(fast, spec, est)
+            core_step._behaviour_quantities_reference(ref, spec, est)
+            assert fast.keys() == ref.keys()
+            assert all(_bits(fast[k]) == _bits(ref[k]) for k in fast), est
+    assert math.isfinite(fast[next(iter(fast))])

@@ -1,0 +1,122 @@
+"""One ``step`` in-process, and what each hot-path trick buys against its readable reference.
+
+Part 1: the median time of ``step`` over simulated sessions of each shipped example
+(the animal and its trials recorded first, then stepped again and timed one by one).
+Part 2: each trick of the per-trial path beside the readable version the tests hold it to
+(tests/test_fast_paths.py: same bits), timed side by side in this run; the ratio is
+reference time / trick time. The figures in the code's comments come from here.
+
+    python tools/bench/step.py [--json] [--reps 5]
+"""
+
+from __future__ import annotations
+
+import argparse
+import dataclasses
+import json
+import statistics
+import sys
+import time
+import timeit
+from pathlib import Path
+from types import MappingProxyType
+
+ROOT = Path(__file__).resolve().parents[2]
+sys.path.insert(0, str(ROOT))
+
+import numpy as np  # noqa: E402
+
+from rigloop.core import curve, features  # noqa: E402
+from rigloop.core import step as core_step  # noqa: E402
+from rigloop.core.subject import SubjectState, _next_state, new_subject  # noqa: E402
+from rigloop.offline.simulate import simulate_session  # noqa: E402
+from rigloop.offline.sweep import animal_for  # noqa: E402
+from rigloop.rules import load_example  # noqa: E402
+from rigloop.rules.state import ScheduleState  # noqa: E402
+
+EXAMPLES = ("tone_reversal", "gonogo_shaping", "two_choice_staircase")
+
+
+def step_medians(reps: int) -> dict[str, float]:
+    """Median µs of one step, per example (best of ``reps`` passes over the same trials)."""
+    out = {}
+    for name in EXAMPLES:
+        rules = load_example(name)
+        run = simulate_session(rules, animal_for(rules, "b1", 1), session="s1", max_trials=400)
+        best = None
+        for _ in range(reps):
+            state = new_subject("b1", rules)
+            state, _ = core_step.begin_session(state, rules, session="s1", rig="sim-rig", wall_time=1.8e9,
+                                               seed=run.state.context.seed)
+            times = []
+            for event in run.events:
+                t0 = time.perf_counter()
+                state, _, _ = core_step.step(state, event, rules)
+                times.append(time.perf_counter() - t0)
+            med = statistics.median(times) * 1e6
+            best = med if best is None else min(best, med)
+        out[name] = round(best, 1)
+    return out
+
+
+def _pair(trick, reference, number: int) -> dict[str, float]:
+    t = min(timeit.repeat(trick, number=number, repeat=5)) / number * 1e6
+    r = min(timeit.repeat(reference, number=number, repeat=5)) / number * 1e6
+    return {"trick_us": round(t, 3), "reference_us": round(r, 3), "ratio": round(r / t, 2)}
+
+
+def tricks() -> dict[str, dict[str, float]]:
+    rules = load_example("tone_reversal")
+    state = new_subject("b1", rules)
+    fields = [getattr(state, f.name) for f in dataclasses.fields(SubjectState)]
+    sched = state.schedule
+    rng = np.random.default_rng(3)
+    errors, variances = rng.normal(size=8), rng.uniform(0.1, 2.0, 8)
+    curve_state = curve.LearningCurve(0.5, 0.05).state()
+    rep = features.make_representation("serial_compound", features.CueList(["tone_hi", "tone_lo"]), dt=0.5,
+                                       n_bins=4)
+    run = simulate_session(rules, animal_for(rules, "b1", 1), session="s1", max_trials=5)
+    event = run.events[0]
+    cues = [(c.cue, c.onset, c.offset) for c in event.cues]
+    outcomes = [(t, a / 4.0) for t, a in event.outcome_events()]
+    behaviour = {"tone_hi": (1.2, 0.4, 20), "tone_lo": (-0.8, 0.5, 18)}
+    return {
+        "builder (SubjectState) vs __init__": _pair(lambda: _next_state(*fields), lambda: SubjectState(*fields), 20000),
+        "lazy trial generator vs trial_rng": _pair(lambda: core_step._LazyTrialRng(7, 3),
+                                                    lambda: core_step.trial_rng(7, 3), 20000),
+        "_surprise vs array form": _pair(lambda: core_step._surprise(errors, variances, 0.2),
+                                         lambda: core_step._surprise_reference(errors, variances, 0.2), 20000),
+        "curve from plain state vs checked": _pair(lambda: curve.LearningCurve.from_state(curve_state),
+                                                   lambda: curve.LearningCurve.from_state(
+                                                       MappingProxyType(curve_state)), 20000),
+        "ScheduleState._evolved vs replace": _pair(lambda: sched._evolved({"trials_in_block": 3}),
+                                                    lambda: dataclasses.replace(sched, trials_in_block=3), 20000),
+        "kept trial rows vs checked rows": _pair(lambda: rep._event_rows(event, 4.0),
+                                                 lambda: rep.rows(cues, outcomes, event.duration), 5000),
+        "behaviour quantities vs reference": _pair(
+            lambda: core_step._behaviour_quantities({}, rules.spec, behaviour),
+            lambda: core_step._behaviour_quantities_reference({}, rules.spec, behaviour), 20000),
+    }
+
+
+def main() -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--json", action="store_true")
+    ap.add_argument("--reps", type=int, default=5)
+    args = ap.parse_args()
+    out = {"step_median_us": step_medians(args.reps), "tricks": tricks(), "target_step_us": 60.0}
+    if args.json:
+        print(json.dumps(out))
+        return 0
+    print("step, median µs in-process (best of the passes):")
+    for name, us in out["step_median_us"].items():
+        print(f"  {name:<22} {us:8.1f}")
+    print("\ntrick vs its readable reference (same bits; tests/test_fast_paths.py):")
+    print(f"  {'':<40} {'trick µs':>9} {'reference µs':>13} {'ratio':>7}")
+    for name, r in out["tricks"].items():
+        print(f"  {name:<40} {r['trick_us']:9.3f} {r['reference_us']:13.3f} {r['ratio']:6.2f}x")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

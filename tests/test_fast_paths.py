@@ -15,13 +15,12 @@ from types import MappingProxyType
 import numpy as np
 import pytest
 
-from rigloop.core import curve, features
+from rigloop.core import curve, features, quantities, seeds
 from rigloop.core import step as core_step
 from rigloop.core.subject import SubjectState, _next_state, new_subject
 from rigloop.core.trial import CuePresentation, Outcome, Response, TrialEvent
 from rigloop.rules import load_example
 from rigloop.rules.engine import Plan, _plan
-from rigloop.rules.state import ScheduleState
 
 
 def _bits(x) -> bytes:
@@ -46,7 +45,7 @@ def test_builder_builds_what_init_builds():
 @pytest.mark.parametrize("seed, trial", [(0, 1), (7, 3), (2**63 + 5, 999), (123456789, 2)])
 def test_lazy_trial_generator_draws_what_trial_rng_draws(seed, trial):
     """_LazyTrialRng makes trial_rng(seed, trial) on first use: the draws are the same."""
-    lazy, plain = core_step._LazyTrialRng(seed, trial), core_step.trial_rng(seed, trial)
+    lazy, plain = seeds._LazyTrialRng(seed, trial), seeds.trial_rng(seed, trial)
     assert lazy.random() == plain.random()
     assert lazy.integers(0, 10, size=5).tolist() == plain.integers(0, 10, size=5).tolist()
     assert lazy.permutation(6).tolist() == plain.permutation(6).tolist()
@@ -61,13 +60,13 @@ def test_surprise_equals_the_array_form():
         errors = rng.normal(0, 2, n) * (rng.random(n) < 0.7)
         variances = rng.uniform(-0.1, 3.0, n)
         noise = float(rng.uniform(1e-4, 1.0))
-        assert _bits(core_step._surprise(errors, variances, noise)) == \
-            _bits(core_step._surprise_reference(errors, variances, noise))
+        assert _bits(quantities._surprise(errors, variances, noise)) == \
+            _bits(quantities._surprise_reference(errors, variances, noise))
     inf = np.array([np.inf, 1.0])
-    got = core_step._surprise(np.array([1.0, 2.0]), inf, 0.1)
-    ref = core_step._surprise_reference(np.array([1.0, 2.0]), inf, 0.1)
+    got = quantities._surprise(np.array([1.0, 2.0]), inf, 0.1)
+    ref = quantities._surprise_reference(np.array([1.0, 2.0]), inf, 0.1)
     assert _bits(got) == _bits(ref)
-    assert core_step._surprise(np.zeros(0), np.zeros(0), 0.1) is core_step._surprise_reference(
+    assert quantities._surprise(np.zeros(0), np.zeros(0), 0.1) is quantities._surprise_reference(
         np.zeros(0), np.zeros(0), 0.1) is None
 
 
@@ -128,8 +127,8 @@ def test_behaviour_quantities_equal_the_reference():
             est = {c: (float(rng.normal(0, 5)), float(rng.uniform(1e-4, 4)), int(rng.integers(50)))
                    for c in spec.cues if rng.random() < 0.8}
             fast, ref = {}, {}
-            core_step._behaviour_quantities(fast, spec, est)
-            core_step._behaviour_quantities_reference(ref, spec, est)
+            quantities._behaviour_quantities(fast, spec, est)
+            quantities._behaviour_quantities_reference(ref, spec, est)
             assert fast.keys() == ref.keys()
             assert all(_bits(fast[k]) == _bits(ref[k]) for k in fast), est
     assert math.isfinite(fast[next(iter(fast))])

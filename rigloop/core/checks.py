@@ -12,6 +12,7 @@ import numpy as np
 
 from ..errors import BadArgument
 
+
 def _number(name: str, value: Any) -> float:
     if type(value) is not float:  # a float, the common case, needs only the finiteness test
         if isinstance(value, bool) or not isinstance(value, int | float | np.integer | np.floating):

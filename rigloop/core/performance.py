@@ -7,8 +7,9 @@ sequential tests, which live in their own modules.
 * :mod:`.checks`: the argument checks they share.
 """
 
-from .checks import _binary, _count, _number, _open_unit, _positive
-from .curve import (
+# re-exports: this module is the one import for all of them (tests and older call sites)
+from .checks import _binary, _count, _number, _open_unit, _positive  # noqa: F401
+from .curve import (  # noqa: F401
     _INF,
     _NEWTON_MAX,
     _NEWTON_TOL,

@@ -12,7 +12,6 @@ session's counters and decides trial 1.
 
 from __future__ import annotations
 
-import hashlib
 import math
 from collections.abc import Mapping
 from dataclasses import dataclass, replace
@@ -22,9 +21,18 @@ import numpy as np
 
 from ..errors import BadEvent
 from . import behaviour as B
-from .derived import derived
 from .curve import LearningCurve, _z_two_sided
-from .responses import choice_code, history_step, p_respond, p_right
+from .experience import _action_cues, _actions_table, _is_go, _punishments, _scored
+from .quantities import (
+    _behaviour_quantities,
+    _choice_cues,
+    _cue_ids,
+    _delta_at,
+    _p_model,
+    _surprise,
+)
+from .responses import choice_code, history_step
+from .seeds import _LazyTrialRng, session_seed, trial_rng  # noqa: F401  (trial_rng: rigloop.step exports it)
 from .subject import (
     ALL,
     ModelView,
@@ -84,48 +92,6 @@ _Z95 = _z_two_sided(0.95)  # the z of the 95% band step reports
 _update = builder(Update)
 
 
-def session_seed(subject: str, session: str) -> int:
-    """A default seed when the rig gives none: stable across machines and runs."""
-    digest = hashlib.sha256(f"{subject}\x00{session}".encode()).digest()
-    return int.from_bytes(digest[:8], "big") >> 1
-
-
-def trial_rng(seed: int, trial: int) -> np.random.Generator:
-    """The generator for decisions about ``trial``: a function of (seed, trial) alone."""
-    return np.random.default_rng([seed & 0xFFFFFFFFFFFFFFFF, trial])
-
-
-class _LazyTrialRng:
-    """``trial_rng(seed, trial)``, built on its first use (58x cheaper than building it for a
-    decision that draws nothing, tools/bench/step.py; test_fast_paths: the same draws).
-
-    Building the generator (a SeedSequence) costs more than most decisions, and most
-    decisions draw nothing; the draws, when made, are those of ``trial_rng``.
-    """
-
-    __slots__ = ("_seed", "_trial", "_rng")
-
-    def __init__(self, seed: int, trial: int):
-        self._seed, self._trial, self._rng = seed, trial, None
-
-    def _generator(self) -> np.random.Generator:
-        if self._rng is None:
-            self._rng = trial_rng(self._seed, self._trial)
-        return self._rng
-
-    def random(self, *args, **kwargs):
-        return self._generator().random(*args, **kwargs)
-
-    def integers(self, *args, **kwargs):
-        return self._generator().integers(*args, **kwargs)
-
-    def permutation(self, *args, **kwargs):
-        return self._generator().permutation(*args, **kwargs)
-
-    def __getattr__(self, name: str):
-        return getattr(self._generator(), name)
-
-
 def view_of(rules, rep, learner, curves, behaviour, finite=None, fresh_curves=None) -> ModelView:
     """What the rules read: the learner, the learning curves and the behaviour estimates."""
     spec = rules.spec
@@ -133,23 +99,6 @@ def view_of(rules, rep, learner, curves, behaviour, finite=None, fresh_curves=No
     actions = _actions_table(rules)
     return ModelView(learner, rep, curves, perf.chance, perf.sigma2, finite, fresh_curves, behaviour, beh.sigma2,
                      beh.prior_var, actions, _choice_cues(spec))
-
-
-def _actions_table(rules) -> dict[str, tuple[str, ...]] | None:
-    """cue -> its actions when the learner holds action values, else None (kept per rule file)."""
-    hit = _ACTIONS.get(id(rules))
-    if hit is not None and hit[0] is rules:
-        return hit[1]
-    table = None
-    if rules.learner.values == "cue_action":
-        table = {c: rules.spec.actions_of(c) for c in rules.cues}
-    if len(_ACTIONS) > 64:
-        _ACTIONS.clear()
-    _ACTIONS[id(rules)] = (rules, table)
-    return table
-
-
-_ACTIONS: dict[int, tuple] = {}
 
 
 def _decide(subject: str, ctx: SessionContext, rules, rep, learner, curves, schedule, next_trial: int,
@@ -214,169 +163,6 @@ def begin_session(
                                  warnings, behaviour=state.behaviour)
     state = replace(state, schedule=schedule, context=replace(ctx, first_decision=decision.to_dict()))
     return state, decision
-
-
-def _scored(event: TrialEvent) -> bool | None:
-    """True/False for a scored response; None for omitted or unscored trials.
-
-    Omissions are left out of the learning curve (common practice for choice tasks);
-    they count towards disengagement in the schedule instead.
-    """
-    result = event.response.result
-    if result == "correct":
-        return True
-    if result == "incorrect":
-        return False
-    return None
-
-
-def _is_go(spec, schedule, cue: str) -> bool | None:
-    """Whether the current block rewards ``cue`` (None: the cue is not in the block)."""
-    stage = spec.stages.get(schedule.stage)
-    block = stage.blocks.get(schedule.block) if stage is not None else None
-    if block is None or cue not in block.contingency:
-        return None
-    return block.contingency[cue].rewarded
-
-
-def _action_cues(event: TrialEvent, kind: str, did: bool | None) -> list[tuple[str, float, float]]:
-    """The trial's cues as the action-value learner's columns: ``cue:action`` for the
-    action the animal took; none when it took none that was observed (an omission)."""
-    if did is None:
-        return []
-    if kind == B.RIGHT:
-        action = "right" if did else "left"
-    else:
-        action = "respond" if did else "withhold"
-    return [(action_cue(c.cue, action), c.onset, c.offset) for c in event.cues]
-
-
-def _punishments(spec, event: TrialEvent) -> list[tuple[float, float]]:
-    """The trial's punishment as a learner outcome ``(time, value in reward units)``.
-
-    A named punishment, or a timeout (``timeout_s`` > 0 with none named), counts once at
-    its time: ``punishment_time``, else the response's latency, else the last cue's end.
-    """
-    out = event.outcome
-    kind = out.punishment
-    if kind is None:
-        if not out.timeout_s > 0.0:
-            return []
-        kind = "timeout"
-    value = spec.outcomes.value_of(kind)
-    if value == 0.0:
-        return []
-    t = out.punishment_time
-    if t is None:
-        t = event.response.latency
-    if t is None:
-        t = max((c.offset for c in event.cues), default=0.0)
-    return [(min(t, event.duration), value)]
-
-
-def _behaviour_names(spec) -> tuple[tuple[str, str, str, str], ...]:
-    """(cue, estimate, lower, upper quantity names) for every cue of the file (made once per file)."""
-    choice = spec.choice_cues()
-    return derived(spec, "behaviour_names", lambda sp: tuple(
-        (cue, *B.quantity_names(cue, B.RIGHT if cue in choice else B.RESPOND)) for cue in sp.cues))
-
-
-def _choice_cues(spec) -> frozenset[str]:
-    return derived(spec, "choice_cues", lambda sp: sp.choice_cues())
-
-
-def _behaviour_quantities(quantities: dict, spec, behaviour) -> None:
-    """``p_respond[cue]`` / ``p_right[cue]`` and their 95% band, for every cue, before the trial."""
-    beh = spec.behaviour
-    prior, sigma2 = beh.prior_var, beh.sigma2
-    z = _Z95
-    sqrt, exp = math.sqrt, math.exp
-    for cue, name, lo, hi in _behaviour_names(spec):
-        est = behaviour.get(cue)
-        mean, var = (0.0, prior) if est is None else (est[0], est[1])
-        half = z * sqrt(var + sigma2)
-        # B.logistic inline where its argument is >= 0 (1 / (1 + e^-a), the same bits): 1.35x the
-        # reference's speed (tools/bench/step.py); _behaviour_quantities_reference is the plain form
-        a, b = mean - half, mean + half
-        quantities[name] = 1.0 / (1.0 + exp(-mean)) if mean >= 0.0 else B.logistic(mean)
-        quantities[lo] = 1.0 / (1.0 + exp(-a)) if a >= 0.0 else B.logistic(a)
-        quantities[hi] = 1.0 / (1.0 + exp(-b)) if b >= 0.0 else B.logistic(b)
-
-
-def _behaviour_quantities_reference(quantities: dict, spec, behaviour) -> None:
-    """:func:`_behaviour_quantities` written plainly (the tests hold the two to the same bits)."""
-    beh, choice = spec.behaviour, spec.choice_cues()
-    for cue in spec.cues:
-        est = behaviour.get(cue)
-        mean, var = (0.0, beh.prior_var) if est is None else (est[0], est[1])
-        name, lo, hi = B.quantity_names(cue, B.RIGHT if cue in choice else B.RESPOND)
-        quantities[name] = B.logistic(mean)
-        quantities[lo], quantities[hi] = B.band(mean, var + beh.sigma2, 0.95)
-
-
-def _p_model(spec, cue: str, choice_cues, quantities, history: float, actions) -> float | None:
-    """What the learner and the response model predict for the trial's response to ``cue``:
-    P(respond), or P(right) for a two-choice cue (action-value learners only)."""
-    link = spec.response
-    if cue in choice_cues:
-        if actions is None:
-            return None  # cue values say nothing about a side
-        ql, qr = quantities[f"q[{action_cue(cue, 'left')}]"], quantities[f"q[{action_cue(cue, 'right')}]"]
-        return float(p_right(ql, qr, link.beta, link.bias, link.lapse, link.persev, history))
-    if actions is None:
-        theta = 0.5 if link.theta is None else link.theta
-        v = quantities[f"value[{cue}]"]
-    else:
-        theta = 0.0 if link.theta is None else link.theta
-        v = quantities[f"q[{action_cue(cue, 'respond')}]"] - quantities[f"q[{action_cue(cue, 'withhold')}]"]
-    return float(p_respond(v, link.beta, theta, link.lapse))
-
-
-def _cue_ids(event: TrialEvent) -> list[str]:
-    """``event.cue_ids`` as a list, by a plain loop (cheaper than a generator's tuple)."""
-    ids = []
-    for c in event.cues:
-        ids.append(c.cue)
-    return ids
-
-
-def _delta_at(errors: list[float], step: int) -> float:
-    return errors[min(max(step, 0), len(errors) - 1)]
-
-
-def _surprise(errors: np.ndarray, variances: np.ndarray, noise: float) -> float | None:
-    """The largest |δ_t| / sd_t of a trial, sd_t = sqrt(max(var_t, 0) + noise) (1 where that
-    is not > 0); None without time steps. ``noise`` > 0 (a learner's checked variance).
-
-    A loop over Python floats: a trial has a handful of time steps, where numpy's cost
-    per call exceeds the arithmetic (3.9x faster than ``_surprise_reference``, its array
-    form, tools/bench/step.py). Each term is computed as the array form computes
-    it; only a NaN result (an infinite variance) is left to the array form, whose
-    reduction decides which NaN comes out.
-    """
-    best = None
-    sqrt = math.sqrt
-    for delta, var in zip(errors.tolist(), variances.tolist(), strict=True):
-        if delta:
-            # max(var, 0.0) spelt out (var unless 0.0 > var, so NaN and -0.0 stay)
-            sd = sqrt((0.0 if 0.0 > var else var) + noise)
-            q = abs(delta) / (sd if sd > 0 else 1.0)
-        else:
-            q = 0.0  # |±0| / sd: +0 for any sd > 0 (inf included), and 0 / 1 otherwise
-        if best is None or q > best or q != q:
-            best = q
-    if best is not None and best != best:
-        sd = np.sqrt(np.maximum(variances, 0.0) + noise)
-        best = float(np.max(np.abs(errors) / np.where(sd > 0, sd, 1.0)))
-    return best
-
-
-def _surprise_reference(errors: np.ndarray, variances: np.ndarray, noise: float) -> float | None:
-    """:func:`_surprise` as array code: the readable form the tests hold it to, bit for bit."""
-    if len(errors) == 0:
-        return None
-    sd = np.sqrt(np.maximum(variances, 0.0) + noise)
-    return float(np.max(np.abs(errors) / np.where(sd > 0, sd, 1.0)))
 
 
 def step(state: SubjectState, event: TrialEvent, rules) -> tuple[SubjectState, Decision, Update]:

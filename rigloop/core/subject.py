@@ -30,9 +30,9 @@ from .behaviour import (
     logistic,
     p_difference_above,
 )
+from .curve import LearningCurve
 from .features import make_representation
 from .learners import LEARNERS, make_learner
-from .curve import LearningCurve
 from .values import builder
 
 STATE_FORMAT = 2  # 2: behaviour estimates and the choice kernel (a format-1 snapshot is replayed past)

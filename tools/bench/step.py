@@ -26,13 +26,12 @@ sys.path.insert(0, str(ROOT))
 
 import numpy as np  # noqa: E402
 
-from rigloop.core import curve, features  # noqa: E402
+from rigloop.core import curve, features, quantities, seeds  # noqa: E402
 from rigloop.core import step as core_step  # noqa: E402
 from rigloop.core.subject import SubjectState, _next_state, new_subject  # noqa: E402
 from rigloop.offline.simulate import simulate_session  # noqa: E402
 from rigloop.offline.sweep import animal_for  # noqa: E402
 from rigloop.rules import load_example  # noqa: E402
-from rigloop.rules.state import ScheduleState  # noqa: E402
 
 EXAMPLES = ("tone_reversal", "gonogo_shaping", "two_choice_staircase")
 
@@ -82,10 +81,10 @@ def tricks() -> dict[str, dict[str, float]]:
     behaviour = {"tone_hi": (1.2, 0.4, 20), "tone_lo": (-0.8, 0.5, 18)}
     return {
         "builder (SubjectState) vs __init__": _pair(lambda: _next_state(*fields), lambda: SubjectState(*fields), 20000),
-        "lazy trial generator vs trial_rng": _pair(lambda: core_step._LazyTrialRng(7, 3),
-                                                    lambda: core_step.trial_rng(7, 3), 20000),
-        "_surprise vs array form": _pair(lambda: core_step._surprise(errors, variances, 0.2),
-                                         lambda: core_step._surprise_reference(errors, variances, 0.2), 20000),
+        "lazy trial generator vs trial_rng": _pair(lambda: seeds._LazyTrialRng(7, 3),
+                                                    lambda: seeds.trial_rng(7, 3), 20000),
+        "_surprise vs array form": _pair(lambda: quantities._surprise(errors, variances, 0.2),
+                                         lambda: quantities._surprise_reference(errors, variances, 0.2), 20000),
         "curve from plain state vs checked": _pair(lambda: curve.LearningCurve.from_state(curve_state),
                                                    lambda: curve.LearningCurve.from_state(
                                                        MappingProxyType(curve_state)), 20000),
@@ -94,8 +93,8 @@ def tricks() -> dict[str, dict[str, float]]:
         "kept trial rows vs checked rows": _pair(lambda: rep._event_rows(event, 4.0),
                                                  lambda: rep.rows(cues, outcomes, event.duration), 5000),
         "behaviour quantities vs reference": _pair(
-            lambda: core_step._behaviour_quantities({}, rules.spec, behaviour),
-            lambda: core_step._behaviour_quantities_reference({}, rules.spec, behaviour), 20000),
+            lambda: quantities._behaviour_quantities({}, rules.spec, behaviour),
+            lambda: quantities._behaviour_quantities_reference({}, rules.spec, behaviour), 20000),
     }
 
 

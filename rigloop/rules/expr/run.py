@@ -1,0 +1,306 @@
+"""Run a checked expression: the interpreter that explains, and the compiled form that tests.
+
+:func:`evaluate` walks the checked tree with :class:`_Eval` and says what it saw, one
+phrase per comparison or condition. The engine tests every criterion on every trial but
+needs the words only for the one that holds, so each checked tree is also turned once
+into nested Python closures (still no eval/exec) that give the same value with the same
+env calls in the same order; :class:`_Eval` stays the readable reference of what they
+compute (``tests/test_rules_expr.py`` holds the two equal on random expressions).
+
+Runtime arithmetic never raises: a division by zero gives NaN, an overflow gives
+infinity, and every comparison involving NaN is false.
+"""
+
+from __future__ import annotations
+
+import math
+import operator
+from collections.abc import Callable, Sequence
+
+from .show import fmt
+from .tree import Binary, BoolOp, Call, Compare, Const, CueRef, Expr, Name, Node, Unary
+from .vocab import BOOL
+
+# --------------------------------------------------------------------------- evaluation
+
+
+class Env:
+    """What evaluation reads. Subclasses answer names and functions."""
+
+    __slots__ = ()
+
+    def name(self, name: str) -> float | bool:  # pragma: no cover - interface
+        raise NotImplementedError
+
+    def call(self, func: str, args: Sequence[float | str]) -> float:  # pragma: no cover - interface
+        raise NotImplementedError
+
+
+def evaluate(expr: Expr, env: Env, *, explain: bool = True) -> tuple[float | bool, list[str]]:
+    """Evaluate a checked expression; return (value, what it saw).
+
+    What it saw is one short phrase per comparison or condition evaluated, with the
+    numbers: ``"p_value_above(tone_hi, 0.6) = 0.973 >= 0.95"``. With ``explain=False``
+    no phrases are made (an empty list comes back): the engine tests every criterion on
+    every trial but needs the words only for the one that fires, and evaluation is pure,
+    so it evaluates that one again to explain it.
+    """
+    if not explain:
+        return _evaluator(expr)(env), []
+    seen: list[str] = []
+    value = _Eval(expr, env, seen).run(expr.tree)
+    if not seen and expr.type == BOOL:
+        seen.append(f"{expr.text} = {fmt(value)}")
+    return value, seen
+
+
+def compiled(expr: Expr) -> Callable[[Env], float | bool]:
+    """The test :func:`explain_if` runs first: a function of the env giving the value
+    ``evaluate(expr, env, explain=False)`` gives (made once per expression)."""
+    return _evaluator(expr)
+
+
+def explain_if(expr: Expr, env: Env) -> tuple[bool, list[str]]:
+    """(True, what it saw) when a criterion holds, else (False, []): cheap when it fails."""
+    if not _evaluator(expr)(env):
+        return False, []
+    return evaluate(expr, env)
+
+
+def _abs_first(args: list) -> float:
+    return abs(args[0])
+
+
+# the functions the language computes itself (the env answers the rest), for both paths
+_OWN: dict[str, Callable[[list], float]] = {"min": min, "max": max, "abs": _abs_first}
+
+
+class _Eval:
+    """The interpreter over the checked tree: the readable reference of the compiled closures,
+    and the one path that records phrases (into ``seen``, unless it is None)."""
+
+    def __init__(self, expr: Expr, env: Env, seen: list[str]):
+        self.expr, self.env, self.seen = expr, env, seen
+
+    def run(self, n: Node):
+        if isinstance(n, Const):
+            return n.value
+        if isinstance(n, Name):
+            return self.env.name(n.name)
+        if isinstance(n, Call):
+            return self._call(n)
+        if isinstance(n, Unary):
+            v = self.run(n.operand)
+            return (not v) if n.op == "not" else (-v if n.op == "-" else +v)
+        if isinstance(n, Binary):
+            return _arith(n.op, float(self.run(n.left)), float(self.run(n.right)))
+        if isinstance(n, BoolOp):
+            if n.op == "and":
+                for v in n.values:
+                    r = self._cond(v)
+                    if not r:
+                        return False
+                return True
+            for v in n.values:
+                if self._cond(v):
+                    return True
+            return False
+        if isinstance(n, Compare):
+            return self._compare(n)
+        raise TypeError(f"not a checked node: {n!r}")  # pragma: no cover - the checker forbids it
+
+    def _cond(self, n: Node) -> bool:
+        r = bool(self.run(n))
+        if self.seen is not None and isinstance(n, (Name, Call, Unary)):
+            self.seen.append(f"{self.expr.source(n)} = {fmt(r)}")
+        return r
+
+    def _call(self, n: Call) -> float:
+        args = [a.cue if isinstance(a, CueRef) else float(self.run(a)) for a in n.args]
+        own = _OWN.get(n.func)
+        if own is not None:
+            return own(args)
+        return float(self.env.call(n.func, args))
+
+    def _compare(self, n: Compare) -> bool:
+        values = [self.run(o) for o in n.operands]
+        if self.seen is None:
+            return all(_cmp(op, values[i], values[i + 1]) for i, op in enumerate(n.ops))
+        parts = []
+        for node, v in zip(n.operands, values):
+            text = self.expr.source(node)
+            parts.append(text if isinstance(node, Const) else f"{text} = {fmt(v)}")
+        result = True
+        for i, op in enumerate(n.ops):
+            if not _cmp(op, values[i], values[i + 1]):
+                result = False
+                break
+        phrase = parts[0]
+        for op, part in zip(n.ops, parts[1:]):
+            phrase += f" {op} {part}"
+        self.seen.append(phrase)
+        return result
+
+
+# --------------------------------------------------------------------------- compiled evaluation
+#
+# Criteria are tested on every trial and explained only when one holds. For the test,
+# each checked tree is turned once into nested closures (plain Python functions, no
+# eval) that make the same env calls in the same order and return the same values as
+# _Eval without phrases; _Eval stays the one path that explains.
+
+_COMPILED: dict[int, tuple[Expr, Callable]] = {}  # id(expr) -> (expr, its evaluator)
+_COMPILED_MAX = 1024
+
+
+def _evaluator(expr: Expr) -> Callable[[Env], float | bool]:
+    """The compiled form of ``expr``, made on first use and kept (bounded, by identity)."""
+    hit = _COMPILED.get(id(expr))
+    if hit is not None and hit[0] is expr:
+        return hit[1]
+    run = _compile(expr.tree)
+    if len(_COMPILED) >= _COMPILED_MAX:
+        _COMPILED.clear()
+    _COMPILED[id(expr)] = (expr, run)  # holding expr keeps its id from being reused
+    return run
+
+
+def _compile(n: Node) -> Callable[[Env], float | bool]:
+    """A function of the env that gives what ``_Eval.run(n)`` gives without phrases."""
+    if isinstance(n, Const):
+        value = n.value
+        return lambda env: value
+    if isinstance(n, Name):
+        name = n.name
+        return lambda env: env.name(name)
+    if isinstance(n, Call):
+        return _compile_call(n)
+    if isinstance(n, Unary):
+        operand = _compile(n.operand)
+        if n.op == "not":
+            return lambda env: not operand(env)
+        if n.op == "-":
+            return lambda env: -operand(env)
+        return lambda env: +operand(env)
+    if isinstance(n, Binary):
+        left, right, op = _compile(n.left), _compile(n.right), n.op
+        return lambda env: _arith(op, float(left(env)), float(right(env)))
+    if isinstance(n, BoolOp):
+        return _compile_boolop(n)
+    if isinstance(n, Compare):
+        return _compile_compare(n)
+    raise TypeError(f"not a checked node: {n!r}")  # pragma: no cover - the checker forbids it
+
+
+def _compile_call(n: Call) -> Callable[[Env], float]:
+    # arguments: a cue id as is, anything else as a float, left to right
+    parts = tuple((a.cue, None) if isinstance(a, CueRef) else (None, _compile(a)) for a in n.args)
+    func, own = n.func, _OWN.get(n.func)
+    if all(isinstance(a, CueRef | Const) for a in n.args):
+        # cue ids and constants only: the same list every time (a new one per call)
+        fixed = tuple(a.cue if isinstance(a, CueRef) else float(a.value) for a in n.args)
+        if own is None:
+            return lambda env: float(env.call(func, list(fixed)))
+
+        def args_of(env) -> list:
+            return list(fixed)
+    else:
+
+        def args_of(env) -> list:
+            return [cue if run is None else float(run(env)) for cue, run in parts]
+
+    if own is not None:
+        return lambda env: own(args_of(env))
+    return lambda env: float(env.call(func, args_of(env)))
+
+
+def _compile_boolop(n: BoolOp) -> Callable[[Env], bool]:
+    parts = tuple(_compile(v) for v in n.values)
+    if n.op == "and":
+
+        def all_hold(env) -> bool:
+            for run in parts:
+                if not run(env):
+                    return False
+            return True
+
+        return all_hold
+
+    def any_holds(env) -> bool:
+        for run in parts:
+            if run(env):
+                return True
+        return False
+
+    return any_holds
+
+
+def _compile_compare(n: Compare) -> Callable[[Env], bool]:
+    if len(n.ops) == 1:
+        # every operand is evaluated, then compared; NaN on either side is false
+        left, right, compare = _compile(n.operands[0]), n.operands[1], _COMPARE[n.ops[0]]
+        if isinstance(right, Const):
+            b = right.value  # a checked constant: finite
+            if n.ops[0] != "!=":
+                # NaN compares false by itself under these operators
+                return lambda env: bool(compare(left(env), b))
+
+            def compare_const(env) -> bool:
+                a = left(env)
+                if isinstance(a, float) and math.isnan(a):
+                    return False
+                return bool(compare(a, b))
+
+            return compare_const
+        right_run = _compile(right)
+
+        def compare_two(env) -> bool:
+            a, b = left(env), right_run(env)
+            if isinstance(a, float) and math.isnan(a) or isinstance(b, float) and math.isnan(b):
+                return False
+            return bool(compare(a, b))
+
+        return compare_two
+    runs, ops = tuple(_compile(o) for o in n.operands), n.ops
+
+    def compare_chain(env) -> bool:
+        values = [run(env) for run in runs]
+        return all(_cmp(op, values[i], values[i + 1]) for i, op in enumerate(ops))
+
+    return compare_chain
+
+
+def _arith(op: str, a: float, b: float) -> float:
+    try:
+        if op == "+":
+            return a + b
+        if op == "-":
+            return a - b
+        if op == "*":
+            return a * b
+        if op == "/":
+            return a / b if b != 0 else math.nan
+        if op == "%":
+            return math.fmod(a, b) if b != 0 else math.nan
+        if op == "**":
+            if a == 0 and b < 0:
+                return math.nan
+            r = a**b
+            return r if isinstance(r, float) else math.nan  # a negative base with a fractional power
+    except OverflowError:
+        return math.inf
+    raise ValueError(op)  # pragma: no cover
+
+
+_COMPARE = {"==": operator.eq, "!=": operator.ne, "<": operator.lt, "<=": operator.le, ">": operator.gt,
+            ">=": operator.ge}
+
+
+def _cmp(op: str, a, b) -> bool:
+    if isinstance(a, float) and math.isnan(a) or isinstance(b, float) and math.isnan(b):
+        return False
+    return _COMPARE[op](a, b)
+
+
+
+Lookup = Callable[[str], float]

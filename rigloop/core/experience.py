@@ -7,7 +7,7 @@ punishments and, for action values, the action it took on each cue.
 from __future__ import annotations
 
 from . import behaviour as B
-from .subject import action_cue
+from .learner_setup import action_cue
 from .trial import TrialEvent
 
 

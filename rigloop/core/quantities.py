@@ -10,8 +10,8 @@ import numpy as np
 from . import behaviour as B
 from .curve import _z_two_sided
 from .derived import derived
+from .learner_setup import action_cue
 from .responses import p_respond, p_right
-from .subject import action_cue
 from .trial import TrialEvent
 
 _Z95 = _z_two_sided(0.95)  # the z of the 95% bands

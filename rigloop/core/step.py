@@ -23,6 +23,7 @@ from ..errors import BadEvent
 from . import behaviour as B
 from .curve import LearningCurve, _z_two_sided
 from .experience import _action_cues, _actions_table, _is_go, _punishments, _scored
+from .learner_setup import action_cue, learner_key, new_learner, representation_for
 from .quantities import (
     _behaviour_quantities,
     _choice_cues,
@@ -33,19 +34,10 @@ from .quantities import (
 )
 from .responses import choice_code, history_step
 from .seeds import _LazyTrialRng, session_seed, trial_rng  # noqa: F401  (trial_rng: rigloop.step exports it)
-from .subject import (
-    ALL,
-    ModelView,
-    SessionContext,
-    SubjectState,
-    _next_state,
-    action_cue,
-    learner_key,
-    new_learner,
-    representation_for,
-)
+from .subject import ALL, SessionContext, SubjectState, _next_state
 from .trial import Decision, TrialEvent
 from .values import builder
+from .view import ModelView
 
 
 @dataclass(frozen=True, slots=True)

@@ -36,7 +36,7 @@ LAYERS = [
     {"__init__", "__main__", "trial", "step", "subject", "examples"},
 ]
 # the one module each optional dependency may be imported in
-OPTIONAL = {"matplotlib": "outputs/report.py", "scipy": "fit/__init__.py", "numba": "offline/batch_kernels.py"}
+OPTIONAL = {"matplotlib": "outputs/report.py", "scipy": "fit/search.py", "numba": "offline/batch_kernels.py"}
 
 
 def _imports(path: pathlib.Path):

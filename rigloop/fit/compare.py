@@ -1,0 +1,160 @@
+"""Several candidate learners fitted to the same trials and ranked by AIC, and fits of a
+subject's stored sessions with the models their rule files name.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Iterable, Mapping, Sequence
+from dataclasses import dataclass
+from typing import Any
+
+from ..core.features import Representation
+from ..core.learners import LEARNERS
+from ..errors import BadArgument
+from .data import FitData, prepare
+from .params import PARAMETERS, default_fixed, model_parameters
+from .results import FitResult
+from .search import fit_subject
+
+
+@dataclass(frozen=True, slots=True)
+class ModelSpec:
+    """A candidate model for ``compare_learners``: a learner on a representation."""
+
+    learner: str
+    representation: Representation
+    reward_unit_ul: float
+    fixed: Mapping[str, Any] | None = None
+    start: Mapping[str, float] | None = None
+
+
+def spec_from_rules(rules, learner: str | None = None) -> ModelSpec:
+    """The rule file's learner (or ``learner``) on its representation, started at its
+    parameters; Bayesian learners keep the file's ``noise`` (see ``fit/params.py``).
+
+    A learner of the other target than the file's gets the matching representation of
+    the same cues (as the rule-file loader requires): a reward learner one row per trial
+    (``identity``), a value learner ``presence`` rows at the file's ``dt``.
+    """
+    from ..core.features import CueList, make_representation
+    from ..core.subject import representation_for
+
+    rep = representation_for(rules)
+    if rules.learner.values == "cue_action":
+        # the fitted model links cue values to responding (go/no-go); a rule file's
+        # action values (cue:action columns) are fitted as the cue values they pool
+        f = rules.features
+        rep = make_representation(f.kind, CueList(rules.cues), dt=f.dt, n_bins=f.n_bins, decay=f.decay)
+    name = learner or rules.learner.name
+    model_parameters(name)  # unknown name: a clear error now
+    reward_learner = LEARNERS[name].kind == "reward"
+    if reward_learner and rep.timed:
+        rep = make_representation("identity", rep.cues)
+    elif not reward_learner and not rep.timed:
+        rep = make_representation("presence", rep.cues, dt=rules.features.dt)
+    fixed = default_fixed(name, rep)
+    start: dict[str, float] = {}
+    if name == rules.learner.name:
+        for key, value in rules.learner.params.items():
+            if key in fixed:
+                fixed[key] = value
+            elif isinstance(value, (int, float)) and not isinstance(value, bool):
+                spec = PARAMETERS[key]
+                start[key] = min(max(float(value), spec.lo), spec.hi)
+    return ModelSpec(name, rep, rules.reward_unit_ul, fixed, start or None)
+
+
+def compare_learners(
+    events: Iterable,
+    models: Sequence[Any],
+    *,
+    starts: int = 4,
+    seed: int = 0,
+    progress: Callable[[int, int], None] | None = None,
+) -> list[FitResult]:
+    """Fit each candidate in ``models`` to the same trials; the results ranked by AIC.
+
+    models: ``ModelSpec`` values, or loaded ``Rules`` (their learner and representation).
+    Rows are computed once per distinct representation and reward unit. The likelihoods
+    are of the same responses, so their AICs compare whatever the representations.
+    progress(done, total) counts starts over all the models.
+    """
+    specs = [m if isinstance(m, ModelSpec) else spec_from_rules(m) for m in models]
+    if not specs:
+        raise BadArgument("models", "at least one ModelSpec or Rules", list(models))
+    events = list(events)
+    prepared: dict[tuple, FitData] = {}
+    results = []
+    for i, spec in enumerate(specs):
+        key = (spec.representation, spec.reward_unit_ul)
+        if key not in prepared:
+            prepared[key] = prepare(events, spec.representation, reward_unit_ul=spec.reward_unit_ul)
+        each = None
+        if progress is not None:
+            def each(done: int, total: int, i: int = i) -> None:
+                progress(i * total + done, len(specs) * total)
+        results.append(fit_subject(prepared[key], spec.learner, fixed=spec.fixed, start=spec.start,
+                                   starts=starts, seed=seed, progress=each))
+    return sorted(results, key=lambda r: r.aic)
+
+
+def fit_from_store(
+    store,
+    subject: str,
+    learner: str | Sequence[str] | None = None,
+    session: str | None = None,
+    *,
+    starts: int = 4,
+    seed: int = 0,
+    progress: Callable[[int, int], None] | None = None,
+) -> FitResult | list[FitResult]:
+    """Fit a subject's stored trials (every session, or only ``session``).
+
+    The representation, reward unit and default learner come from the rule file of the
+    sessions (they must agree on representation and reward unit). One learner name (or
+    None: the rule file's) gives a FitResult; a sequence of names gives the results
+    ranked by AIC. The learner starts naive and carries across the sessions in order.
+    """
+    infos = _stored_sessions(store, subject, session)
+    rules = _session_rules(infos)
+    events = [e for info in infos for e in store.trials(subject, info.session)]
+    if learner is None or isinstance(learner, str):
+        spec = spec_from_rules(rules[-1], learner)
+        return fit_subject(events, spec.learner, spec.representation,
+                           reward_unit_ul=spec.reward_unit_ul, fixed=spec.fixed, start=spec.start,
+                           starts=starts, seed=seed, progress=progress)
+    specs = [spec_from_rules(rules[-1], name) for name in learner]
+    return compare_learners(events, specs, starts=starts, seed=seed, progress=progress)
+
+
+def _stored_sessions(store, subject: str, session: str | None) -> list:
+    """The subject's stored sessions in order (only ``session`` when one is named)."""
+    infos = store.sessions(subject)
+    if not infos:
+        known = ", ".join(store.subjects()) or "none"
+        raise BadArgument("subject", f"a subject with stored sessions (subjects: {known})", subject)
+    if session is not None:
+        names = [i.session for i in infos]
+        if session not in names:
+            raise BadArgument("session", f"one of {subject!r}'s sessions ({', '.join(names)})",
+                              session)
+        infos = [i for i in infos if i.session == session]
+    return infos
+
+
+def _session_rules(infos: Sequence) -> list:
+    """The loaded rule file of each session; they must share features and reward unit."""
+    from ..core.subject import representation_for
+    from ..replay import RulesCache
+
+    cache = RulesCache()
+    rules = [cache.get(i.rules_text, i.rules_sha256,
+                       f"session {i.session} rule file {i.rules_name}") for i in infos]
+    first_rep, unit = representation_for(rules[0]), rules[0].reward_unit_ul
+    for info, r in zip(infos, rules, strict=True):
+        if representation_for(r) != first_rep or r.reward_unit_ul != unit:
+            raise BadArgument(
+                "session", f"a session whose rule file has the features and reward unit of "
+                f"session {infos[0].session!r} (fit the sessions separately with --session)",
+                info.session)
+    return rules

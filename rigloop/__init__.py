@@ -1,17 +1,27 @@
 """rigloop: adaptive, Bayesian trial scheduling beside behavioural rig controllers.
 
-Layout (data flows top to bottom; see DEVELOPERS.md):
-  trial        TrialEvent, Decision: frozen, validated values
-  features     trial -> feature rows and rewards over time bins
-  learners/    Rescorla-Wagner, Kalman filter, TD(lambda), Kalman TD (pure numpy)
-  performance  state-space learning curve, criteria, d', SPRT
-  rules/       rule-file language, policies, welfare limits
-  subject      SubjectState: all one animal carries from trial to trial
-  step         step(state, event, rules): THE function, shared by live and offline
-  store        SQLite: sessions, trials (with decisions and quantities), snapshots
-  wire, links/ message codecs (no I/O) and the ZeroMQ / serial links
-  daemon       links -> step -> store -> reply/publish
-  replay, simulate, fit, report: offline tools over the same core
+General layout: one room per job, each importing only the rooms above it in this list
+(tests/test_layout.py holds the order, the purity of the first rooms, and no cycles).
+
+  errors, version  the error tree; the version string
+  core/      the animal's model and THE step, pure (stdlib + numpy): trial values, features,
+             learners/, the learning curve and sequential tests, the animal's own behaviour,
+             response models, SubjectState, step
+  rules/     the rule-file language (expr/), loading, the engine, policies, welfare limits; pure
+  wire/      message codecs, msgpack and the serial line protocol (no I/O)
+  store/     SQLite: sessions, trials (with decisions and quantities), snapshots
+  links/     the only zmq / pyserial imports: ZeroMQ, serial, CURVE keys
+  replay/    stored sessions back through step; crash recovery
+  offline/   simulated animals, sweeps, their truth, batched learners, CSV import
+  fit/       learner parameters from behaviour
+  outputs/   data and figures out
+  serve/     the daemon: links -> step -> store -> reply/publish; its client, the live table
+  testing/   virtual rigs, pseudo-terminals, a daemon subprocess (tests and labs' own tests)
+  demo/      `make demo`
+  cli/       argument parsing and wiring only
+
+The scripting API keeps its paths: rigloop.rules.load (load_rules_file), rigloop.subject
+(new_subject), rigloop.step (begin_session, step), rigloop.trial (the value types).
 """
 
 from .core.trial import CuePresentation, Decision, Outcome, Response, TrialEvent

@@ -1,8 +1,10 @@
 """Rule files: the expression language, validation, policies, welfare limits, engine.
 
-  expr      the checked expression language (parse, type-check, evaluate)
+  expr/     the checked expression language: vocab, tree, check (parse, type-check), run (evaluate)
   model     frozen specs a rule file loads into
   load      TOML -> specs, every problem at once (the only file-reading part, with profile)
+  reader    Reader: typed getters over TOML tables that record problems
+  read_spec, read_model, read_cues, read_stages, read_policies   the sections of a rule file
   state     ScheduleState: what the schedule carries from trial to trial
   view      SubjectView protocol (what rules read from the models), StaticView
   policies  next cue, reward probability, staircase

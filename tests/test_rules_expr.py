@@ -300,3 +300,12 @@ def test_compiled_evaluation_equals_the_interpreter(text):
         slow = _outcome(lambda: X._Eval(e, b, None).run(e.tree))
         assert type(fast) is type(slow) and (fast == slow or (fast != fast and slow != slow)), seed
         assert a.calls == b.calls
+
+
+def test_remainder_of_an_infinity_is_nan_not_an_error():
+    """Runtime arithmetic never raises: inf % 2 (math.fmod's domain error) gives NaN, and NaN
+    compares false, so a criterion reading an infinite quantity simply does not hold."""
+    from rigloop.rules.expr import _arith
+
+    assert math.isnan(_arith("%", math.inf, 2.0)) and math.isnan(_arith("%", -math.inf, 2.0))
+    assert math.isnan(_arith("%", 1.0, math.nan)) and _arith("%", 7.0, 3.0) == 1.0

@@ -281,7 +281,8 @@ def _arith(op: str, a: float, b: float) -> float:
         if op == "/":
             return a / b if b != 0 else math.nan
         if op == "%":
-            return math.fmod(a, b) if b != 0 else math.nan
+            # fmod(inf, b) raises a domain error: the remainder of an infinity is undefined, NaN
+            return math.fmod(a, b) if b != 0 and not math.isinf(a) and not math.isnan(b) else math.nan
         if op == "**":
             if a == 0 and b < 0:
                 return math.nan

@@ -2,7 +2,25 @@
 
 from __future__ import annotations
 
+import argparse
 from collections.abc import Sequence
+
+from .args import add_json, add_session, add_store
+
+
+def add_fit(sub: argparse._SubParsersAction) -> None:
+    p = sub.add_parser("fit", help="fit learner parameters to a subject's responses (needs scipy: the 'fit' extra)")
+    add_store(p, "the SQLite store")
+    p.add_argument("--learner", action="append", metavar="NAME",
+                   help="learner to fit (repeatable: the fits are ranked by AIC; default: the rule file's)")
+    add_session(p, "fit only this session (default: every session, in order)")
+    p.add_argument("--starts", type=int, default=4, help="optimiser starts per learner (default 4)")
+    add_json(p, "print the fits as JSON")
+    p.set_defaults(func=_run_fit)
+
+
+def _run_fit(args: argparse.Namespace) -> int:
+    return run_command(args.db, args.subject, args.learner, args.session, starts=args.starts, as_json=args.json)
 
 
 def run_command(db: str, subject: str, learners: Sequence[str] | None = None,

@@ -6,6 +6,7 @@ Both encodings carry one message set and decode into the same values:
   replies  (rigloop -> rig)   DecisionReply, Ack, StateReply, Pong, ErrorReply
 
   messages.py  the values, limits, ERROR_CODES, MessageError
+  fields.py    each message's fields (name, serial key, kind), shared by both codecs
   packed.py    msgpack: decode_request / encode_reply (and the rig's side)
   text.py      line syntax: escaping, scalars, checksum placement
   lines.py     line <-> message for every verb

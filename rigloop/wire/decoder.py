@@ -97,16 +97,13 @@ class LineDecoder:
         self._partial.clear()
         self._discarding = True
         self._lines += 1
-        self._bad += 1
         self._too_large += 1
-        self._pending.append(
-            MessageError(
-                "too_large",
-                f"line is longer than {self.max_line} bytes; it was discarded",
-                line=self._lines,
-                excerpt=excerpt(head[:40]),
-            )
-        )
+        self._fail("too_large", f"line is longer than {self.max_line} bytes; it was discarded", excerpt(head[:40]))
+
+    def _fail(self, code: str, message: str, shown: str) -> None:
+        """Count a bad line and queue its error (``shown``: the excerpt for logs)."""
+        self._bad += 1
+        self._pending.append(MessageError(code, message, line=self._lines, excerpt=shown))
 
     def _end_line(self, seg: bytes) -> None:
         if self._discarding:
@@ -131,12 +128,4 @@ class LineDecoder:
             err.excerpt = excerpt(line)
             self._pending.append(err)
         except Exception as err:  # a bug of ours: still cost only this line
-            self._bad += 1
-            self._pending.append(
-                MessageError(
-                    "internal",
-                    f"rigloop could not decode this line ({type(err).__name__})",
-                    line=self._lines,
-                    excerpt=excerpt(line),
-                )
-            )
+            self._fail("internal", f"rigloop could not decode this line ({type(err).__name__})", excerpt(line))

@@ -10,22 +10,19 @@ entries from the end and says ``omitted=N``).
 from __future__ import annotations
 
 from collections.abc import Callable
+from functools import partial
 from typing import Any
 
 from ..core.trial import Decision, TrialEvent
 from ..errors import BadArgument, BadEvent
+from .fields import DECISION, DUPLICATE, FIELDS, Field
 from .messages import (
     MAX_LINE,
+    REPLY_TYPES,
     REQUEST_TYPES,
-    Ack,
-    CloseSession,
     DecisionReply,
     ErrorReply,
     MessageError,
-    OpenSession,
-    Ping,
-    Pong,
-    QueryState,
     Reply,
     Request,
     RequestId,
@@ -76,20 +73,14 @@ _EVENT_KEYS = {
     "duration": "dur",
     "wall_time": "wall",
 }
-_DECISION_KEYS = {
-    "subject": "subj",
-    "session": "sess",
-    "trial": "n",
-    "cue": "cue",
-    "reward_prob": "p",
-    "reward_ul": "ul",
-    "reward_armed": "armed",
-    "valve_ms": "valve",
-    "difficulty": "diff",
-    "block": "block",
-    "stage": "stage",
-    "end_session": "end",
-}
+# Decision field -> serial key, for error keys (the text lists keep their field names there)
+_DECISION_KEYS = {f.name: f.key for f in DECISION if f.kind != "texts"}
+# the order of a DECISION line's keys; the text lists go last, where a long line is cut
+_DECISION_LAYOUT = ("subj", "sess", "n", "cue", "p", "ul", "armed", "valve", "diff", "block", "stage", "end", "dup",
+                    "over", "warn", "why")
+# message type -> its line's key order, where that is not its table's: an ERR line's
+# sentence goes last, where a long line is cut
+_LAYOUTS = {"error": ("code", "field", "msg")}
 
 
 # --------------------------------------------------------------------------- public
@@ -214,6 +205,14 @@ class _Line:
         raw = self.raw(key, optional=optional)
         return None if raw is None else read_float(raw, key)
 
+    def field(self, field: Field) -> Any:
+        """A field of the shared table read for its kind; left out: None (a flag: false,
+        a text list: empty). A nil field is one left out of a line."""
+        raw = self.raw(field.key, optional=field.optional or field.nullable)
+        if raw is None:
+            return _ABSENT.get(field.kind)
+        return _READ[field.kind](raw, field.key)
+
     def prefixed(self, prefix: str) -> list[tuple[list[str], Any]]:
         out = []
         for key, val in self.values.items():
@@ -274,22 +273,33 @@ def _serial_key(name: str, table: dict[str, str]) -> str:
     return name
 
 
-def _read_open(f: _Line) -> OpenSession:
-    f.only(("id", "subj", "rig", "sess", "rules", "seed", "profile", "wall"))
-    seed = f.raw("seed", optional=True)
-    return OpenSession(
-        f.rid,
-        f.text("subj"),
-        f.text("rig"),
-        f.text("sess"),
-        f.text("rules"),
-        seed=None if seed is None else read_int(seed, "seed"),
-        profile=f.text("profile", optional=True),
-        wall_time=f.number("wall", optional=True),
-    )
+def _texts(raw: str, key: str) -> tuple[str, ...]:
+    return tuple(unesc(part, key) for part in raw.split("|"))
 
 
-_TRIAL_KEYS = ("id", "subj", "rig", "sess", "n", "cues", "rew", "pun", "to", "resp", "res", "lat", "dur", "wall")
+# a field kind (fields.KINDS) -> its reader (raw value, key) and its writer (value -> raw)
+_READ: dict[str, Callable[[str, str], Any]] = {
+    "text": unesc, "whole": read_int, "number": read_float, "flag": read_flag, "texts": _texts,
+}
+_ABSENT = {"flag": False, "texts": ()}
+_WRITE: dict[str, Callable[[Any], str]] = {
+    "text": fmt_str, "whole": str, "number": fmt_float, "flag": lambda v: "1" if v else "0",
+}
+
+
+def _flat_reader(cls: type, fields: tuple[Field, ...], layout: tuple[str, ...] | None = None) -> Callable[[_Line], Any]:
+    """The reader of a flat message: only its keys (``layout``: their line order), each
+    read for its kind, in table order."""
+    keys = ("id", *(layout or (f.key for f in fields)))
+
+    def read(f: _Line) -> Any:
+        f.only(keys)
+        return cls(f.rid, *(f.field(field) for field in fields))
+
+    return read
+
+
+_TRIAL_KEYS = ("id", *dict.fromkeys(_EVENT_KEYS.values()))
 
 
 def _read_trial(f: _Line) -> TrialReport:
@@ -356,58 +366,15 @@ def _read_trial(f: _Line) -> TrialReport:
     return TrialReport(f.rid, TrialEvent.from_dict(data))
 
 
-def _read_close(f: _Line) -> CloseSession:
-    f.only(("id", "subj", "rig", "sess"))
-    return CloseSession(f.rid, f.text("subj"), f.text("rig"), f.text("sess"))
-
-
-def _read_query(f: _Line) -> QueryState:
-    f.only(("id", "subj"))
-    return QueryState(f.rid, f.text("subj"))
-
-
-def _read_ping(f: _Line) -> Ping:
-    f.only(("id",))
-    return Ping(f.rid)
-
-
-_REQUEST_READERS = {"OPEN": _read_open, "TRIAL": _read_trial, "CLOSE": _read_close, "QUERY": _read_query, "PING": _read_ping}
-
-_DECISION_LINE_KEYS = ("id", "subj", "sess", "n", "cue", "p", "ul", "armed", "valve", "diff", "block", "stage", "end", "dup", "over", "warn", "why")
-
-
-def _texts(f: _Line, key: str) -> tuple[str, ...]:
-    raw = f.raw(key, optional=True)
-    return () if raw is None else tuple(unesc(part, key) for part in raw.split("|"))
+_REQUEST_READERS = {verb: _flat_reader(REQUEST_TYPES[kind], FIELDS[kind], _LAYOUTS.get(kind))
+                    for verb, kind in REQUEST_VERBS.items() if kind in FIELDS}
+_REQUEST_READERS["TRIAL"] = _read_trial
 
 
 def _read_decision(f: _Line) -> DecisionReply:
-    f.only(_DECISION_LINE_KEYS)
-    end = f.raw("end", optional=True)
-    dup = f.raw("dup", optional=True)
-    decision = Decision(
-        subject=f.text("subj"),
-        session=f.text("sess"),
-        trial=read_int(f.raw("n"), "n"),
-        cue=f.text("cue", optional=True),
-        reward_prob=f.number("p"),
-        reward_ul=f.number("ul"),
-        reward_armed=read_flag(f.raw("armed"), "armed"),
-        block=f.text("block"),
-        stage=f.text("stage"),
-        end_session=False if end is None else read_flag(end, "end"),
-        difficulty=f.number("diff", optional=True),
-        valve_ms=f.number("valve", optional=True),
-        reasons=_texts(f, "why"),
-        overrides=_texts(f, "over"),
-        warnings=_texts(f, "warn"),
-    )
-    return DecisionReply(f.rid, decision, False if dup is None else read_flag(dup, "dup"))
-
-
-def _read_ack(f: _Line) -> Ack:
-    f.only(("id", "of"))
-    return Ack(f.rid, f.text("of"))
+    f.only(("id", *_DECISION_LAYOUT))
+    decision = Decision(*(f.field(field) for field in DECISION))
+    return DecisionReply(f.rid, decision, f.field(DUPLICATE))
 
 
 def _read_state(f: _Line) -> StateReply:
@@ -428,30 +395,16 @@ def _read_state(f: _Line) -> StateReply:
     return StateReply(f.rid, f.text("subj"), state)
 
 
-def _read_pong(f: _Line) -> Pong:
-    f.only(("id",))
-    return Pong(f.rid)
-
-
-def _read_error(f: _Line) -> ErrorReply:
-    f.only(("id", "code", "field", "msg"))
-    return ErrorReply(f.rid, f.text("code"), f.text("msg"), f.text("field", optional=True))
-
-
-_REPLY_READERS = {"DECISION": _read_decision, "ACK": _read_ack, "STATE": _read_state, "PONG": _read_pong, "ERR": _read_error}
+_REPLY_READERS = {verb: _flat_reader(REPLY_TYPES[kind], FIELDS[kind], _LAYOUTS.get(kind))
+                  for verb, kind in REPLY_VERBS.items() if kind in FIELDS}
+_REPLY_READERS.update(DECISION=_read_decision, STATE=_read_state)
 
 # --------------------------------------------------------------------------- writing
 
 
-def _write_open(r: OpenSession) -> list[tuple[str, str]]:
-    out = [("subj", fmt_str(r.subject)), ("rig", fmt_str(r.rig)), ("sess", fmt_str(r.session)), ("rules", fmt_str(r.rules))]
-    if r.seed is not None:
-        out.append(("seed", str(r.seed)))
-    if r.profile is not None:
-        out.append(("profile", fmt_str(r.profile)))
-    if r.wall_time is not None:
-        out.append(("wall", fmt_float(r.wall_time)))
-    return out
+def _write_flat(value: Any, fields: tuple[Field, ...]) -> list[tuple[str, str]]:
+    """A flat message's (key, raw) pairs in table order; a None field is left out."""
+    return [(f.key, _WRITE[f.kind](v)) for f in fields if (v := getattr(value, f.name)) is not None]
 
 
 def _part_value(v: float | str) -> str:
@@ -490,41 +443,27 @@ def _write_trial(r: TrialReport) -> list[tuple[str, str]]:
     return out
 
 
-def _write_close(r: CloseSession) -> list[tuple[str, str]]:
-    return [("subj", fmt_str(r.subject)), ("rig", fmt_str(r.rig)), ("sess", fmt_str(r.session))]
-
-
-def _write_query(r: QueryState) -> list[tuple[str, str]]:
-    return [("subj", fmt_str(r.subject))]
-
-
-_REQUEST_WRITERS = {
-    OpenSession: _write_open,
-    TrialReport: _write_trial,
-    CloseSession: _write_close,
-    QueryState: _write_query,
-    Ping: lambda r: [],
-}
+_REQUEST_WRITERS = {cls: partial(_write_flat, fields=FIELDS[kind]) for kind, cls in REQUEST_TYPES.items() if kind in FIELDS}
+_REQUEST_WRITERS[TrialReport] = _write_trial
 assert set(REQUEST_TYPES.values()) == set(_REQUEST_WRITERS)
 
 
+# a DECISION line's fields in line order: (key, attribute, writer; None for a text list)
+_DECISION_LINE = tuple((f.key, f.name, _WRITE.get(f.kind))
+                       for key in _DECISION_LAYOUT for f in (*DECISION, DUPLICATE) if f.key == key)
+
+
 def _write_decision(r: DecisionReply):
+    """The decision's fields in line order; its non-empty text lists are the cuttable part."""
     d = r.decision
-    out = [("subj", fmt_str(d.subject)), ("sess", fmt_str(d.session)), ("n", str(d.trial))]
-    if d.cue is not None:
-        out.append(("cue", fmt_str(d.cue)))
-    out += [("p", fmt_float(d.reward_prob)), ("ul", fmt_float(d.reward_ul)), ("armed", "1" if d.reward_armed else "0")]
-    if d.valve_ms is not None:
-        out.append(("valve", fmt_float(d.valve_ms)))
-    if d.difficulty is not None:
-        out.append(("diff", fmt_float(d.difficulty)))
-    out += [
-        ("block", fmt_str(d.block)),
-        ("stage", fmt_str(d.stage)),
-        ("end", "1" if d.end_session else "0"),
-        ("dup", "1" if r.duplicate else "0"),
-    ]
-    cuttable = [(k, list(items), True) for k, items in (("over", d.overrides), ("warn", d.warnings), ("why", d.reasons)) if items]
+    out, cuttable = [], []
+    for key, name, write in _DECISION_LINE:
+        value = r.duplicate if key == "dup" else getattr(d, name)
+        if write is None:
+            if value:
+                cuttable.append((key, list(value), True))
+        elif value is not None:
+            out.append((key, write(value)))
     return out, cuttable
 
 
@@ -546,13 +485,17 @@ def _flatten(state: dict[str, Any], prefix: str) -> list[tuple[str, str]]:
     return out
 
 
-_REPLY_WRITERS = {
+def _write_flat_reply(reply: Reply, fields: tuple[Field, ...]):
+    return _write_flat(reply, fields), []
+
+
+_REPLY_WRITERS = {cls: partial(_write_flat_reply, fields=FIELDS[kind]) for kind, cls in REPLY_TYPES.items() if kind in FIELDS}
+_REPLY_WRITERS.update({
     DecisionReply: _write_decision,
-    Ack: lambda r: ([("of", r.of)], []),
     StateReply: lambda r: ([("subj", fmt_str(r.subject))], _flatten(r.state, "s.")),
-    Pong: lambda r: ([], []),
     ErrorReply: _write_error,
-}
+})
+assert set(REPLY_TYPES.values()) == set(_REPLY_WRITERS)
 
 
 def _fmt_texts(items: list[str], is_list: bool) -> str:

@@ -16,6 +16,7 @@ import msgpack
 
 from ..core.trial import Decision, TrialEvent
 from ..errors import BadArgument, BadEvent
+from .fields import DECISION, DUPLICATE, FIELDS, Field
 from .messages import (
     MAX_DEPTH,
     MAX_FRAME,
@@ -26,15 +27,8 @@ from .messages import (
     MAX_STR,
     REPLY_TYPES,
     REQUEST_TYPES,
-    Ack,
-    CloseSession,
     DecisionReply,
-    ErrorReply,
     MessageError,
-    OpenSession,
-    Ping,
-    Pong,
-    QueryState,
     Reply,
     Request,
     RequestId,
@@ -66,18 +60,8 @@ def encode_request(req: Request) -> bytes:
     body: dict[str, Any] = {"type": req.type, "id": req.id}
     if isinstance(req, TrialReport):
         body["event"] = req.event.to_dict()
-    elif isinstance(req, OpenSession):
-        body.update(subject=req.subject, rig=req.rig, session=req.session, rules=req.rules)
-        if req.seed is not None:
-            body["seed"] = req.seed
-        if req.profile is not None:
-            body["profile"] = req.profile
-        if req.wall_time is not None:
-            body["wall_time"] = req.wall_time
-    elif isinstance(req, CloseSession):
-        body.update(subject=req.subject, rig=req.rig, session=req.session)
-    elif isinstance(req, QueryState):
-        body["subject"] = req.subject
+    else:
+        _put(body, req, FIELDS[req.type])
     return _pack(body)
 
 
@@ -94,15 +78,11 @@ def encode_reply(reply: Reply) -> bytes:
             d[name] = _cut_list(d[name])
         body["decision"] = d
         body["duplicate"] = reply.duplicate
-    elif isinstance(reply, Ack):
-        body["of"] = reply.of
     elif isinstance(reply, StateReply):
         body["subject"] = reply.subject
         body["state"] = reply.state
-    elif isinstance(reply, ErrorReply):
-        body.update(code=reply.code, message=reply.message)
-        if reply.field is not None:
-            body["field"] = reply.field
+    else:
+        _put(body, reply, FIELDS[reply.type])
     frame = _pack(body)
     if len(frame) > MAX_FRAME:
         raise MessageError("too_large", f"reply is {len(frame)} bytes; the limit is {MAX_FRAME}", request_id=reply.id)
@@ -289,30 +269,57 @@ class _Fields:
         return value
 
     def text(self, name: str, *, optional: bool = False) -> Any:
-        return self.get(name, "a string", lambda v: isinstance(v, str), optional=optional)
+        return self.get(name, "a string", _is_str, optional=optional)
+
+    def field(self, field: Field) -> Any:
+        """A field of the shared table, checked for its kind (absent or nil: None)."""
+        expected, test = _KINDS[field.kind]
+        return self.get(field.name, expected, test, optional=field.optional)
 
 
 def _is_map(v: Any) -> bool:
     return type(v) is dict
 
 
+def _is_str(v: Any) -> bool:
+    return isinstance(v, str)
+
+
 def _is_int(v: Any) -> bool:
     return isinstance(v, int) and not isinstance(v, bool)
 
 
-def _read_open(f: _Fields) -> OpenSession:
-    f.only("subject", "rig", "session", "rules", "seed", "profile", "wall_time")
-    return OpenSession(
-        f.rid,
-        f.text("subject"),
-        f.text("rig"),
-        f.text("session"),
-        f.text("rules"),
-        seed=f.get("seed", "a whole number", _is_int, optional=True),
-        profile=f.text("profile", optional=True),
-        wall_time=f.get("wall_time", "a number", lambda v: isinstance(v, (int, float)) and not isinstance(v, bool),
-                        optional=True),
-    )
+def _is_number(v: Any) -> bool:
+    return _is_int(v) or isinstance(v, float)
+
+
+def _is_bool(v: Any) -> bool:
+    return isinstance(v, bool)
+
+
+def _is_texts(v: Any) -> bool:
+    return isinstance(v, list) and all(isinstance(s, str) for s in v)
+
+
+# a field kind (fields.KINDS) -> (what a message says it must be, the test)
+_KINDS: dict[str, tuple[str, Callable[[Any], bool]]] = {
+    "text": ("a string", _is_str),
+    "whole": ("a whole number", _is_int),
+    "number": ("a number", _is_number),
+    "flag": ("true or false", _is_bool),
+    "texts": ("a list of strings", _is_texts),
+}
+
+
+def _flat_reader(cls: type, fields: tuple[Field, ...]) -> Callable[[_Fields], Any]:
+    """The reader of a flat message: only its fields, each of its kind, in table order."""
+    names = tuple(f.name for f in fields)
+
+    def read(f: _Fields) -> Any:
+        f.only(*names)
+        return cls(f.rid, *(f.field(field) for field in fields))
+
+    return read
 
 
 def _read_trial(f: _Fields) -> TrialReport:
@@ -325,41 +332,19 @@ def _read_trial(f: _Fields) -> TrialReport:
     return TrialReport(f.rid, TrialEvent.from_dict(event))
 
 
-def _read_close(f: _Fields) -> CloseSession:
-    f.only("subject", "rig", "session")
-    return CloseSession(f.rid, f.text("subject"), f.text("rig"), f.text("session"))
+_REQUEST_READERS = {kind: _flat_reader(cls, FIELDS[kind]) for kind, cls in REQUEST_TYPES.items() if kind in FIELDS}
+_REQUEST_READERS["trial"] = _read_trial
 
 
-def _read_query(f: _Fields) -> QueryState:
-    f.only("subject")
-    return QueryState(f.rid, f.text("subject"))
+def _decision_check(field: Field) -> tuple[str, Callable[[Any], bool], bool]:
+    """(expected, test, required) of a decision field; nil passes only a nullable one."""
+    expected, test = _KINDS[field.kind]
+    if field.nullable:
+        return f"{expected} or nil", lambda v: v is None or test(v), not field.optional
+    return expected, test, not field.optional
 
 
-def _read_ping(f: _Fields) -> Ping:
-    f.only()
-    return Ping(f.rid)
-
-
-_REQUEST_READERS = {"open": _read_open, "trial": _read_trial, "close": _read_close, "query": _read_query, "ping": _read_ping}
-
-_DECISION_TYPES: dict[str, tuple[str, Callable[[Any], bool], bool]] = {
-    # name: (expected, test, required)
-    "subject": ("a string", lambda v: isinstance(v, str), True),
-    "session": ("a string", lambda v: isinstance(v, str), True),
-    "trial": ("a whole number", _is_int, True),
-    "cue": ("a string or nil", lambda v: v is None or isinstance(v, str), True),
-    "reward_prob": ("a number", lambda v: _is_int(v) or isinstance(v, float), True),
-    "reward_ul": ("a number", lambda v: _is_int(v) or isinstance(v, float), True),
-    "reward_armed": ("true or false", lambda v: isinstance(v, bool), True),
-    "block": ("a string", lambda v: isinstance(v, str), True),
-    "stage": ("a string", lambda v: isinstance(v, str), True),
-    "end_session": ("true or false", lambda v: isinstance(v, bool), False),
-    "difficulty": ("a number or nil", lambda v: v is None or _is_int(v) or isinstance(v, float), False),
-    "valve_ms": ("a number or nil", lambda v: v is None or _is_int(v) or isinstance(v, float), False),
-    "reasons": ("a list of strings", lambda v: isinstance(v, list) and all(isinstance(s, str) for s in v), False),
-    "overrides": ("a list of strings", lambda v: isinstance(v, list) and all(isinstance(s, str) for s in v), False),
-    "warnings": ("a list of strings", lambda v: isinstance(v, list) and all(isinstance(s, str) for s in v), False),
-}
+_DECISION_TYPES = {field.name: _decision_check(field) for field in DECISION}
 
 
 def _read_decision(f: _Fields) -> DecisionReply:
@@ -379,13 +364,8 @@ def _read_decision(f: _Fields) -> DecisionReply:
                 field=f"decision.{name}",
                 request_id=f.rid,
             )
-    duplicate = f.get("duplicate", "true or false", lambda v: isinstance(v, bool), optional=True)
+    duplicate = f.field(DUPLICATE)
     return DecisionReply(f.rid, Decision.from_dict(d), bool(duplicate))
-
-
-def _read_ack(f: _Fields) -> Ack:
-    f.only("of")
-    return Ack(f.rid, f.text("of"))
 
 
 def _read_state(f: _Fields) -> StateReply:
@@ -393,19 +373,18 @@ def _read_state(f: _Fields) -> StateReply:
     return StateReply(f.rid, f.text("subject"), f.get("state", "a map", lambda v: isinstance(v, dict)))
 
 
-def _read_pong(f: _Fields) -> Pong:
-    f.only()
-    return Pong(f.rid)
-
-
-def _read_error(f: _Fields) -> ErrorReply:
-    f.only("code", "message", "field")
-    return ErrorReply(f.rid, f.text("code"), f.text("message"), f.text("field", optional=True))
-
-
-_REPLY_READERS = {"decision": _read_decision, "ack": _read_ack, "state": _read_state, "pong": _read_pong, "error": _read_error}
+_REPLY_READERS = {kind: _flat_reader(cls, FIELDS[kind]) for kind, cls in REPLY_TYPES.items() if kind in FIELDS}
+_REPLY_READERS.update(decision=_read_decision, state=_read_state)
 
 # --------------------------------------------------------------------------- encoding
+
+
+def _put(body: dict[str, Any], value: Any, fields: tuple[Field, ...]) -> None:
+    """A flat message's fields into ``body``, in table order; a None optional one is left out."""
+    for field in fields:
+        v = getattr(value, field.name)
+        if v is not None or not field.optional:
+            body[field.name] = v
 
 
 def _pack(body: dict[str, Any]) -> bytes:

@@ -16,30 +16,12 @@ import numpy as np
 import pytest
 
 from rigloop.core import curve, features, quantities, seeds
-from rigloop.core import step as core_step
-from rigloop.core.subject import SubjectState, _next_state, new_subject
 from rigloop.core.trial import CuePresentation, Outcome, Response, TrialEvent
 from rigloop.rules import load_example
-from rigloop.rules.engine import Plan, _plan
 
 
 def _bits(x) -> bytes:
     return np.float64(x).tobytes()
-
-
-def test_builder_builds_what_init_builds():
-    """values.builder makes the same value as the class's own __init__ (SubjectState, Update, Plan)."""
-    rules = load_example("tone_reversal")
-    state = new_subject("m1", rules)
-    fields = [getattr(state, f.name) for f in dataclasses.fields(SubjectState)]
-    assert _next_state(*fields) == SubjectState(*fields)
-    values = ("m1", "s1", 3, {"value[a]": 0.5}, np.zeros(2), np.ones(2))
-    built, made = core_step._update(*values), core_step.Update(*values)
-    assert built.to_dict() == made.to_dict()
-    plan_values = ("a", 0.5, 4.0, True, "b1", "st", False, None, ("why",), (), ())
-    assert _plan(*plan_values) == Plan(*plan_values)
-    with pytest.raises(TypeError, match="SubjectState has 11 fields, got 10 values"):
-        _next_state(*fields[:-1])
 
 
 @pytest.mark.parametrize("seed, trial", [(0, 1), (7, 3), (2**63 + 5, 999), (123456789, 2)])

@@ -34,9 +34,8 @@ from .quantities import (
 )
 from .responses import choice_code, history_step
 from .seeds import _LazyTrialRng, session_seed, trial_rng  # noqa: F401  (trial_rng: rigloop.step exports it)
-from .subject import ALL, SessionContext, SubjectState, _next_state
+from .subject import ALL, SessionContext, SubjectState
 from .trial import Decision, TrialEvent
-from .values import builder
 from .view import ModelView
 
 
@@ -80,8 +79,6 @@ class Update:
 _Z95 = _z_two_sided(0.95)  # the z of the 95% band step reports
 
 
-# step builds an Update per trial without the frozen __init__ (see values.py)
-_update = builder(Update)
 
 
 def view_of(rules, rep, learner, curves, behaviour, finite=None, fresh_curves=None) -> ModelView:
@@ -274,7 +271,7 @@ def step(state: SubjectState, event: TrialEvent, rules) -> tuple[SubjectState, D
     schedule = rules.observe(state.schedule, event)
     schedule, decision = _decide(state.subject, ctx, rules, rep, learner, curves, schedule, event.trial + 1,
                                  fresh_curves=fresh, finite=finite, behaviour=behaviour)
-    next_state = _next_state(state.subject, learner, state.learner_key, curves, schedule, ctx, event.trial,
+    next_state = SubjectState(state.subject, learner, state.learner_key, curves, schedule, ctx, event.trial,
                              state.trials_total + 1, state.notes, behaviour, history)
-    update = _update(state.subject, ctx.session, event.trial, quantities, values, errors)
+    update = Update(state.subject, ctx.session, event.trial, quantities, values, errors)
     return next_state, decision, update

@@ -22,7 +22,6 @@ import numpy as np
 
 from ..errors import BadArgument, StoreError
 from .learners import LEARNERS
-from .values import builder
 
 STATE_FORMAT = 2  # 2: behaviour estimates and the choice kernel (a format-1 snapshot is replayed past)
 ALL = "all"  # the condition that pools every scored trial
@@ -133,8 +132,6 @@ class SubjectState:
         return hashlib.sha256(self.to_bytes()).hexdigest()
 
 
-# step builds a SubjectState per trial without the frozen __init__ (see values.py)
-_next_state = builder(SubjectState)
 
 
 def _pack_arrays(state: Mapping[str, Any]) -> dict[str, Any]:

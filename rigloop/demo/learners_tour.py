@@ -14,9 +14,9 @@ import math
 
 import numpy as np
 
+from ..core.curve import LearningCurve
 from ..core.features import CueList, make_representation
 from ..core.learners import make_learner
-from ..core.curve import LearningCurve
 
 CUES = CueList(["tone_hi", "tone_lo"])
 BLOCKS = (("acquisition", "tone_hi"), ("reversal", "tone_lo"))

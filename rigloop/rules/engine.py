@@ -25,7 +25,6 @@ import numpy as np
 from ..core.derived import derived
 from ..core.performance import dprime as _dprime
 from ..core.performance import sequential_bounds, sequential_step
-from ..core.values import builder
 from .expr import Env, compiled, evaluate, explain_if, fmt
 from .model import Block, Spec, Sprt, Stage
 from .policies import choose_cue, reward_prob, staircase_step
@@ -54,8 +53,6 @@ class Plan:
         return {name: getattr(self, name) for name in self.__dataclass_fields__}
 
 
-# decide builds a Plan per trial without the frozen __init__ (see values.py)
-_plan = builder(Plan)
 
 
 # --------------------------------------------------------------------------- expression env
@@ -336,7 +333,7 @@ def decide(spec: Spec, sched: ScheduleState, view, next_trial: int,
     changes["last_armed"] = armed
     changes["session_ended"] = end
     sched = sched._evolved(changes)
-    plan = _plan(cue, float(p), float(ul), bool(armed), sched.block, sched.stage, end, difficulty, tuple(reasons),
+    plan = Plan(cue, float(p), float(ul), bool(armed), sched.block, sched.stage, end, difficulty, tuple(reasons),
                  tuple(overrides), tuple(warnings))
     return sched, plan
 

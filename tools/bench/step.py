@@ -28,7 +28,7 @@ import numpy as np  # noqa: E402
 
 from rigloop.core import curve, features, quantities, seeds  # noqa: E402
 from rigloop.core import step as core_step  # noqa: E402
-from rigloop.core.subject import SubjectState, _next_state, new_subject  # noqa: E402
+from rigloop.core.subject import new_subject  # noqa: E402
 from rigloop.offline.simulate import simulate_session  # noqa: E402
 from rigloop.offline.sweep import animal_for  # noqa: E402
 from rigloop.rules import load_example  # noqa: E402
@@ -67,7 +67,6 @@ def _pair(trick, reference, number: int) -> dict[str, float]:
 def tricks() -> dict[str, dict[str, float]]:
     rules = load_example("tone_reversal")
     state = new_subject("b1", rules)
-    fields = [getattr(state, f.name) for f in dataclasses.fields(SubjectState)]
     sched = state.schedule
     rng = np.random.default_rng(3)
     errors, variances = rng.normal(size=8), rng.uniform(0.1, 2.0, 8)
@@ -80,7 +79,6 @@ def tricks() -> dict[str, dict[str, float]]:
     outcomes = [(t, a / 4.0) for t, a in event.outcome_events()]
     behaviour = {"tone_hi": (1.2, 0.4, 20), "tone_lo": (-0.8, 0.5, 18)}
     return {
-        "builder (SubjectState) vs __init__": _pair(lambda: _next_state(*fields), lambda: SubjectState(*fields), 20000),
         "lazy trial generator vs trial_rng": _pair(lambda: seeds._LazyTrialRng(7, 3),
                                                     lambda: seeds.trial_rng(7, 3), 20000),
         "_surprise vs array form": _pair(lambda: quantities._surprise(errors, variances, 0.2),

@@ -1,0 +1,78 @@
+"""CURVE for the daemon's sockets: whether it is needed (a bind beyond loopback), the
+keys and allow-list loaded before anything binds, and the self-test run once the
+ROUTER is bound (the daemon refuses to serve if CURVE lets a stranger in)."""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from ..links import zmq as zlink
+from ..links.curve import (
+    SecurityError,
+    ephemeral_client,
+    is_loopback,
+    load_allowed,
+    load_server_keys,
+)
+from .settings import Settings
+
+
+@dataclass(frozen=True, slots=True)
+class CurvePlan:
+    """What the daemon binds with: ``server_keys`` None means no CURVE (loopback only,
+    or ``insecure``); ``beyond_loopback`` says whether an endpoint is not loopback."""
+
+    beyond_loopback: bool
+    server_keys: zlink.CurveServerKeys | None = None
+    allowed: dict[bytes, str] = field(default_factory=dict)
+
+
+def plan_curve(settings: Settings, data: Path) -> CurvePlan:
+    """Load the keys if a bind goes beyond loopback (and not ``insecure``); refuse to
+    start without CURVE in libzmq or without usable keys (``SecurityError``)."""
+    beyond = not is_loopback(settings.zmq) or (settings.publish is not None and not is_loopback(settings.publish))
+    if not beyond or settings.insecure:
+        return CurvePlan(beyond)
+    if not zlink.has_curve():
+        raise SecurityError("this libzmq was built without CURVE; binding beyond loopback needs it "
+                            "(or --insecure)")
+    # checked before anything binds: refuse to start without usable keys
+    return CurvePlan(beyond, load_server_keys(data), load_allowed(data))
+
+
+def self_test(ctx: Any, router: zlink.RouterLink, auth: zlink.Authenticator, plan: CurvePlan,
+              timeout_s: float, log: Any) -> None:
+    """With CURVE on: an unlisted key and a NULL client must be refused, a listed key
+    (a temporary one, listed for the test only) must get through."""
+    t = timeout_s
+    endpoint = router.endpoint
+    if "0.0.0.0" in endpoint:
+        endpoint = endpoint.replace("0.0.0.0", "127.0.0.1")
+    good = ephemeral_client(plan.server_keys.public)
+    auth.set_allowed({**plan.allowed, good.public: "#selftest"})
+    probes = [("unlisted", ephemeral_client(plan.server_keys.public), False), ("null", None, False),
+              ("listed", good, True)]
+    try:
+        for name, keys, expect in probes:
+            client = zlink.DealerLink(ctx, endpoint, curve=keys)
+            try:
+                client.send(b"#selftest")
+                got = None
+                deadline = time.monotonic() + (t if expect else t / 2)
+                while time.monotonic() < deadline and got is None:
+                    if router.socket.poll(20):
+                        got = router.recv()
+                passed = (got is not None and got.user_id == "#selftest") if expect else got is None
+                if not passed:
+                    raise SecurityError(f"CURVE self-test failed: a {name} client was "
+                                        f"{'refused' if expect else 'let through'}; refusing to serve")
+            finally:
+                client.close()
+    finally:
+        auth.set_allowed(plan.allowed)
+    router.read_monitor()
+    router.auth_failures = 0
+    log.info("curve_self_test_passed", allowed_rigs=len(plan.allowed))

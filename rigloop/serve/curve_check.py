@@ -4,6 +4,7 @@ ROUTER is bound (the daemon refuses to serve if CURVE lets a stranger in)."""
 
 from __future__ import annotations
 
+import secrets
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -18,6 +19,8 @@ from ..links.curve import (
     load_server_keys,
 )
 from .settings import Settings
+
+SELFTEST_USER = "#selftest"  # the User-Id of the self-test's listed probe (not a valid rig name)
 
 
 @dataclass(frozen=True, slots=True)
@@ -46,26 +49,28 @@ def plan_curve(settings: Settings, data: Path) -> CurvePlan:
 def self_test(ctx: Any, router: zlink.RouterLink, auth: zlink.Authenticator, plan: CurvePlan,
               timeout_s: float, log: Any) -> None:
     """With CURVE on: an unlisted key and a NULL client must be refused, a listed key
-    (a temporary one, listed for the test only) must get through."""
-    t = timeout_s
+    (a temporary one, listed for the test only) must get through.
+
+    Each probe sends a payload with a fresh random nonce, and only that payload counts:
+    rigs already connected (retrying while the daemon restarted) may send meanwhile;
+    their frames are dropped unanswered (they resend) and never judged as a probe."""
     endpoint = router.endpoint
     if "0.0.0.0" in endpoint:
         endpoint = endpoint.replace("0.0.0.0", "127.0.0.1")
     good = ephemeral_client(plan.server_keys.public)
-    auth.set_allowed({**plan.allowed, good.public: "#selftest"})
+    auth.set_allowed({**plan.allowed, good.public: SELFTEST_USER})
     probes = [("unlisted", ephemeral_client(plan.server_keys.public), False), ("null", None, False),
               ("listed", good, True)]
+    others = 0
     try:
         for name, keys, expect in probes:
+            probe = b"#selftest:" + secrets.token_hex(16).encode()
             client = zlink.DealerLink(ctx, endpoint, curve=keys)
             try:
-                client.send(b"#selftest")
-                got = None
-                deadline = time.monotonic() + (t if expect else t / 2)
-                while time.monotonic() < deadline and got is None:
-                    if router.socket.poll(20):
-                        got = router.recv()
-                passed = (got is not None and got.user_id == "#selftest") if expect else got is None
+                client.send(probe)
+                got, skipped = _await_probe(router, probe, timeout_s if expect else timeout_s / 2)
+                others += skipped
+                passed = (got is not None and got.user_id == SELFTEST_USER) if expect else got is None
                 if not passed:
                     raise SecurityError(f"CURVE self-test failed: a {name} client was "
                                         f"{'refused' if expect else 'let through'}; refusing to serve")
@@ -75,4 +80,19 @@ def self_test(ctx: Any, router: zlink.RouterLink, auth: zlink.Authenticator, pla
         auth.set_allowed(plan.allowed)
     router.read_monitor()
     router.auth_failures = 0
-    log.info("curve_self_test_passed", allowed_rigs=len(plan.allowed))
+    log.info("curve_self_test_passed", allowed_rigs=len(plan.allowed), rig_frames_dropped=others)
+
+
+def _await_probe(router: zlink.RouterLink, probe: bytes, wait_s: float) -> tuple[zlink.Incoming | None, int]:
+    """The probe's own frame if it arrives within ``wait_s`` (else None), and how many
+    other frames (rigs' messages, left unanswered) came meanwhile."""
+    deadline = time.monotonic() + wait_s
+    others = 0
+    while time.monotonic() < deadline:
+        if not router.socket.poll(20):
+            continue
+        while (msg := router.recv()) is not None:
+            if msg.payload == probe:
+                return msg, others
+            others += 1
+    return None, others

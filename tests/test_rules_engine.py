@@ -23,7 +23,7 @@ POLICIES = {
     "balanced": 'next_cue = { policy = "balanced", repeats = 2, max_run = 2 }',
     "weighted": 'next_cue = { policy = "weighted", weights = { a = 1, b = 5 } }',
     "uncertain": 'next_cue = { policy = "uncertain" }',
-    "anti_bias": 'next_cue = { policy = "anti_bias", window = 5 }',
+    "counter_bias": 'next_cue = { policy = "counter_bias", window = 5 }',
 }
 REWARDS = {
     "fixed": "",
@@ -32,7 +32,7 @@ REWARDS = {
 
 
 def rules_for(policy, reward, p_a=0.2, p_b=0.0, welfare=""):
-    roles = 'a = "left"\nb = "right"' if policy == "anti_bias" else 'a = "go"\nb = "nogo"'
+    roles = 'a = "left"\nb = "right"' if policy == "counter_bias" else 'a = "go"\nb = "nogo"'
     ul_b = 3.0 if p_b > 0 else 0.0
     return load_rules(f"""
 name = "w"

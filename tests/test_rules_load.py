@@ -244,8 +244,8 @@ def test_policy_validation():
     one = BASE.replace("contingency.tone_lo = { p = 0.0, ul = 0.0 }\nend", "next_cue = { policy = \"balanced\" }\nend")
     assert "stages.s1.blocks.b1.next_cue.policy: 'balanced' needs at least two cues in the block; use 'sequence'" \
         in problems(one)
-    ab = BASE.replace("end = {", "next_cue = { policy = \"anti_bias\" }\nend = {", 1)
-    assert "stages.s1.blocks.b1.next_cue.policy: 'anti_bias' needs cues with role = \"left\" and role = " \
+    ab = BASE.replace("end = {", "next_cue = { policy = \"counter_bias\" }\nend = {", 1)
+    assert "stages.s1.blocks.b1.next_cue.policy: 'counter_bias' needs cues with role = \"left\" and role = " \
            "\"right\" in the block" in problems(ab)
 
 

@@ -160,9 +160,9 @@ def simulate_bias(policy, seed, trials=300, beta0=2.0, eta=0.05):
     return beta, float(np.mean(rights[-100:]))
 
 
-def test_anti_bias_shrinks_a_side_bias():
+def test_counter_bias_shrinks_a_side_bias():
     """Against a right-biased chooser, anti-bias leaves a smaller bias than balanced random."""
-    anti = [simulate_bias('next_cue = { policy = "anti_bias", window = 10, max_p = 0.8 }', s) for s in range(6)]
+    anti = [simulate_bias('next_cue = { policy = "counter_bias", window = 10, max_p = 0.8 }', s) for s in range(6)]
     rand = [simulate_bias('next_cue = { policy = "balanced", repeats = 2, max_run = 4 }', s) for s in range(6)]
     b_anti = np.mean([abs(b) for b, _ in anti])
     b_rand = np.mean([abs(b) for b, _ in rand])
@@ -170,10 +170,10 @@ def test_anti_bias_shrinks_a_side_bias():
     assert abs(np.mean([f for _, f in anti]) - 0.5) < abs(np.mean([f for _, f in rand]) - 0.5)
 
 
-def test_anti_bias_favours_the_under_chosen_side():
+def test_counter_bias_favours_the_under_chosen_side():
     """After mostly right choices, left-side cues are offered more often, capped at max_p."""
     r = load_rules(rules_text(
-        'next_cue = { policy = "anti_bias", window = 5, max_p = 0.8 }',
+        'next_cue = { policy = "counter_bias", window = 5, max_p = 0.8 }',
         contingency="contingency.left = { p = 1.0, ul = 2.0 }\ncontingency.right = { p = 1.0, ul = 2.0 }",
         cues='left = "left"\nright = "right"'))
     s = r.open_session(r.start_subject(), "s1", 1.7e9)

@@ -29,8 +29,9 @@ def rests_on_learner_only(expr: Expr) -> bool:
 
 
 def warnings(spec: Spec) -> list[str]:
-    """One line per stage or block criterion that rests on learner quantities alone."""
-    out = []
+    """The loader's notes (deprecated names), then one line per stage or block criterion
+    that rests on learner quantities alone."""
+    out = list(spec.notes)
     for st in spec.stages.values():
         for move, key in ((st.advance, "advance"), (st.step_back, "step_back")):
             if move is not None and rests_on_learner_only(move.when):

@@ -130,7 +130,8 @@ class NextCue:
     kinds: ``sequence`` (fixed order, cycled), ``balanced`` (shuffled mini-blocks, each
     cue ``repeats`` times, runs at most ``max_run``), ``weighted`` (independent draws),
     ``uncertain`` (the cue whose value sd is largest; ties at random), ``anti_bias``
-    (two-choice: favour the side the animal under-chooses).
+    (the file's ``counter_bias``, two-choice: favour the side the animal under-chooses;
+    the tag stays ``anti_bias`` because the engine and stored decisions' reasons use it).
     """
 
     kind: str
@@ -271,6 +272,7 @@ class Spec:
     behaviour: BehaviourSpec = field(default_factory=BehaviourSpec)
     outcomes: OutcomeValues = field(default_factory=OutcomeValues)
     response: ResponseSpec = field(default_factory=ResponseSpec)
+    notes: tuple[str, ...] = ()  # the loader's warnings (e.g. a deprecated name), shown by `rigloop check`
 
     def choice_cues(self) -> frozenset[str]:
         """The two-choice cues (roles left and right)."""

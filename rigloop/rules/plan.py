@@ -180,5 +180,5 @@ def _next_cue(n: NextCue) -> str:
         return "weighted random (" + ", ".join(f"{c} {fmt(w)}" for c, w in n.weights) + ")"
     if n.kind == "uncertain":
         return "the cue whose value is most uncertain (largest posterior sd)"
-    return (f"anti-bias: favour the side chosen less over about the last {n.window} choices "
+    return (f"counter-bias: favour the side chosen less over about the last {n.window} choices "
             f"(each side between {fmt(1 - n.max_p)} and {fmt(n.max_p)})")

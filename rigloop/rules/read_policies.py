@@ -16,8 +16,10 @@ NEXT_CUE_KEYS = {
     "balanced": ["policy", "repeats", "max_run"],
     "weighted": ["policy", "weights"],
     "uncertain": ["policy"],
-    "anti_bias": ["policy", "window", "max_p"],
+    "counter_bias": ["policy", "window", "max_p"],
 }
+# old policy names that still load, with a warning in `rigloop check`, for one release
+DEPRECATED_POLICIES = {"anti_bias": "counter_bias"}
 
 
 def read_next_cue(r: Reader, b: dict, path: str, bcues: tuple[str, ...], cues: dict[str, CueSpec]) -> NextCue:
@@ -26,6 +28,7 @@ def read_next_cue(r: Reader, b: dict, path: str, bcues: tuple[str, ...], cues: d
     t = r.table(b, "next_cue", npath)
     if t is None:
         t = {"policy": "balanced"} if len(bcues) > 1 else {"policy": "sequence", "sequence": list(bcues)}
+    t = _renamed(r, t, npath)
     kind = r.text(t, "policy", f"{npath}.policy", choices=tuple(NEXT_CUE_KEYS), required=True) or "balanced"
     r.keys(t, NEXT_CUE_KEYS[kind], npath)
     if kind == "sequence":
@@ -34,9 +37,21 @@ def read_next_cue(r: Reader, b: dict, path: str, bcues: tuple[str, ...], cues: d
         return _balanced(r, t, npath, bcues)
     if kind == "weighted":
         return _weighted(r, t, npath, bcues)
-    if kind == "anti_bias":
-        return _anti_bias(r, t, npath, bcues, cues)
+    if kind == "counter_bias":
+        return _counter_bias(r, t, npath, bcues, cues)
     return NextCue(kind)
+
+
+def _renamed(r: Reader, t: dict, npath: str) -> dict:
+    """The next-cue table with a deprecated policy name replaced by its new one, and a note
+    that says so (the file still loads, for one release)."""
+    old = t.get("policy")
+    if not isinstance(old, str) or old not in DEPRECATED_POLICIES:
+        return t
+    new = DEPRECATED_POLICIES[old]
+    r.note(f"{npath}.policy", f"'{old}' is the old name of the policy '{new}' and will stop loading in the next "
+                              f"release; write policy = \"{new}\" (it behaves the same)")
+    return {**t, "policy": new}
 
 
 def _sequence(r: Reader, t: dict, npath: str, bcues: tuple[str, ...]) -> NextCue:
@@ -79,10 +94,12 @@ def _weighted(r: Reader, t: dict, npath: str, bcues: tuple[str, ...]) -> NextCue
     return NextCue("weighted", weights=tuple(pairs))
 
 
-def _anti_bias(r: Reader, t: dict, npath: str, bcues: tuple[str, ...], cues: dict[str, CueSpec]) -> NextCue:
+def _counter_bias(r: Reader, t: dict, npath: str, bcues: tuple[str, ...], cues: dict[str, CueSpec]) -> NextCue:
+    """Two-choice: offer the side the animal under-chooses more often. The spec keeps the
+    kind tag ``anti_bias`` the engine and stored decisions' reasons already use."""
     sides = {cues[c].role for c in bcues if c in cues}
     if not {"left", "right"} <= sides:
-        r.add(f"{npath}.policy", "'anti_bias' needs cues with role = \"left\" and role = \"right\" in the block")
+        r.add(f"{npath}.policy", "'counter_bias' needs cues with role = \"left\" and role = \"right\" in the block")
     window = r.num(t, "window", f"{npath}.window", 10, lo=1, hi=500, integer=True)
     max_p = r.num(t, "max_p", f"{npath}.max_p", 0.8, lo=0.5, hi=1.0)
     return NextCue("anti_bias", window=window, max_p=max_p)

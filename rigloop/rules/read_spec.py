@@ -51,6 +51,7 @@ def parse_spec(data: dict) -> tuple[Spec | None, list[str]]:
         name=name, description=description, reward_unit_ul=unit, learner=learner, features=features,
         performance=performance, cues=cues, stages=stages, first_stage=first_stage,
         session_end=tuple(session_end), welfare=welfare, behaviour=behaviour, outcomes=outcomes, response=response,
+        notes=tuple(r.notes),
     )
     return spec, []
 

@@ -17,10 +17,15 @@ class Reader:
 
     def __init__(self) -> None:
         self.problems: list[str] = []
+        self.notes: list[str] = []  # warnings: the file loads, but `rigloop check` says these
 
     def add(self, path: str, msg: str) -> None:
         """Record one problem at a key path."""
         self.problems.append(f"{path}: {msg}")
+
+    def note(self, path: str, msg: str) -> None:
+        """Record one warning at a key path (the file still loads)."""
+        self.notes.append(f"{path}: {msg}")
 
     def keys(self, table: dict, allowed: list[str], path: str) -> None:
         """Record each key of ``table`` that is not allowed there."""

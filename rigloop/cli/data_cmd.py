@@ -9,7 +9,7 @@ from __future__ import annotations
 import argparse
 import sys
 
-from .args import add_session, add_store
+from .args import add_session, add_store, open_store
 
 
 def add_import(sub: argparse._SubParsersAction) -> None:
@@ -18,6 +18,10 @@ def add_import(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--map", required=True, help="the column mapping (TOML)")
     p.add_argument("--db", required=True, help="the SQLite store to import into (created if missing)")
     p.add_argument("--rules", required=True, help="the rule file the sessions ran under (path or example name)")
+    p.add_argument("--units", default="", metavar="NAME=UNIT,...",
+                   help="the table's units when not s and µL, converted on import: time=s|ms (times within a "
+                        "trial), wall_time=s|ms (epoch columns), reward=µL|uL|mL|nL (default: s and µL; a column "
+                        "that looks like another unit is refused)")
     p.set_defaults(func=_run_import)
 
 
@@ -30,7 +34,7 @@ def _run_import(args: argparse.Namespace) -> int:
     rules = load_any(args.rules)
     with Store(args.db) as store:
         bar = Progress(0, "importing")
-        report = import_csv(store, args.csv, args.map, rules, progress=bar)
+        report = import_csv(store, args.csv, args.map, rules, progress=bar, units=args.units)
         bar.close()
     print(report.summary(args.csv))
     return 0
@@ -38,19 +42,18 @@ def _run_import(args: argparse.Namespace) -> int:
 
 def add_export(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser("export", help="write trials, decisions or per-trial model quantities as CSV or JSONL")
-    add_store(p, subject_required=False)
+    add_store(p, subject_required=False, subject_help="only this subject (default: every subject)")
     add_session(p)
-    p.add_argument("--what", choices=("trials", "decisions", "quantities"), default="trials")
-    p.add_argument("--format", choices=("csv", "jsonl"), default="csv")
+    p.add_argument("--what", choices=("trials", "decisions", "quantities"), default="trials", help="what to write")
+    p.add_argument("--format", choices=("csv", "jsonl"), default="csv", help="the file format")
     p.add_argument("--out", default="-", help="output file (default: standard output)")
     p.set_defaults(func=_run_export)
 
 
 def _run_export(args: argparse.Namespace) -> int:
     from ..offline.tables import export
-    from ..store import Store
 
-    with Store(args.db, create=False) as store:
+    with open_store(args.db) as store:
         if args.out == "-":
             n = export(store, args.what, args.format, sys.stdout, subject=args.subject, session=args.session)
         else:
@@ -70,9 +73,10 @@ def add_report(sub: argparse._SubParsersAction) -> None:
 
 def _run_report(args: argparse.Namespace) -> int:
     from ..outputs.report import plot_subject
-    from ..store import Store
+    from ..replay import stored_sessions
 
-    with Store(args.db, create=False) as store:
+    with open_store(args.db) as store:
+        stored_sessions(store, args.subject)
         q = list(store.rows("quantities", subject=args.subject))
         d = list(store.rows("decisions", subject=args.subject))
         t = list(store.rows("trials", subject=args.subject))

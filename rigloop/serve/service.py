@@ -12,7 +12,8 @@ trial for a session that is not open gets an error naming what was expected.
 
 Opening a session that is already open (a rig that restarted and re-sent its open)
 is answered with the session's *current* next decision (its first decision if no
-trial was stored yet), marked ``duplicate=True``, so the rig can resume.
+trial was stored yet), marked ``duplicate=True``, so the rig can resume; an open
+that names another rig, rule file, seed or profile for it is a ``conflict``.
 """
 
 from __future__ import annotations
@@ -25,11 +26,12 @@ from ..core.step import begin_session, step
 from ..core.subject import SubjectState, new_subject
 from ..core.trial import Decision, TrialEvent
 from ..errors import BadArgument, BadEvent, ConflictingTrial, RuleError, StoreError, WireError
+from ..links.curve import OPERATOR
 from ..store import SessionInfo, Store
 from .metrics import Metrics
 from .observers import Publisher
 from .pipeline import CommitPipeline, Out, Pending
-from .ports import StatusReply, StatusRequest
+from .ports import StatusReply, StatusRequest, ZmqSource
 from .rulebook import RuleBook
 from .subjects import Subjects
 from .summary import summary
@@ -57,10 +59,16 @@ class Service:
         self.clock = clock
         self.status = status
         self.log = log
+        # CURVE rigs whose key left the allow-list while connected: their messages get no
+        # answer, so the rig reconnects and ZAP refuses it (set by the daemon on reload)
+        self.revoked: frozenset[str] = frozenset()
 
     def handle(self, src: Any, req: Any, t: int) -> Any:
         """The reply to ``req``, or None for a trial stepped into the batch (its reply
         comes from its commit). Every error becomes an error reply naming its field."""
+        if self.revoked and src.rig in self.revoked and type(src) is ZmqSource:
+            self.counts["revoked_dropped"] = self.counts.get("revoked_dropped", 0) + 1
+            return None  # as ZAP would: no answer to a rig whose key was removed
         try:
             if isinstance(req, WireError):
                 self.metrics.count_error(req.code)
@@ -74,6 +82,10 @@ class Service:
             if isinstance(req, wire.Ping):
                 return wire.Pong(req.id)
             if isinstance(req, StatusRequest):
+                if src.rig is not None and src.rig != OPERATOR:
+                    return self._error(req.id, "bad_field", f"status is for the operator, not for rig {src.rig!r}: "
+                                                            "ask from the daemon's machine with its own key "
+                                                            "(server.key_secret)", "type")
                 return StatusReply(req.id, self.status())
             if isinstance(req, wire.OpenSession):
                 self.pipeline.flush()
@@ -82,7 +94,7 @@ class Service:
                 self.pipeline.flush()
                 return self._close_session(src, req)
             if isinstance(req, wire.QueryState):
-                return self._query_state(req)
+                return self._query_state(src, req)
             return self._error(req_id(req), "unknown_type", f"request type {type(req).__name__} is not served here")
         except WireError as err:
             return self._error(req_id(req), err.code if err.code in wire.ERROR_CODES else "bad_message",
@@ -187,14 +199,23 @@ class Service:
             if stored.closed_at is not None:
                 return self._error(req.id, "unknown_session", f"session {session!r} of subject {subject!r} was "
                                                              "closed; use a new session id", "session")
-            if stored.rig != req.rig:
-                return self._error(req.id, "bad_field", f"session {session!r} runs on rig {stored.rig!r}", "rig")
+            differs = _open_differs(stored, req)
+            if differs is not None:
+                name, was, came = differs
+                return self._error(req.id, "conflict", f"session {session!r} of subject {subject!r} is already "
+                                                       f"open with {name} {was!r}, and this open says {came!r}; "
+                                                       "resend the original open, or use a new session id", name)
             return wire.DecisionReply(req.id, self._current_decision(stored), True)
         served = self.rulebook.named
         rules = served.get(req.rules)
         if rules is None:
             return self._error(req.id, "bad_field", f"no rule file named {req.rules!r} is served here "
                                                         f"(served: {', '.join(sorted(served))})", "rules")
+        profile_name = getattr(req, "profile", None) or self.profiles.get(req.rig)
+        try:
+            valve = _valve(profile_name)
+        except RuleError as err:
+            return self._error(req.id, "bad_field", _profile_problem(profile_name, err), "profile")
         state = self._state(subject)
         previous = self.subjects.open.get(subject)
         if previous is not None:
@@ -202,8 +223,6 @@ class Service:
             state = self._state(subject)
         if state is None:
             state = new_subject(subject, rules)
-        profile_name = getattr(req, "profile", None) or self.profiles.get(req.rig)
-        valve = _valve(profile_name)
         opened_at = float(getattr(req, "wall_time", None) or self.clock())
         state, first = begin_session(state, rules, session=session, rig=req.rig, wall_time=opened_at,
                                      seed=getattr(req, "seed", None), valve=valve)
@@ -255,7 +274,13 @@ class Service:
                 self.publisher.session_closed(req.subject, req.session)
         return wire.Ack(req.id, "close")
 
-    def _query_state(self, req: Any) -> Any:
+    def _query_state(self, src: Any, req: Any) -> Any:
+        rig = src.rig if type(src) is ZmqSource else None
+        if rig is not None and rig != OPERATOR and all(i.rig != rig for i in self.store.sessions(req.subject)):
+            # the same answer whether or not the subject exists: a rig learns nothing of others
+            return self._error(req.id, "bad_field", f"rig {rig!r} has run no session of subject {req.subject!r}; "
+                                                    "a rig's key may query only subjects whose sessions ran on "
+                                                    "that rig", "subject")
         state = self._state(req.subject)
         if state is None:
             return self._error(req.id, "unknown_session", f"no subject {req.subject!r} in this store", "subject")
@@ -289,6 +314,28 @@ def _valve(profile_name: str | None) -> tuple[float, float] | None:
         return None
     # ul = intercept + slope * ms  =>  ms = ul / slope - intercept / slope
     return (1.0 / profile.slope, -profile.intercept / profile.slope)
+
+
+def _open_differs(stored: SessionInfo, req: Any) -> tuple[str, Any, Any] | None:
+    """(field, stored value, requested value) of the first way a repeated open differs
+    from the session already open (rig, rule file, seed, profile), else None. A seed or
+    profile left out of the repeat asks for nothing, so it differs from nothing."""
+    if req.rig != stored.rig:
+        return "rig", stored.rig, req.rig
+    if req.rules != stored.rules_name:
+        return "rules", stored.rules_name, req.rules
+    if req.seed is not None and req.seed != stored.seed:
+        return "seed", stored.seed, req.seed
+    if req.profile is not None and req.profile != stored.profile:
+        return "profile", stored.profile, req.profile
+    return None
+
+
+def _profile_problem(name: str, err: RuleError) -> str:
+    """One sentence on a rig profile that cannot be used: the host's file is at fault."""
+    problems = "; ".join(err.problems)
+    return (f"rig profile {name!r} cannot be used: {problems} (fix the profile file on the rigloop host, "
+            "or name another profile)")
 
 
 def _same_trial(incoming: TrialEvent, stored: TrialEvent) -> bool:

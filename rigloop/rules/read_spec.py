@@ -44,9 +44,10 @@ def parse_spec(data: dict) -> tuple[Spec | None, list[str]]:
     session_end = read_session_end(r, data, cues)
     check_graph(r, stages, first_stage)
     if stages and not any(b.rewarded_cues() for s in stages.values() for b in s.blocks.values()):
-        r.add("stages", "no block rewards any cue; a water-restricted animal must be able to earn water")
+        lost = next((path for thing, path in r.dropped.items() if thing.startswith("cue:")), None)
+        r.add("stages", "no block rewards any cue; a water-restricted animal must be able to earn water", follows=lost)
     if r.problems:
-        return None, r.problems
+        return None, r.report()
     spec = Spec(
         name=name, description=description, reward_unit_ul=unit, learner=learner, features=features,
         performance=performance, cues=cues, stages=stages, first_stage=first_stage,

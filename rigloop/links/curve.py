@@ -28,6 +28,10 @@ from . import zmq as zlink
 
 _NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$")
 
+# the User-Id of a connection made with the daemon's own key pair: the operator on the
+# daemon's machine (``rigloop status``); starts with '#', so no rig can be named so
+OPERATOR = "#operator"
+
 
 class SecurityError(RigloopError, PermissionError):
     """Keys are missing, unsafe or unusable; the daemon will not start like this."""
@@ -132,6 +136,18 @@ def load_allowed(data: str | os.PathLike) -> dict[bytes, str]:
             raise SecurityError(f"{path}: the same key is listed for rigs {allowed[public]!r} and {rig!r}")
         allowed[public] = rig
     return allowed
+
+
+def allow_list_stamp(data: str | os.PathLike) -> tuple | None:
+    """What moves when the allow-list changes: the directory's mtime and each key file's
+    name, mtime and size (None when the directory cannot be read). Cheap: the daemon
+    compares it at most once a second to pick up added or removed rigs."""
+    adir = allow_dir(data)
+    try:
+        files = tuple(sorted((p.name, st.st_mtime_ns, st.st_size) for p in adir.glob("*.key") for st in (p.stat(),)))
+        return adir.stat().st_mtime_ns, files
+    except OSError:
+        return None
 
 
 def load_client_keys(secret_path: str | os.PathLike, server_public: str | os.PathLike) -> zlink.CurveClientKeys:

@@ -363,19 +363,29 @@ class Authenticator:
     """The ZAP handler, on the daemon's own Context, over an in-memory allow-list.
 
     ``allowed`` maps Z85 public keys (bytes) to rig names; the rig name becomes the
-    connection's User-Id. Replace the list with ``set_allowed`` (takes effect for new
-    connections).
+    connection's User-Id. Names in ``loopback_only`` get in only from a loopback peer
+    address. Replace the list with ``set_allowed`` (takes effect for new connections).
     """
 
-    def __init__(self, ctx: zmq.Context, allowed: Mapping[bytes, str]):
+    def __init__(self, ctx: zmq.Context, allowed: Mapping[bytes, str], loopback_only: Iterable[str] = ()):
         self._allowed = dict(allowed)
+        self._loopback_only = frozenset(loopback_only)
+        self._address = ""  # the peer address of the ZAP request being handled (one thread)
         self._auth = ThreadAuthenticator(ctx, log=_quiet_logger())
         outer = self
 
         class _Provider:
             def callback(self, domain: str, key: bytes) -> bool:
-                return key in outer._allowed
+                name = outer._allowed.get(key)
+                return name is not None and (name not in outer._loopback_only or _loopback_peer(outer._address))
 
+        handle = self._auth.handle_zap_message
+
+        async def _handle_zap(msg: list[bytes]) -> None:
+            outer._address = msg[3].decode("utf-8", "replace") if len(msg) > 3 else ""
+            await handle(msg)
+
+        self._auth.handle_zap_message = _handle_zap  # instance attribute: sees the peer address first
         self._auth.start()
         # the domain must be ours: pyzmq maps only an empty domain to "*"
         self._auth.configure_curve_callback(domain=ZAP_DOMAIN, credentials_provider=_Provider())
@@ -394,6 +404,19 @@ class Authenticator:
         if self.running:
             self._auth.stop()
             self.running = False
+
+
+def _loopback_peer(address: str) -> bool:
+    """Whether a ZAP request's peer address is this machine (127.0.0.0/8, ::1, or ipc)."""
+    import ipaddress
+
+    if not address:
+        return True  # ipc:// and inproc:// peers have no network address
+    try:
+        ip = ipaddress.ip_address(address.strip("[]"))
+    except ValueError:
+        return False
+    return (getattr(ip, "ipv4_mapped", None) or ip).is_loopback
 
 
 def _quiet_logger():

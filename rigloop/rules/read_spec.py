@@ -44,10 +44,9 @@ def parse_spec(data: dict) -> tuple[Spec | None, list[str]]:
     session_end = read_session_end(r, data, cues)
     check_graph(r, stages, first_stage)
     if stages and not any(b.rewarded_cues() for s in stages.values() for b in s.blocks.values()):
-        lost = next((path for thing, path in r.dropped.items() if thing.startswith("cue:")), None)
-        r.add("stages", "no block rewards any cue; a water-restricted animal must be able to earn water", follows=lost)
+        r.add("stages", "no block rewards any cue; a water-restricted animal must be able to earn water")
     if r.problems:
-        return None, r.report()
+        return None, r.problems
     spec = Spec(
         name=name, description=description, reward_unit_ul=unit, learner=learner, features=features,
         performance=performance, cues=cues, stages=stages, first_stage=first_stage,

@@ -12,6 +12,7 @@ from typing import Any
 
 from ..links import zmq as zlink
 from ..links.curve import (
+    OPERATOR,
     SecurityError,
     ephemeral_client,
     is_loopback,
@@ -43,7 +44,14 @@ def plan_curve(settings: Settings, data: Path) -> CurvePlan:
         raise SecurityError("this libzmq was built without CURVE; binding beyond loopback needs it "
                             "(or --insecure)")
     # checked before anything binds: refuse to start without usable keys
-    return CurvePlan(beyond, load_server_keys(data), load_allowed(data))
+    server = load_server_keys(data)
+    return CurvePlan(beyond, server, allowed_keys(data, server))
+
+
+def allowed_keys(data: Path, server: zlink.CurveServerKeys) -> dict[bytes, str]:
+    """Who may connect: the listed rigs, plus the daemon's own key as the operator (whoever
+    can read the server secret is trusted already; ZAP lets it in from loopback only)."""
+    return {**load_allowed(data), server.public: OPERATOR}
 
 
 def self_test(ctx: Any, router: zlink.RouterLink, auth: zlink.Authenticator, plan: CurvePlan,
@@ -80,7 +88,8 @@ def self_test(ctx: Any, router: zlink.RouterLink, auth: zlink.Authenticator, pla
         auth.set_allowed(plan.allowed)
     router.read_monitor()
     router.auth_failures = 0
-    log.info("curve_self_test_passed", allowed_rigs=len(plan.allowed), rig_frames_dropped=others)
+    log.info("curve_self_test_passed", allowed_rigs=sum(r != OPERATOR for r in plan.allowed.values()),
+             rig_frames_dropped=others)
 
 
 def _await_probe(router: zlink.RouterLink, probe: bytes, wait_s: float) -> tuple[zlink.Incoming | None, int]:

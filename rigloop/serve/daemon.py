@@ -25,6 +25,7 @@ import os
 import signal
 import threading
 import time
+from dataclasses import replace
 from pathlib import Path
 from typing import Any
 
@@ -32,9 +33,10 @@ import structlog
 
 from ..errors import RigloopError
 from ..links import zmq as zlink
+from ..links.curve import OPERATOR, SecurityError, allow_list_stamp
 from ..store import Store
 from ..version import __version__
-from .curve_check import plan_curve, self_test
+from .curve_check import allowed_keys, plan_curve, self_test
 from .delivery import Delivery
 from .metrics import Metrics
 from .observers import Publisher, wire_pack
@@ -85,6 +87,9 @@ class Daemon:
         self.log = logger if logger is not None else structlog.get_logger("rigloop.daemon")
         self.curve = plan_curve(settings, self.data)  # refuses to start without usable keys, before any bind
         self._stop = threading.Event()
+        self._reload = threading.Event()  # SIGHUP: re-read the allow-list now
+        self._allow_stamp = allow_list_stamp(self.data) if self.curve.server_keys is not None else None
+        self._allow_due = 0.0  # monotonic time of the next allow-list check
         self.ready = threading.Event()
         self.exit_code = 0
         self.endpoints: dict[str, Any] = {}
@@ -153,10 +158,16 @@ class Daemon:
             if self._thread.is_alive():
                 raise TimeoutError(f"the daemon thread did not stop within {timeout} s")
 
+    def reload_keys(self) -> None:
+        """Ask the loop to re-read the allow-list now (SIGHUP; safe from any thread)."""
+        self._reload.set()
+
     def install_signal_handlers(self) -> None:
-        """SIGTERM/SIGINT -> ``stop()`` (main thread only)."""
+        """SIGTERM/SIGINT -> ``stop()``, SIGHUP -> ``reload_keys()`` (main thread only)."""
         for sig in (signal.SIGTERM, signal.SIGINT):
             signal.signal(sig, lambda *_: self.stop())
+        if hasattr(signal, "SIGHUP"):
+            signal.signal(signal.SIGHUP, lambda *_: self.reload_keys())
 
     # -- start / stop -------------------------------------------------------------
 
@@ -170,7 +181,7 @@ class Daemon:
         self.subjects = Subjects(self.store)
         curve = self.curve.server_keys
         if curve is not None:
-            self.auth = zlink.Authenticator(self.ctx, self.curve.allowed)
+            self.auth = zlink.Authenticator(self.ctx, self.curve.allowed, loopback_only=(OPERATOR,))
         elif self.curve.beyond_loopback:
             self.log.warning("insecure_bind", endpoint=s.zmq, publish=s.publish,
                              message="INSECURE: binding beyond loopback without CURVE; anyone who can reach "
@@ -262,8 +273,11 @@ class Daemon:
         pipeline, handle, timed = self.pipeline, self.service.handle, self.metrics.timed
         monitor = self._monitor
         done_fd = pipeline.fileno()
+        keyed = self.auth is not None
         while not self._stop.is_set():
             ready = poller.poll(self._timeout_ms())
+            if keyed and (self._reload.is_set() or time.monotonic() >= self._allow_due):
+                self._check_allow_list()
             if done_fd in ready:  # the batch in flight is durable: answer it first
                 timed(pipeline.settle)
                 ready.discard(done_fd)
@@ -280,6 +294,33 @@ class Daemon:
             router.flush()
             if serial.ports:
                 serial.tend()
+
+    def _check_allow_list(self) -> None:
+        """Re-read the allow-list on SIGHUP, or when its files changed (looked at once a
+        second): new keys get in, and removed ones are cut off (ZAP refuses their new
+        connections; their open ones get no answer). A list that cannot be read is
+        refused loudly and the one in force stays."""
+        forced = self._reload.is_set()
+        self._reload.clear()
+        self._allow_due = time.monotonic() + 1.0
+        stamp = allow_list_stamp(self.data)
+        if not forced and stamp == self._allow_stamp:
+            return
+        self._allow_stamp = stamp
+        try:
+            allowed = allowed_keys(self.data, self.curve.server_keys)
+        except SecurityError as err:
+            self.log.error("allow_list_refused", error=str(err),
+                           message="the allow-list could not be read; the previous one stays in force until it is "
+                                   "fixed")
+            return
+        old = set(self.curve.allowed.values())
+        now = set(allowed.values())
+        self.auth.set_allowed(allowed)
+        self.curve = replace(self.curve, allowed=allowed)
+        self.service.revoked = frozenset((self.service.revoked | (old - now)) - now)
+        self.log.info("allow_list_reloaded", reason="signal" if forced else "file_changed",
+                      rigs=len(now - {OPERATOR}), added=sorted(now - old), removed=sorted(old - now))
 
     def _timeout_ms(self) -> float:
         timeout = 5.0 if self.router.next_deadline() is not None else 100.0

@@ -12,7 +12,8 @@ trial for a session that is not open gets an error naming what was expected.
 
 Opening a session that is already open (a rig that restarted and re-sent its open)
 is answered with the session's *current* next decision (its first decision if no
-trial was stored yet), marked ``duplicate=True``, so the rig can resume.
+trial was stored yet), marked ``duplicate=True``, so the rig can resume; an open
+that names another rig, rule file, seed or profile for it is a ``conflict``.
 """
 
 from __future__ import annotations
@@ -198,14 +199,23 @@ class Service:
             if stored.closed_at is not None:
                 return self._error(req.id, "unknown_session", f"session {session!r} of subject {subject!r} was "
                                                              "closed; use a new session id", "session")
-            if stored.rig != req.rig:
-                return self._error(req.id, "bad_field", f"session {session!r} runs on rig {stored.rig!r}", "rig")
+            differs = _open_differs(stored, req)
+            if differs is not None:
+                name, was, came = differs
+                return self._error(req.id, "conflict", f"session {session!r} of subject {subject!r} is already "
+                                                       f"open with {name} {was!r}, and this open says {came!r}; "
+                                                       "resend the original open, or use a new session id", name)
             return wire.DecisionReply(req.id, self._current_decision(stored), True)
         served = self.rulebook.named
         rules = served.get(req.rules)
         if rules is None:
             return self._error(req.id, "bad_field", f"no rule file named {req.rules!r} is served here "
                                                         f"(served: {', '.join(sorted(served))})", "rules")
+        profile_name = getattr(req, "profile", None) or self.profiles.get(req.rig)
+        try:
+            valve = _valve(profile_name)
+        except RuleError as err:
+            return self._error(req.id, "bad_field", _profile_problem(profile_name, err), "profile")
         state = self._state(subject)
         previous = self.subjects.open.get(subject)
         if previous is not None:
@@ -213,8 +223,6 @@ class Service:
             state = self._state(subject)
         if state is None:
             state = new_subject(subject, rules)
-        profile_name = getattr(req, "profile", None) or self.profiles.get(req.rig)
-        valve = _valve(profile_name)
         opened_at = float(getattr(req, "wall_time", None) or self.clock())
         state, first = begin_session(state, rules, session=session, rig=req.rig, wall_time=opened_at,
                                      seed=getattr(req, "seed", None), valve=valve)
@@ -306,6 +314,28 @@ def _valve(profile_name: str | None) -> tuple[float, float] | None:
         return None
     # ul = intercept + slope * ms  =>  ms = ul / slope - intercept / slope
     return (1.0 / profile.slope, -profile.intercept / profile.slope)
+
+
+def _open_differs(stored: SessionInfo, req: Any) -> tuple[str, Any, Any] | None:
+    """(field, stored value, requested value) of the first way a repeated open differs
+    from the session already open (rig, rule file, seed, profile), else None. A seed or
+    profile left out of the repeat asks for nothing, so it differs from nothing."""
+    if req.rig != stored.rig:
+        return "rig", stored.rig, req.rig
+    if req.rules != stored.rules_name:
+        return "rules", stored.rules_name, req.rules
+    if req.seed is not None and req.seed != stored.seed:
+        return "seed", stored.seed, req.seed
+    if req.profile is not None and req.profile != stored.profile:
+        return "profile", stored.profile, req.profile
+    return None
+
+
+def _profile_problem(name: str, err: RuleError) -> str:
+    """One sentence on a rig profile that cannot be used: the host's file is at fault."""
+    problems = "; ".join(err.problems)
+    return (f"rig profile {name!r} cannot be used: {problems} (fix the profile file on the rigloop host, "
+            "or name another profile)")
 
 
 def _same_trial(incoming: TrialEvent, stored: TrialEvent) -> bool:

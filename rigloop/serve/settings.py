@@ -43,7 +43,7 @@ class Settings:
     require_checksum: bool = False
     sndhwm: int = 10_000
     rcvhwm: int = 10_000
-    max_msg_size: int = 64 * 1024
+    max_msg_size: int = 1024 * 1024  # transport cap: frames up to it reach the decoder (over 64 KiB: too_large)
     heartbeat_ivl_ms: int = 1000
     heartbeat_timeout_ms: int = 3000
     handshake_ivl_ms: int = 5000

@@ -9,14 +9,17 @@ entries from the end and says ``omitted=N``).
 
 from __future__ import annotations
 
+import re
 from collections.abc import Callable
 from functools import partial
 from typing import Any
 
 from ..core.trial import Decision, TrialEvent
 from ..errors import BadArgument, BadEvent
+from .checksum import crc16_hex
 from .fields import DECISION, DUPLICATE, FIELDS, Field
 from .messages import (
+    ID_MAX,
     MAX_LINE,
     REPLY_TYPES,
     REQUEST_TYPES,
@@ -34,6 +37,7 @@ from .messages import (
 from .text import (
     FLOAT_RE,
     KEY_OK,
+    NONFINITE_RE,
     PART_OK,
     TEXT_OK,
     Value,
@@ -175,9 +179,11 @@ class _Line:
     def __init__(self, verb: str, fields: list[tuple[str, Value]]):
         self.verb = verb
         self.values: dict[str, Value] = {}
+        self.twice: str | None = None  # the first key written twice (refused once the id is read)
         for key, val in fields:
             if key in self.values:
-                raise MessageError("bad_field", f"{key!r} appears twice in the line", field=key)
+                self.twice = self.twice or key
+                continue
             self.values[key] = val
         self.rid: RequestId | None = None
 
@@ -230,8 +236,15 @@ def _parse(line: Any, verbs: dict[str, str], readers: dict[str, Callable], requi
             raise MessageError("bad_message", "line holds characters outside printable ASCII") from None
     if not isinstance(line, (bytes, bytearray, memoryview)):
         raise MessageError("bad_message", f"a line must be bytes (got {type(line).__name__})")
-    verb, fields = split_line(line, require_checksum=require_checksum, max_line=max_line)
+    try:
+        verb, fields = split_line(line, require_checksum=require_checksum, max_line=max_line)
+    except MessageError as err:
+        if err.code == "bad_message":  # not a checksum failure: the id may still be readable
+            err.request_id = salvage_line_id(bytes(line), max_line)
+        raise
     parsed = _Line(verb, fields)
+    if parsed.twice == "id":
+        raise MessageError("bad_field", "'id' appears twice in the line", field="id")
     if "id" in parsed.values:
         try:
             parsed.rid = check_id(read_scalar(parsed.values["id"], "id"))
@@ -242,6 +255,8 @@ def _parse(line: Any, verbs: dict[str, str], readers: dict[str, Callable], requi
             raise MessageError("unknown_type", f"unknown verb {show(verb)} (expected one of: {', '.join(verbs)})")
         if parsed.rid is None and verb != "ERR":
             raise MessageError("bad_field", "'id' is missing", field="id")
+        if parsed.twice is not None:
+            raise MessageError("bad_field", f"{parsed.twice!r} appears twice in the line", field=parsed.twice)
         return readers[verb](parsed)
     except MessageError as err:
         err.request_id = parsed.rid
@@ -255,6 +270,29 @@ def _parse(line: Any, verbs: dict[str, str], readers: dict[str, Callable], requi
     except BadArgument as err:
         key = _serial_key(err.argument, _DECISION_KEYS if verb == "DECISION" else _EVENT_KEYS)
         raise MessageError("bad_field", f"{key!r}: {err}", field=key, request_id=parsed.rid) from None
+
+
+_BARE_ID = re.compile(rb"(?<= )id=([A-Za-z0-9_.:-]{1,%d})(?= |\*|\Z)" % ID_MAX)
+
+
+def salvage_line_id(line: bytes, max_line: int = MAX_LINE) -> RequestId | None:
+    """The bare ``id=`` of a line that failed its syntax (a stray byte, a bad field),
+    when it is written once and its checksum, if any, holds; else None. Lines whose
+    checksum failed are not read: there the id may be the damaged part."""
+    line = line.rstrip(b"\r\n")
+    if len(line) > max_line:
+        return None
+    star = line.rfind(b"*")
+    if star >= 0:
+        said = line[star + 1 :].strip(b" ")
+        if len(said) != 4 or said.upper() != crc16_hex(line[:star]).encode("ascii"):
+            return None
+        line = line[:star]
+    found = _BARE_ID.findall(line)
+    if len(found) != 1:
+        return None
+    raw = found[0].decode("ascii")
+    return int(raw) if raw.isdigit() and int(raw) < 2**63 else raw
 
 
 def _serial_key(name: str, table: dict[str, str]) -> str:
@@ -338,7 +376,8 @@ def _read_trial(f: _Line) -> TrialReport:
         kind, sep, value = raw.partition(":")
         response["kind"] = unesc(kind, "resp")
         if sep:
-            response["value"] = read_float(value, "resp") if FLOAT_RE.fullmatch(value) else unesc(value, "resp")
+            numeric = FLOAT_RE.fullmatch(value) or NONFINITE_RE.fullmatch(value)
+            response["value"] = read_float(value, "resp") if numeric else unesc(value, "resp")
     result = f.text("res", optional=True)
     if result is not None:
         response["result"] = result
@@ -411,7 +450,7 @@ def _part_value(v: float | str) -> str:
     if isinstance(v, float):
         return fmt_float(v)
     text = esc(v, PART_OK)
-    if FLOAT_RE.fullmatch(text):  # a string that reads as a number: escape its first character
+    if FLOAT_RE.fullmatch(text) or NONFINITE_RE.fullmatch(text):  # reads as a number: escape its first character
         text = "".join(f"%{b:02X}" for b in v[0].encode()) + text[1:]
     return text
 

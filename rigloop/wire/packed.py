@@ -95,10 +95,43 @@ def encode_reply(reply: Reply) -> bytes:
 def _guard(frame: Any, types: Mapping[str, type], readers: Mapping[str, Callable]) -> Any:
     try:
         return _decode(frame, types, readers)
-    except MessageError:
+    except MessageError as err:
+        if err.request_id is None and err.field != "id":
+            err.request_id = salvage_id(frame)
         raise
     except Exception as err:  # a bug of ours, never the sender's fault: say so
-        raise MessageError("internal", f"rigloop could not decode this message ({type(err).__name__})") from None
+        raise MessageError("internal", f"rigloop could not decode this message ({type(err).__name__})",
+                           request_id=salvage_id(frame)) from None
+
+
+def salvage_id(frame: Any) -> RequestId | None:
+    """The top map's ``id`` of a frame that failed to decode, when it can still be read
+    (once, and valid), else None: so an error reply about another field echoes it.
+
+    Read leniently (bytes for strings, any keys, no limits but the frame's own length),
+    only on the error path; a frame that is not a msgpack map at all gives None."""
+    try:
+        unpacker = msgpack.Unpacker(raw=True, strict_map_key=False, object_pairs_hook=list,
+                                    max_buffer_size=max(len(frame), 1))
+        unpacker.feed(frame)
+        body = unpacker.unpack()
+    except Exception:  # msgpack's errors share no base class; nothing readable
+        return None
+    if not isinstance(body, list):
+        return None
+    ids = [v for pair in body if isinstance(pair, tuple) and pair[0] in (b"id", "id") for v in pair[1:]]
+    if len(ids) != 1:
+        return None
+    value = ids[0]
+    if isinstance(value, bytes):
+        try:
+            value = value.decode("ascii")
+        except UnicodeDecodeError:
+            return None
+    try:
+        return check_id(value)
+    except BadArgument:
+        return None
 
 
 def _decode(frame: Any, types: Mapping[str, type], readers: Mapping[str, Callable]) -> Any:

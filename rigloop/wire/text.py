@@ -29,6 +29,7 @@ FLOAT_RE = re.compile(r"[-+]?(?:[0-9]{1,40}\.[0-9]{0,40}|\.[0-9]{1,40}|[0-9]{1,4
 _VERB_RE = re.compile(r" *([A-Za-z]{1,16})")
 _FIELD_RE = re.compile(r' +([A-Za-z0-9_.%-]{1,200})=("[^"]*"|[^ "]*)')
 _ESC_RE = re.compile(r"%([0-9A-Fa-f]{2})")
+NONFINITE_RE = re.compile(r"[-+]?(?:nan|inf|infinity)", re.IGNORECASE)  # how C and Python print them
 _CHECK_RE = re.compile(rb"\*([0-9A-Fa-f]{4}) *\Z")
 
 
@@ -152,7 +153,8 @@ def fmt_str(s: str) -> str:
 
 
 def looks_typed(raw: str) -> bool:
-    return raw in ("true", "false", "nil") or bool(INT_RE.fullmatch(raw) or FLOAT_RE.fullmatch(raw))
+    return raw in ("true", "false", "nil") or bool(INT_RE.fullmatch(raw) or FLOAT_RE.fullmatch(raw)
+                                                   or NONFINITE_RE.fullmatch(raw))
 
 
 def fmt_scalar(v: Scalar) -> str:
@@ -188,12 +190,17 @@ def read_scalar(val: Value, key: str) -> Scalar:
         if not INT_MIN <= n <= INT_MAX:
             raise MessageError("bad_field", f"{key!r} must be a whole number in [-2**63, 2**64) (got {raw})", field=key)
         return n
-    if FLOAT_RE.fullmatch(raw):
+    if FLOAT_RE.fullmatch(raw) or NONFINITE_RE.fullmatch(raw):
         return read_float(raw, key)
     return unesc(raw, key)
 
 
 def read_float(raw: str, key: str) -> float:
+    """A decimal number; NaN and the infinities are refused naming ``key`` (a string
+    that reads like one is written escaped, e.g. ``%6Ean``)."""
+    if NONFINITE_RE.fullmatch(raw):
+        raise MessageError("bad_field", f"{key!r} must be a finite number; NaN and infinities are refused "
+                                        f"(got {_short(raw)})", field=key)
     if not FLOAT_RE.fullmatch(raw):
         raise MessageError("bad_field", f"{key!r} must be a decimal number (got {_short(raw)})", field=key)
     x = float(raw)

@@ -7,6 +7,7 @@ file's problems come back together and always in the same order.
 
 from __future__ import annotations
 
+from .feasible import check_criteria
 from .model import SessionEnd, Spec, Stage
 from .read_cues import cue_context, read_cues
 from .read_model import (
@@ -43,10 +44,12 @@ def parse_spec(data: dict) -> tuple[Spec | None, list[str]]:
     first_stage = _first_stage(r, data, stages)
     session_end = read_session_end(r, data, cues)
     check_graph(r, stages, first_stage)
+    check_criteria(r, stages, session_end)
     if stages and not any(b.rewarded_cues() for s in stages.values() for b in s.blocks.values()):
-        r.add("stages", "no block rewards any cue; a water-restricted animal must be able to earn water")
+        lost = next((path for thing, path in r.dropped.items() if thing.startswith("cue:")), None)
+        r.add("stages", "no block rewards any cue; a water-restricted animal must be able to earn water", follows=lost)
     if r.problems:
-        return None, r.problems
+        return None, r.report()
     spec = Spec(
         name=name, description=description, reward_unit_ul=unit, learner=learner, features=features,
         performance=performance, cues=cues, stages=stages, first_stage=first_stage,

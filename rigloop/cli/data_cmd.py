@@ -18,6 +18,10 @@ def add_import(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--map", required=True, help="the column mapping (TOML)")
     p.add_argument("--db", required=True, help="the SQLite store to import into (created if missing)")
     p.add_argument("--rules", required=True, help="the rule file the sessions ran under (path or example name)")
+    p.add_argument("--units", default="", metavar="NAME=UNIT,...",
+                   help="the table's units when not s and µL, converted on import: time=s|ms (times within a "
+                        "trial), wall_time=s|ms (epoch columns), reward=µL|uL|mL|nL (default: s and µL; a column "
+                        "that looks like another unit is refused)")
     p.set_defaults(func=_run_import)
 
 
@@ -30,7 +34,7 @@ def _run_import(args: argparse.Namespace) -> int:
     rules = load_any(args.rules)
     with Store(args.db) as store:
         bar = Progress(0, "importing")
-        report = import_csv(store, args.csv, args.map, rules, progress=bar)
+        report = import_csv(store, args.csv, args.map, rules, progress=bar, units=args.units)
         bar.close()
     print(report.summary(args.csv))
     return 0

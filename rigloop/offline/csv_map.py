@@ -105,6 +105,7 @@ class ColumnMap:
     delimiter: str = ","
     encoding: str = "utf-8-sig"
     source: str | None = None
+    wall_format: str = "epoch"  # trial.wall_time's format: "epoch" or "iso"
 
     def sources(self) -> list[Source]:
         out = [self.subject, self.session, self.trial, self.rig, self.wall_time, self.duration,
@@ -272,8 +273,15 @@ def _build(data: dict[str, Any], source: str | None) -> ColumnMap:
         punishment=rw.get("punishment"), punishment_time=rw.get("punishment_time"),
         timeout_s=rw.get("timeout_s"), kind=rs.get("kind"), value=rs.get("value"), result=rs.get("result"),
         latency=rs.get("latency"), extra=tuple(extra), delimiter=delimiter, encoding=encoding, source=source,
+        wall_format=_wall_format(data),
     )
     return mapping
+
+
+def _wall_format(data: dict[str, Any]) -> str:
+    """``trial.wall_time``'s format (already checked): "epoch" unless it says "iso"."""
+    spec = data.get("trial", {}).get("wall_time")
+    return spec.get("format", "epoch") if isinstance(spec, dict) else "epoch"
 
 
 def _csv_section(ld: _Loader, data: dict[str, Any]) -> tuple[Any, Any]:

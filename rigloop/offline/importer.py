@@ -3,12 +3,14 @@
 Each imported session is run through ``begin_session`` and ``step`` under the rule
 file given, exactly as if the trials had arrived live, so the store afterwards holds
 decisions and per-trial model quantities that replay reproduces. All or nothing: a
-bad cell, a trial that does not fit its session, or a session already stored rejects
-the whole file and stores nothing.
+bad cell, a column that looks like another unit (ms for s, mL for µL: ``csv_units``), a
+trial that does not fit its session, or a session already stored rejects the whole file
+and stores nothing.
 """
 
 from __future__ import annotations
 
+import os
 from dataclasses import dataclass
 
 from ..core.step import begin_session, session_seed, step
@@ -16,7 +18,8 @@ from ..core.subject import new_subject
 from ..errors import BadEvent, RigloopError
 from ..replay import recover
 from ..store import SessionInfo
-from .tables import load_mapping, read_events
+from .csv_units import UnitsRejected, apply_units, check_units, parse_units
+from .tables import CsvRejected, group_events, load_mapping, parse_csv
 
 
 class ImportRejected(RigloopError, ValueError):
@@ -40,11 +43,24 @@ class ImportReport:
                 f"from {source}")
 
 
-def import_csv(store, csv_path, mapping_path, rules, *, progress=None) -> ImportReport:
+def import_csv(store, csv_path, mapping_path, rules, *, progress=None, units=None) -> ImportReport:
     """Read ``csv_path`` through the column mapping, step every trial under ``rules``,
-    and store all sessions in one transaction. Raises CsvRejected / ImportRejected."""
-    mapping = load_mapping(mapping_path)
-    groups = read_events(csv_path, mapping)
+    and store all sessions in one transaction.
+
+    ``units`` states the table's units (``{"time": "ms", "reward": "mL"}`` or the text
+    ``"time=ms,reward=mL"``; see ``csv_units``) and converts them. Raises CsvRejected,
+    UnitsRejected (a column looks like another unit) or ImportRejected."""
+    if units is not None and not isinstance(units, str):
+        units = ",".join(f"{k}={v}" for k, v in units.items())
+    stated = parse_units(units)
+    mapping = apply_units(load_mapping(mapping_path), stated)
+    events, bad_rows = parse_csv(csv_path, mapping)
+    wrong = check_units(events, mapping, stated)  # first: a wrong unit also breaks rows
+    if wrong:
+        raise UnitsRejected(wrong, str(csv_path), rows_refused=len({p.row for p in bad_rows}))
+    if bad_rows:
+        raise CsvRejected(bad_rows, os.fspath(csv_path))
+    groups = group_events(events)
     total = sum(len(v) for v in groups.values())
     states: dict[str, object] = {}
     sessions, problems = [], []

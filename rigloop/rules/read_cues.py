@@ -38,14 +38,17 @@ def read_cues(r: Reader, data: dict) -> dict[str, CueSpec]:
         path = f"cues.{name}"
         if not name.isidentifier() or keyword.iskeyword(name) or not name.isascii() or len(name) > 64:
             r.add(path, "a cue id must be a plain identifier (letters, digits, _; not starting with a digit)")
+            r.drop(f"cue:{name}", path)
             continue
         if name in RESERVED:
             r.add(path, f"'{name}' is a name of the expression language; choose another cue id")
+            r.drop(f"cue:{name}", path)
             continue
         if isinstance(v, str):
             v = {"role": v}
         if not isinstance(v, dict):
             r.add(path, f"must be a role string or a table {{ role, label }} (got {show(v)})")
+            r.drop(f"cue:{name}", path)
             continue
         r.keys(v, ["role", "label"], path)
         role = r.text(v, "role", f"{path}.role", "plain", choices=CUE_ROLES) or "plain"

@@ -42,6 +42,11 @@ def read_next_cue(r: Reader, b: dict, path: str, bcues: tuple[str, ...], cues: d
     return NextCue(kind)
 
 
+def _lost_cues(r: Reader, npath: str) -> str | None:
+    """The problem that took cues out of this policy's block, if one did."""
+    return r.cause(f"cues_of:{npath.removesuffix('.next_cue')}")
+
+
 def _renamed(r: Reader, t: dict, npath: str) -> dict:
     """The next-cue table with a deprecated policy name replaced by its new one, and a note
     that says so (the file still loads, for one release)."""
@@ -57,17 +62,20 @@ def _renamed(r: Reader, t: dict, npath: str) -> dict:
 def _sequence(r: Reader, t: dict, npath: str, bcues: tuple[str, ...]) -> NextCue:
     seq = t.get("sequence", list(bcues))
     if not isinstance(seq, list) or not seq or not all(isinstance(c, str) for c in seq):
-        r.add(f"{npath}.sequence", f"must be a non-empty list of cue ids (got {show(seq)})")
+        r.add(f"{npath}.sequence", f"must be a non-empty list of cue ids (got {show(seq)})",
+              follows=None if bcues else _lost_cues(r, npath))
         seq = list(bcues)
     for c in seq:
         if c not in bcues:
-            r.add(f"{npath}.sequence", f"'{c}' is not a cue of this block (cues: {', '.join(bcues)})")
+            r.add(f"{npath}.sequence", f"'{c}' is not a cue of this block (cues: {', '.join(bcues)})",
+                  follows=r.cause(f"cue:{c}"))
     return NextCue("sequence", sequence=tuple(seq))
 
 
 def _balanced(r: Reader, t: dict, npath: str, bcues: tuple[str, ...]) -> NextCue:
     if len(bcues) < 2:
-        r.add(f"{npath}.policy", "'balanced' needs at least two cues in the block; use 'sequence'")
+        r.add(f"{npath}.policy", "'balanced' needs at least two cues in the block; use 'sequence'",
+              follows=_lost_cues(r, npath))
     repeats = r.num(t, "repeats", f"{npath}.repeats", 1, lo=1, hi=50, integer=True)
     max_run = r.num(t, "max_run", f"{npath}.max_run", 3, lo=1, hi=50, integer=True)
     return NextCue("balanced", repeats=repeats, max_run=max_run)
@@ -84,7 +92,8 @@ def _weighted(r: Reader, t: dict, npath: str, bcues: tuple[str, ...]) -> NextCue
             r.add(f"{npath}.weights", f"gives no weight for cue '{c}' of this block")
     for c in w:
         if c not in bcues:
-            r.add(f"{npath}.weights.{c}", f"'{c}' is not a cue of this block (cues: {', '.join(bcues)})")
+            r.add(f"{npath}.weights.{c}", f"'{c}' is not a cue of this block (cues: {', '.join(bcues)})",
+                  follows=r.cause(f"cue:{c}"))
             continue
         v = r.num(w, c, f"{npath}.weights.{c}", None, lo=0, hi=1e6)
         if v is not None:
@@ -184,5 +193,6 @@ def read_sprt(r: Reader, b: dict, path: str, bcues: tuple[str, ...]) -> Sprt | N
         horizon = r.num(t, "horizon", f"{spath}.horizon", horizon, lo=10, hi=10_000_000, integer=True)
     cond = r.text(t, "cond", f"{spath}.cond", "all")
     if cond != "all" and cond not in bcues:
-        r.add(f"{spath}.cond", f"must be all or a cue of this block (cues: {', '.join(bcues)}; got {cond!r})")
+        r.add(f"{spath}.cond", f"must be all or a cue of this block (cues: {', '.join(bcues)}; got {cond!r})",
+              follows=r.cause(f"cue:{cond}"))
     return Sprt(p0, p1, test or "cusum", alpha, beta, horizon, cond or "all")

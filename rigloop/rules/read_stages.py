@@ -33,6 +33,7 @@ def read_stages(r: Reader, data: dict, cues: dict[str, CueSpec], welfare) -> dic
     names = list(t)
     out: dict[str, Stage] = {}
     ctx = cue_context(cues)
+    _undeclared_cues(r, t, cues)
     for i, (sname, st) in enumerate(t.items()):
         path = f"stages.{sname}"
         if not isinstance(st, dict):
@@ -40,6 +41,18 @@ def read_stages(r: Reader, data: dict, cues: dict[str, CueSpec], welfare) -> dic
             continue
         out[sname] = _stage(r, st, sname, path, names, i, cues, welfare, ctx)
     return out
+
+
+def _undeclared_cues(r: Reader, stages: dict, cues: dict[str, CueSpec]) -> None:
+    """Note, before anything reads them, the cues a contingency names that [cues] does not
+    declare: the first mention of each is its root problem, every later one follows from it."""
+    for sname, st in stages.items():
+        bt = st.get("blocks") if isinstance(st, dict) else None
+        for bname, b in (bt.items() if isinstance(bt, dict) else ()):
+            ct = b.get("contingency") if isinstance(b, dict) else None
+            for cue in (ct if isinstance(ct, dict) else ()):
+                if cue not in cues:
+                    r.drop(f"cue:{cue}", f"stages.{sname}.blocks.{bname}.contingency.{cue}")
 
 
 def _stage(r: Reader, st: dict, sname: str, path: str, names: list[str], i: int, cues: dict[str, CueSpec],
@@ -86,21 +99,26 @@ def _blocks(r: Reader, st: dict, path: str, cues: dict[str, CueSpec], welfare) -
 
 
 def _move(r: Reader, st: dict, key: str, path: str, default_to: str | None, names: list[str], ctx) -> Move | None:
-    t = r.table(st, key, f"{path}.{key}")
-    if t is None:
-        return None
     mpath = f"{path}.{key}"
+    t = r.table(st, key, mpath)
+    if t is None:
+        if key in st:
+            r.drop("move", mpath)
+        return None
     r.keys(t, ["when", "to"], mpath)
     when = r.expr(t, "when", f"{mpath}.when", ctx, required=True)
     to = r.text(t, "to", f"{mpath}.to", default_to)
     if to is None:
         where = "next" if key == "advance" else "previous"
         r.add(f"{mpath}.to", f"there is no {where} stage; name the stage to go to")
+        r.drop("move", f"{mpath}.to")
         return None
     if to not in names:
         r.add(f"{mpath}.to", f"no stage named {to!r} (stages: {', '.join(names)})")
+        r.drop("move", f"{mpath}.to")
         return None
     if when is None:
+        r.drop("move", r.cause(f"expr:{mpath}.when") or f"{mpath}.when")
         return None
     return Move(when, to)
 
@@ -110,6 +128,10 @@ def _block(r: Reader, b: dict, path: str, name: str, bnames: list[str], default_
     r.keys(b, BLOCK_KEYS, path)
     contingency = _contingency(r, b, path, cues, welfare)
     bcues = tuple(contingency)
+    ct = b.get("contingency")
+    lost = next((r.cause(f"cue:{c}") for c in (ct if isinstance(ct, dict) else ()) if c not in cues), None)
+    if lost is not None:
+        r.drop(f"cues_of:{path}", lost)  # the block's policies see fewer cues than the file gives it
     next_cue = read_next_cue(r, b, path, bcues, cues)
     ctx = cue_context(cues, unavailable=_unavailable(b, path))
     reward = read_reward(r, b, path, cues)
@@ -126,7 +148,9 @@ def _contingency(r: Reader, b: dict, path: str, cues: dict[str, CueSpec], welfar
     for cue, v in ct.items():
         cpath = f"{path}.contingency.{cue}"
         if cue not in cues:
-            r.add(cpath, f"unknown cue '{cue}' (declared cues: {', '.join(cues) or 'none'})")
+            root = r.cause(f"cue:{cue}")
+            r.add(cpath, f"unknown cue '{cue}' (declared cues: {', '.join(cues) or 'none'})",
+                  follows=None if root == cpath else root)
             continue
         if not isinstance(v, dict):
             r.add(cpath, f"must be a table {{ p = ..., ul = ... }} (got {show(v)})")
@@ -173,6 +197,7 @@ def _block_end(r: Reader, b: dict, path: str, ctx: X.Context, bnames: list[str],
     then = r.text(et, "then", f"{epath}.then", default_next)
     if then not in bnames:
         r.add(f"{epath}.then", f"no block named {then!r} in this stage (blocks: {', '.join(bnames)})")
+        r.drop(f"then:{path.rsplit('.blocks.', 1)[0]}", f"{epath}.then")
     if mx is not None and mn > mx:
         r.add(f"{epath}.min_trials", f"{mn} is more than max_trials {mx}")
     if "when" not in et and mx is None:
@@ -192,13 +217,15 @@ def check_graph(r: Reader, stages: dict[str, Stage], first_stage: str) -> None:
         for bname in st.blocks:
             if bname not in seen:
                 r.add(f"stages.{sname}.blocks.{bname}", f"unreachable block: it is not the stage's first block "
-                                                        f"('{st.first_block}') and no block's end leads to it")
+                                                        f"('{st.first_block}') and no block's end leads to it",
+                      follows=r.cause(f"then:stages.{sname}"))
     if first_stage not in stages:
         return
     seen = _reachable(first_stage, {s: _stage_exits(stage) for s, stage in stages.items()})
     for sname in stages:
         if sname not in seen:
-            r.add(f"stages.{sname}", f"unreachable stage: no advance or step_back leads to it from '{first_stage}'")
+            r.add(f"stages.{sname}", f"unreachable stage: no advance or step_back leads to it from '{first_stage}'",
+                  follows=r.cause("move"))
 
 
 def _reachable(start: str, exits: Mapping[str, list[str]]) -> set[str]:

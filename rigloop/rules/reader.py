@@ -1,12 +1,16 @@
 """Typed getters over a rule file's TOML tables that record problems instead of raising.
 
 Every section reader works through one :class:`Reader`, so a file's problems are all
-collected, each as ``key.path: message``, and reported at once.
+collected, each as ``key.path: message``, and reported at once. A problem that only
+follows from another (an expression naming a cue whose declaration was refused, a stage
+unreachable because a move naming it was refused) is a knock-on: it is reported after
+every root cause and says which one it follows from.
 """
 
 from __future__ import annotations
 
 import math
+from dataclasses import replace
 from typing import Any
 
 from . import expr as X
@@ -18,10 +22,27 @@ class Reader:
     def __init__(self) -> None:
         self.problems: list[str] = []
         self.notes: list[str] = []  # warnings: the file loads, but `rigloop check` says these
+        self.knock_ons: list[str] = []  # problems that follow from one in ``problems``
+        self.dropped: dict[str, str] = {}  # what a problem left out of the spec -> that problem's key path
 
-    def add(self, path: str, msg: str) -> None:
-        """Record one problem at a key path."""
-        self.problems.append(f"{path}: {msg}")
+    def add(self, path: str, msg: str, follows: str | None = None) -> None:
+        """Record one problem at a key path; ``follows`` is the key path of its root cause."""
+        if follows is None:
+            self.problems.append(f"{path}: {msg}")
+        else:
+            self.knock_ons.append(f"{path}: {msg} (follows from {follows})")
+
+    def drop(self, thing: str, path: str) -> None:
+        """Remember that the problem at ``path`` left ``thing`` (``cue:X``, ``move``, ...) out."""
+        self.dropped.setdefault(thing, path)
+
+    def cause(self, thing: str) -> str | None:
+        """The key path of the problem that left ``thing`` out, or None."""
+        return self.dropped.get(thing)
+
+    def report(self) -> list[str]:
+        """Every problem: root causes first (in file order), then the knock-ons."""
+        return self.problems + self.knock_ons
 
     def note(self, path: str, msg: str) -> None:
         """Record one warning at a key path (the file still loads)."""
@@ -93,7 +114,14 @@ class Reader:
         try:
             return X.parse(v, ctx, expect)
         except X.ExprError as err:
-            self.problems.extend(err.render(path))
+            roots = [self.cause(f"cue:{p.cue}") if p.cue else None for p in err.problems]
+            for p, root in zip(err.problems, roots):
+                if root is None:
+                    self.problems.append(p.render(path, err.text))
+                else:
+                    self.knock_ons.append(replace(p, message=f"{p.message} (follows from {root})").render(path, err.text))
+            if None not in roots:  # every fault here follows from elsewhere: so does what this expression's loss causes
+                self.drop(f"expr:{path}", roots[0])
             return None
 
 

@@ -70,6 +70,7 @@ class Problem:
     col: int
     end: int
     hint: str = ""
+    cue: str = ""  # the unknown cue id this problem is about, if it is one
 
     def render(self, path: str, text: str) -> str:
         """The multi-line message: key path, the expression, a caret under the fault."""
@@ -405,7 +406,9 @@ class _Checker:
         if cue in self.ctx.cues or (with_all and cue == "all") or (cue == "cue" and self.ctx.cue_var):
             return cue
         allowed = list(self.ctx.cues) + (["all"] if with_all else []) + (["cue"] if self.ctx.cue_var else [])
-        self.fail(a, f"unknown cue '{cue}'", "allowed cues: " + (", ".join(allowed) or "(none declared)"))
+        col, end = _span(a, self.text)
+        self.problems.append(Problem(f"unknown cue '{cue}'", col, end,
+                                     "allowed cues: " + (", ".join(allowed) or "(none declared)"), cue=cue))
         return None
 
 

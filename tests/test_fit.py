@@ -297,7 +297,7 @@ def test_cli_prints_a_table_and_a_ranking(store_path, capsys):
 
 
 def test_cli_reports_an_unknown_learner(store_path, capsys):
-    """A bad learner name is one line on stderr and exit status 1."""
+    """A bad learner name is one line on stderr (with the known learners) and exit status 2."""
     code = main(["fit", "--db", str(store_path), "--subject", "m01", "--learner", "nope"])
-    assert code == 1
-    assert "'learner' must be one of" in capsys.readouterr().err
+    assert code == 2
+    assert "'--learner': 'nope' is not a learner" in capsys.readouterr().err

@@ -462,6 +462,6 @@ def test_simulate_command_prints_truth_timing(capsys):
 
 
 def test_simulate_command_refuses_an_unknown_preset(capsys):
-    assert main(["simulate", "tone_reversal", "--subjects", "1", "--animal", "sleepy"]) == 1
+    assert main(["simulate", "tone_reversal", "--subjects", "1", "--animal", "sleepy"]) == 2
     err = capsys.readouterr().err
     assert "'--animal'" in err and "sleepy" in err and "slow_reverser" in err

@@ -9,7 +9,7 @@ from __future__ import annotations
 import argparse
 import sys
 
-from .args import add_session, add_store
+from .args import add_session, add_store, open_store
 
 
 def add_import(sub: argparse._SubParsersAction) -> None:
@@ -42,19 +42,18 @@ def _run_import(args: argparse.Namespace) -> int:
 
 def add_export(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser("export", help="write trials, decisions or per-trial model quantities as CSV or JSONL")
-    add_store(p, subject_required=False)
+    add_store(p, subject_required=False, subject_help="only this subject (default: every subject)")
     add_session(p)
-    p.add_argument("--what", choices=("trials", "decisions", "quantities"), default="trials")
-    p.add_argument("--format", choices=("csv", "jsonl"), default="csv")
+    p.add_argument("--what", choices=("trials", "decisions", "quantities"), default="trials", help="what to write")
+    p.add_argument("--format", choices=("csv", "jsonl"), default="csv", help="the file format")
     p.add_argument("--out", default="-", help="output file (default: standard output)")
     p.set_defaults(func=_run_export)
 
 
 def _run_export(args: argparse.Namespace) -> int:
     from ..offline.tables import export
-    from ..store import Store
 
-    with Store(args.db, create=False) as store:
+    with open_store(args.db) as store:
         if args.out == "-":
             n = export(store, args.what, args.format, sys.stdout, subject=args.subject, session=args.session)
         else:
@@ -74,9 +73,10 @@ def add_report(sub: argparse._SubParsersAction) -> None:
 
 def _run_report(args: argparse.Namespace) -> int:
     from ..outputs.report import plot_subject
-    from ..store import Store
+    from ..replay import stored_sessions
 
-    with Store(args.db, create=False) as store:
+    with open_store(args.db) as store:
+        stored_sessions(store, args.subject)
         q = list(store.rows("quantities", subject=args.subject))
         d = list(store.rows("decisions", subject=args.subject))
         t = list(store.rows("trials", subject=args.subject))

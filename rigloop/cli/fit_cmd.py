@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 from collections.abc import Sequence
 
-from .args import add_json, add_session, add_store
+from .args import Count, add_json, add_session, add_store, open_store
 
 
 def add_fit(sub: argparse._SubParsersAction) -> None:
@@ -14,7 +14,7 @@ def add_fit(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--learner", action="append", metavar="NAME",
                    help="learner to fit (repeatable: the fits are ranked by AIC; default: the rule file's)")
     add_session(p, "fit only this session (default: every session, in order)")
-    p.add_argument("--starts", type=int, default=4, help="optimiser starts per learner (default 4)")
+    p.add_argument("--starts", type=Count(1, 1000), default=4, help="optimiser starts per learner")
     add_json(p, "print the fits as JSON")
     p.set_defaults(func=_run_fit)
 
@@ -30,13 +30,18 @@ def run_command(db: str, subject: str, learners: Sequence[str] | None = None,
     import json
     import sys
 
+    from ..core.learners import LEARNERS
+    from ..core.names import check_name
     from ..fit import fit_from_store, format_fit, format_ranking
-    from ..store import Store
+    from ..replay import stored_sessions
     from .progress import Progress
 
     out = out or sys.stdout
     names = list(learners) if learners else None
-    with Store(db, create=False) as store:
+    for name in names or ():
+        check_name("--learner", "a learner", name, LEARNERS)
+    with open_store(db) as store:
+        stored_sessions(store, subject, session)
         bar = Progress(0, f"fitting {subject}")
         got = fit_from_store(store, subject, learner=names if names and len(names) > 1 else
                              (names[0] if names else None), session=session, starts=starts,

@@ -9,34 +9,72 @@ from __future__ import annotations
 
 import argparse
 
-from .args import add_daemon_address, add_data_dir, add_endpoint, add_json
+from .args import (
+    Count,
+    Positive,
+    add_daemon_address,
+    add_data_dir,
+    add_endpoint,
+    add_json,
+    rules_name,
+)
 
 
 def add_serve(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser("serve", help="run the streaming daemon for rigs (ZeroMQ and serial)")
     p.add_argument("--rules", action="append", metavar="R",
-                   help="rule file, directory of rule files, or shipped example name (repeatable)")
-    add_data_dir(p, "data directory (store, keys, daemon.json)")
+                   help="rule file, directory of rule files, or shipped example name (repeatable; "
+                        "required, default: those of --config)")
+    add_data_dir(p, "data directory (store, keys, daemon.json; created if missing; "
+                    "required, default: that of --config)")
     add_endpoint(p, "--zmq", "rigs")
     add_endpoint(p, "--publish", "observers")
     p.add_argument("--no-publish", action="store_true", help="do not open the observer stream")
-    p.add_argument("--serial", action="append", metavar="PORT=RIG", help="a serial port and its rig (repeatable)")
-    p.add_argument("--profile", action="append", metavar="RIG=PROFILE", help="rig profile of a rig (repeatable)")
-    p.add_argument("--config", metavar="FILE", help="TOML settings file (command-line options win)")
+    p.add_argument("--serial", action="append", metavar="PORT=RIG",
+                   help="a serial port and its rig (repeatable; default: no serial rigs)")
+    p.add_argument("--profile", action="append", metavar="RIG=PROFILE",
+                   help="rig profile of a rig (repeatable; default: none)")
+    p.add_argument("--config", metavar="FILE", help="TOML settings file (command-line options win; default: none)")
     p.add_argument("--insecure", action="store_true",
                    help="allow a non-loopback bind WITHOUT CURVE (anyone on the network can talk to it)")
-    p.add_argument("--snapshot-every", type=int, metavar="N", help="snapshot a subject every N trials (default 50)")
-    p.add_argument("--batch-max", type=int, metavar="N", help="largest group commit (default 64)")
+    p.add_argument("--snapshot-every", type=Count(1), metavar="N",
+                   help="snapshot a subject every N trials (1 or more; default 50)")
+    p.add_argument("--batch-max", type=Count(1), metavar="N", help="largest group commit (1 or more; default 64)")
     p.add_argument("--require-checksum", action="store_true", default=None, help="serial lines must carry a checksum")
     p.add_argument("--no-trial-log", action="store_true", help="do not log one line per trial")
-    p.add_argument("--log-level", default="info", choices=["debug", "info", "warning", "error"])
+    p.add_argument("--log-level", default="info", choices=["debug", "info", "warning", "error"],
+                   help="the least important log lines shown")
+    p.add_argument("--log-format", default=None, choices=["json", "console"],
+                   help="log lines as JSON (one object a line) or for people to read "
+                        "(default: console when the log goes to a terminal, else json)")
     p.set_defaults(func=_run_serve)
 
 
 def _run_serve(args: argparse.Namespace) -> int:
     from ..serve.daemon import serve
 
-    return serve(_settings(args), log_level=args.log_level)
+    settings = _settings(args)
+    _check_data_dir(settings.data)
+    return serve(settings, log_level=args.log_level, log_format=args.log_format)
+
+
+def _check_data_dir(path: str) -> None:
+    """The data directory must exist or be creatable, and be writable: say so in one
+    sentence before the daemon starts, not with a traceback from deep inside it."""
+    import tempfile
+    from pathlib import Path
+
+    from ..errors import BadArgument
+
+    try:
+        Path(path).mkdir(parents=True, exist_ok=True)
+        with tempfile.TemporaryFile(dir=path):
+            pass
+    except OSError as err:
+        refused = BadArgument("--data", "a directory this user can create and write", path)
+        Exception.__init__(refused, f"'--data' {path}: {err.strerror or err}; give a directory this user can "
+                                    "create and write (the store, keys and daemon.json go there)")
+        raise refused from None
 
 
 def _settings(args: argparse.Namespace):
@@ -56,6 +94,7 @@ def _settings(args: argparse.Namespace):
     else:
         if not args.data or not args.rules:
             raise BadArgument("--data and --rules", "given (or set in --config)", None)
+        over["rules"] = tuple(rules_name(r) for r in args.rules)
         settings = Settings(**{k: v for k, v in over.items() if v is not None})
     if settings.publish == "":
         settings = replace(settings, publish=None)
@@ -79,8 +118,9 @@ def add_watch(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser("watch", help="live table of subjects from a running daemon's observer stream")
     add_daemon_address(p, "--publish")
     p.add_argument("--once", action="store_true", help="print one table after the first update and exit")
-    p.add_argument("--count", type=int, metavar="N", help="exit after N updates")
-    p.add_argument("--timeout", type=float, default=None, metavar="S", help="exit after S seconds")
+    p.add_argument("--count", type=Count(1), metavar="N", help="exit after N updates (default: run until stopped)")
+    p.add_argument("--timeout", type=Positive(), default=None, metavar="S",
+                   help="exit after S seconds (default: run until stopped)")
     p.add_argument("--plain", action="store_true", help="no screen redraw: print each table below the last")
     p.set_defaults(func=_run_watch)
 
@@ -94,9 +134,10 @@ def _run_watch(args: argparse.Namespace) -> int:
 def add_status(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser("status", help="ask a running daemon for its counts, errors, latency and queues")
     add_daemon_address(p, "--zmq")
-    p.add_argument("--key", metavar="FILE", help="this client's CURVE key pair file (NAME.key_secret)")
-    p.add_argument("--server-key", metavar="FILE", help="the daemon's public key file (server.key)")
-    p.add_argument("--timeout", type=float, default=2.0, metavar="S")
+    p.add_argument("--key", metavar="FILE",
+                   help="this client's CURVE key pair file (NAME.key_secret; default: none, plain loopback)")
+    p.add_argument("--server-key", metavar="FILE", help="the daemon's public key file (server.key; default: none)")
+    p.add_argument("--timeout", type=Positive(), default=2.0, metavar="S", help="seconds to wait for the answer")
     add_json(p, "print the status map as JSON")
     p.set_defaults(func=_run_status)
 
@@ -110,7 +151,7 @@ def _run_status(args: argparse.Namespace) -> int:
 def add_keys(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser("keys", help="create CURVE keys: the daemon's, or a rig's (added to the allow-list)")
     p.add_argument("which", choices=["server", "rig"], help="server keys, or keys for one rig")
-    p.add_argument("name", nargs="?", help="the rig's name (for `keys rig`)")
+    p.add_argument("name", nargs="?", help="the rig's name (for `keys rig`; not for `keys server`)")
     add_data_dir(p, "data directory", required=True)
     p.add_argument("--force", action="store_true", help="replace existing keys")
     p.set_defaults(func=_run_keys)

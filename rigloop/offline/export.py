@@ -12,7 +12,9 @@ import tempfile
 from collections.abc import Iterable
 from typing import Any, TextIO
 
+from ..core.names import check_name
 from ..errors import BadArgument
+from ..replay import stored_sessions
 
 _TRIAL_HEAD = ["subject", "session", "trial", "rig", "wall_time", "duration"]
 _TRIAL_TAIL = ["reward_ul", "reward_time", "punishment", "punishment_time", "timeout_s",
@@ -37,12 +39,21 @@ def export(store, what: str, fmt: str, out: TextIO, subject: str | None = None, 
         raise BadArgument("what", f"one of {', '.join(WHATS)}", what)
     if fmt not in FORMATS:
         raise BadArgument("fmt", f"one of {', '.join(FORMATS)}", fmt)
+    _check_scope(store, subject, session)
     rows = store.rows(what, subject=subject, session=session)
     if fmt == "jsonl":
         return _write_jsonl(out, rows)
     if what == "decisions":
         return _write_csv(out, _DECISION_COLUMNS, (_decision_cells(r) for r in rows))
     return _write_wide_csv(out, what, rows)
+
+
+def _check_scope(store, subject: str | None, session: str | None) -> None:
+    """A named subject or session must be stored: a typo gets the known names, not an empty file."""
+    if subject is not None:
+        stored_sessions(store, subject, session)
+    elif session is not None:
+        check_name("session", "a stored session", session, dict.fromkeys(i.session for i in store.sessions()))
 
 
 def _write_jsonl(out: TextIO, rows: Iterable[dict[str, Any]]) -> int:

@@ -14,6 +14,7 @@ from collections.abc import Callable, Iterable, Iterator
 from dataclasses import dataclass, field
 from typing import Any
 
+from ..core.names import UnknownName, check_name
 from ..core.step import begin_session, step
 from ..core.subject import SubjectState, new_subject
 from ..rules import ScheduleState, load_rules
@@ -100,6 +101,17 @@ def _compare(result: ReplayResult, session: str, stored, replayed) -> None:
         result.identical += 1
 
 
+def stored_sessions(store, subject: str, session: str | None = None) -> list:
+    """The subject's stored sessions in order; ``UnknownName`` (with the known subjects, or
+    the subject's sessions, and the nearest name) when the subject or ``session`` is not stored."""
+    infos = store.sessions(subject)
+    if not infos:
+        raise UnknownName("subject", "a stored subject", subject, store.subjects())
+    if session is not None:
+        check_name("session", f"a stored session of subject {subject!r}", session, [i.session for i in infos])
+    return infos
+
+
 def replay_subject(
     store,
     subject: str,
@@ -113,14 +125,9 @@ def replay_subject(
     ``rules`` replaces every session's own rule file (to see where another would
     differ). ``progress(done, total)`` is called as trials are replayed.
     """
-    infos = store.sessions(subject)
+    infos = stored_sessions(store, subject, session)
     if session is not None:
-        names = [i.session for i in infos]
-        if session not in names:
-            from ..errors import StoreError
-
-            raise StoreError(f"subject {subject!r} has no session {session!r} (sessions: {', '.join(names) or 'none'})")
-        infos = infos[: names.index(session) + 1]
+        infos = infos[: [i.session for i in infos].index(session) + 1]
     total = sum(store.last_trial(subject, i.session) for i in infos)
     result = ReplayResult(subject)
     cache = RulesCache()

@@ -54,22 +54,37 @@ STATE_FILE = "daemon.json"
 STORE_FILE = "rigloop.sqlite"
 
 
-def configure_logging(stream=None, level: str = "info") -> None:
-    """structlog JSON lines to ``stream`` (stderr by default). Call once, at start-up
-    of a daemon process (not at import, and never with a cached logger in tests)."""
+LOG_FORMATS = ("json", "console")
+
+
+def configure_logging(stream=None, level: str = "info", fmt: str | None = None) -> None:
+    """structlog lines to ``stream`` (stderr by default): JSON lines (``fmt="json"``) for
+    files and programs, or structlog's console renderer (``"console"``) for people; None
+    picks console when ``stream`` is a terminal, else JSON. Call once, at start-up of a
+    daemon process (not at import, and never with a cached logger in tests)."""
     import logging
     import sys
 
+    from ..errors import BadArgument
+
+    stream = stream or sys.stderr
+    if fmt is None:
+        fmt = "console" if getattr(stream, "isatty", lambda: False)() else "json"
+    if fmt not in LOG_FORMATS:
+        raise BadArgument("log format", f"one of {', '.join(LOG_FORMATS)}", fmt)
+    if fmt == "json":
+        last = [structlog.processors.dict_tracebacks, structlog.processors.JSONRenderer()]
+    else:
+        last = [structlog.dev.ConsoleRenderer(colors=bool(getattr(stream, "isatty", lambda: False)()))]
     structlog.configure(
         processors=[
             structlog.contextvars.merge_contextvars,
             structlog.processors.add_log_level,
             structlog.processors.TimeStamper(fmt="iso", utc=True),
-            structlog.processors.dict_tracebacks,
-            structlog.processors.JSONRenderer(),
+            *last,
         ],
         wrapper_class=structlog.make_filtering_bound_logger(getattr(logging, level.upper(), logging.INFO)),
-        logger_factory=structlog.WriteLoggerFactory(file=stream or sys.stderr),
+        logger_factory=structlog.WriteLoggerFactory(file=stream),
         cache_logger_on_first_use=False,
     )
 
@@ -368,9 +383,10 @@ def read_state_file(data: str | os.PathLike) -> dict[str, Any] | None:
         return None
 
 
-def serve(settings: Settings, *, log_stream=None, log_level: str = "info") -> int:
-    """``rigloop serve``: configure logging, build the daemon, serve until a signal."""
-    configure_logging(log_stream, log_level)
+def serve(settings: Settings, *, log_stream=None, log_level: str = "info", log_format: str | None = None) -> int:
+    """``rigloop serve``: configure logging (``log_format``: see ``configure_logging``), build
+    the daemon, serve until a signal."""
+    configure_logging(log_stream, log_level, log_format)
     daemon = Daemon(settings)
     daemon.install_signal_handlers()
     return daemon.run()

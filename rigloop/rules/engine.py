@@ -65,8 +65,39 @@ _COUNTERS = frozenset({
 })
 
 
+# A step forward of the clock longer than this between one reading and the next (the open,
+# a trial's end, the next trial's start) is a clock mismatch, not a pause: it exceeds the
+# longest session any rule file may allow (welfare hard limit, 180 min). It is flagged in
+# the next decision and not counted toward session minutes.
+CLOCK_JUMP_S = 3 * 3600.0
+
+
 def session_minutes(s: ScheduleState) -> float:
+    """Minutes from the session's clock start to its latest reading (jumps left out)."""
     return max(0.0, s.last_wall - s.session_start) / 60.0
+
+
+def clock_words(s: ScheduleState) -> str:
+    """The clock readings behind ``session_min``, for the reason a session ended on time."""
+    return (f"session clock: {fmt(session_minutes(s))} min from {_iso(s.session_start)} to {_iso(s.last_wall)} "
+            f"(the latest trial's start + duration)")
+
+
+def _iso(wall_time: float) -> str:
+    return _dt.datetime.fromtimestamp(float(wall_time), tz=_dt.timezone.utc).isoformat(timespec="seconds")
+
+
+def _clock_jump(sched: ScheduleState, event, end: float) -> dict[str, Any]:
+    """The schedule changes for a trial that starts more than ``CLOCK_JUMP_S`` after the
+    session's latest reading: the session clock moves with it (the jump is not counted)
+    and a note for the next decision says so."""
+    wall = float(event.wall_time)
+    elapsed = max(0.0, sched.last_wall - sched.session_start)
+    note = (f"clock: trial {event.trial}'s wall_time {_iso(wall)} is {fmt((wall - sched.last_wall) / 3600.0)} h "
+            f"after the session's last clock reading {_iso(sched.last_wall)}; the jump is not counted toward "
+            f"session_min (more than {fmt(CLOCK_JUMP_S / 3600.0)} h cannot be a pause within a session). Check the "
+            f"rig's clock, and send the rig's wall_time with open")
+    return {"session_start": wall - elapsed, "last_wall": end, "notes": (*sched.notes, note)}
 
 
 class ScheduleEnv(Env):
@@ -256,7 +287,11 @@ def observe(spec: Spec, sched: ScheduleState, event) -> ScheduleState:
     ch["unrewarded_in_row"] = 0 if ul > 0 else sched.unrewarded_in_row + 1
     ch["ul_session"] = sched.ul_session + ul
     ch["ul_today"] = sched.ul_today + ul
-    ch["last_wall"] = max(sched.last_wall, float(event.wall_time) + float(event.duration or 0.0))
+    end = float(event.wall_time) + float(event.duration or 0.0)
+    if event.wall_time - sched.last_wall > CLOCK_JUMP_S:
+        ch.update(_clock_jump(sched, event, end))
+    else:
+        ch["last_wall"] = max(sched.last_wall, end)
     if block is not None and block.staircase is not None and (correct or incorrect):
         ch.update(staircase_step(block.staircase, sched, correct))
     if block is not None and block.sprt is not None and (correct or incorrect):
@@ -300,7 +335,8 @@ def decide(spec: Spec, sched: ScheduleState, view, next_trial: int,
             hit, seen = evaluate(crit.when, env)
             if hit:
                 end = True
-                reasons.append(f"session ends ({crit.name}): {'; '.join(seen)}")
+                clock = f"; {clock_words(sched)}" if "session_min" in crit.when.names_used() else ""
+                reasons.append(f"session ends ({crit.name}): {'; '.join(seen)}{clock}")
                 break
 
     if not end:
@@ -319,11 +355,14 @@ def decide(spec: Spec, sched: ScheduleState, view, next_trial: int,
         reasons.append(why_p)
         warnings.extend(pw)
     ul = block.contingency[cue].ul if cue is not None else 0.0
+    ended = end
     cue, p, ul, armed, end, overrides, wwarn = limit_values(
         spec.welfare, cue, p, ul, end, _uniform_below(rng), session_minutes(sched), sched.unrewarded_in_row,
         sched.ul_session, sched.ul_today, _rewarded(block), spec.welfare.rescue_ul or _largest_ul(spec),
     )
     warnings.extend(wwarn)
+    if end and not ended and session_minutes(sched) >= spec.welfare.max_session_min:
+        reasons.append(clock_words(sched))  # which clock reading ended it
     difficulty = None
     if block.staircase is not None and not end:
         st = block.staircase

@@ -29,7 +29,7 @@ from .expr import Env, compiled, evaluate, explain_if, fmt
 from .model import Block, Spec, Sprt, Stage
 from .policies import choose_cue, reward_prob, staircase_step
 from .state import ScheduleState
-from .welfare import limit_values
+from .welfare import lab_day, limit_values
 
 
 @dataclass(frozen=True, slots=True)
@@ -210,13 +210,15 @@ def start_subject(spec: Spec) -> ScheduleState:
 
 
 def utc_day(wall_time: float) -> str:
+    """The UTC date of ``wall_time`` (the lab's day when the rule file names none)."""
     return _dt.datetime.fromtimestamp(float(wall_time), tz=_dt.timezone.utc).date().isoformat()
 
 
 def open_session(spec: Spec, sched: ScheduleState, session: str, wall_time: float) -> ScheduleState:
     """A new session: session counters and runs reset; stage and block kept (or the
     stage's first block, when the stage says ``new_session = "first_block"``); the
-    day's water tally restarts when the UTC date differs from the last session's."""
+    day's water tally restarts when the lab's day (``[welfare] timezone`` and
+    ``day_starts``, default UTC from 00:00) differs from the last session's."""
     notes: list[str] = list(sched.notes)
     if sched.stage not in spec.stages:
         notes.append(f"stage '{sched.stage}' is not in rule file '{spec.name}'; starting at '{spec.first_stage}'")
@@ -227,7 +229,7 @@ def open_session(spec: Spec, sched: ScheduleState, session: str, wall_time: floa
         sched = enter_block(spec, sched, stage, stage.first_block)
     elif stage.new_session == "first_block" and sched.block != stage.first_block:
         sched = enter_block(spec, sched, stage, stage.first_block)
-    day = utc_day(wall_time)
+    day = lab_day(wall_time, spec.welfare)
     return sched.evolve(
         session=session, session_start=float(wall_time), last_wall=float(wall_time), session_ended=False,
         trials_in_session=0, ul_session=0.0, misses_in_row=0, unrewarded_in_row=0,

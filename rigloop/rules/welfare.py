@@ -12,7 +12,10 @@ bounds below, which no rule file can pass.
 
 from __future__ import annotations
 
+import datetime as _dt
+import functools
 import math
+import zoneinfo
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, fields
 from typing import Any
@@ -37,6 +40,10 @@ class WelfareLimits:
     rescue_ul: volume used when a limit must pay and the block rewards no cue (µL;
         default: the largest reward volume in the file).
     relax: names of limits deliberately set looser than the default.
+    timezone, day_starts: the lab's day, over which "water today" (``ul_today``) adds
+        up: it starts at ``day_starts`` ("HH:MM") local time in ``timezone`` (an IANA
+        name). Default UTC from 00:00, never the machine's zone, so replay decides alike
+        on every machine.
     """
 
     min_reward_prob: float = 0.5
@@ -48,6 +55,8 @@ class WelfareLimits:
     warn_after_min: float = 5.0
     rescue_ul: float | None = None
     relax: tuple[str, ...] = ()
+    timezone: str = "UTC"
+    day_starts: str = "00:00"
 
     @property
     def planned_min(self) -> float:
@@ -127,6 +136,7 @@ def parse_limits(table: Any, path: str = "welfare") -> tuple[WelfareLimits, list
                 f"{path}.{key}: {fmt(v)} is looser than the default {fmt(default)}; "
                 f"add \"{key}\" to {path}.relax to loosen it on purpose (hard limit: {bound} {fmt(hard)})"
             )
+    values.update(_day_keys(table, path, problems))
     limits = WelfareLimits(**values)
     if limits.planned_session_min is not None and limits.planned_session_min > limits.max_session_min:
         problems.append(
@@ -134,6 +144,53 @@ def parse_limits(table: Any, path: str = "welfare") -> tuple[WelfareLimits, list
             f"max_session_min {fmt(limits.max_session_min)}"
         )
     return limits, problems
+
+
+def _day_keys(table: dict, path: str, problems: list[str]) -> dict[str, str]:
+    """``timezone`` and ``day_starts`` of a ``[welfare]`` table, checked (problems recorded)."""
+    out: dict[str, str] = {}
+    tz = table.get("timezone")
+    if tz is not None:
+        if isinstance(tz, str) and (tz == "UTC" or _zone(tz) is not None):
+            out["timezone"] = tz
+        else:
+            problems.append(f"{path}.timezone: must be a time zone name such as \"Europe/Berlin\" or \"UTC\" "
+                            f"(got {tz!r}; the machine's time zone database has no such zone)")
+    start = table.get("day_starts")
+    if start is not None:
+        if isinstance(start, str) and _minutes(start) is not None:
+            out["day_starts"] = start
+        else:
+            problems.append(f"{path}.day_starts: must be a local time \"HH:MM\" from \"00:00\" to \"23:59\", "
+                            f"the start of the lab's day for water today (got {start!r})")
+    return out
+
+
+def _minutes(hh_mm: str) -> int | None:
+    """``"06:30"`` -> 390; None when it is not a time of day HH:MM."""
+    hh, colon, mm = hh_mm.partition(":")
+    if not (colon and len(hh) == 2 and len(mm) == 2 and hh.isdigit() and mm.isdigit()):
+        return None
+    h, m = int(hh), int(mm)
+    return h * 60 + m if h < 24 and m < 60 else None
+
+
+@functools.lru_cache(maxsize=16)
+def _zone(name: str) -> _dt.tzinfo | None:
+    try:
+        return zoneinfo.ZoneInfo(name)
+    except (zoneinfo.ZoneInfoNotFoundError, ValueError):
+        return None
+
+
+def lab_day(wall_time: float, limits: WelfareLimits) -> str:
+    """The lab's day (ISO date of the day's start) that ``wall_time`` falls in: the local
+    date in ``limits.timezone`` of the moment ``limits.day_starts`` earlier."""
+    if limits.timezone == "UTC" and limits.day_starts == "00:00":
+        return _dt.datetime.fromtimestamp(float(wall_time), tz=_dt.timezone.utc).date().isoformat()
+    zone = _dt.timezone.utc if limits.timezone == "UTC" else _zone(limits.timezone)
+    local = _dt.datetime.fromtimestamp(float(wall_time), tz=zone)
+    return (local - _dt.timedelta(minutes=_minutes(limits.day_starts) or 0)).date().isoformat()
 
 
 @dataclass(frozen=True, slots=True)

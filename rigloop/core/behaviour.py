@@ -45,6 +45,7 @@ from statistics import NormalDist
 import numpy as np
 
 from ..errors import BadArgument
+from .checks import _margin, _nonnegative, _number, _open_unit, _positive, first_bad
 from .curve import _filter_step, _z_two_sided
 
 RESPOND = "respond"  # P(respond | cue)
@@ -54,6 +55,7 @@ DEFAULT_SIGMA2 = 0.2  # random-walk variance per cue trial (forgetting); calibra
 DEFAULT_PRIOR_VAR = 2.0  # logit variance before a cue's first trial: a 95% band of about [0.06, 0.94]
 
 _NORMAL = NormalDist()
+_INF = math.inf
 _GH_NODES = 24  # Gauss-Hermite nodes for d's distribution (exact for polynomials of degree < 48)
 _GL_NODES = 32  # Gauss-Legendre nodes for P(p_a - p_b > margin): error < 1e-5 against scipy quad (random states)
 
@@ -117,16 +119,16 @@ class CueEstimate:
 
     @classmethod
     def prior(cls, prior_var: float) -> CueEstimate:
-        return cls(0.0, prior_var, 0)
+        return cls(0.0, _positive("prior_var", prior_var), 0)
 
     def updated(self, y: bool, sigma2: float) -> CueEstimate:
         """The estimate after one more observed trial (``y``: the response happened)."""
-        x, var, _ = _filter_step(self.x, self.var, 1 if y else 0, 0.0, sigma2)
+        x, var, _ = _filter_step(self.x, self.var, 1 if y else 0, 0.0, _nonnegative("sigma2", sigma2))
         return CueEstimate(x, var, self.n + 1)
 
     def predictive(self, sigma2: float) -> tuple[float, float]:
         """(mean, variance) of the logit state on the cue's next trial: N(x, var + sigma2)."""
-        return self.x, self.var + sigma2
+        return self.x, self.var + _nonnegative("sigma2", sigma2)
 
     def as_tuple(self) -> tuple[float, float, int]:
         return (self.x, self.var, self.n)
@@ -148,7 +150,17 @@ def updated(est: tuple[float, float, int] | None, y: bool, sigma2: float, prior_
     if est is None:
         x, var, n = 0.0, prior_var, 0
     else:
-        x, var, n = est
+        try:
+            x, var, n = est
+        except (TypeError, ValueError):
+            raise BadArgument("behaviour estimate", "a triple (x, var, n)", est) from None
+    try:
+        ok = -_INF < x < _INF and 0.0 < var < _INF and 0.0 <= sigma2 < _INF
+    except TypeError:
+        ok = False
+    if not ok:
+        raise first_bad(("behaviour estimate x", x, _number), ("behaviour estimate var" if est is not None else
+                        "prior_var", var, _positive), ("sigma2", sigma2, _nonnegative))
     x, var, _ = _filter_step(x, var, 1 if y else 0, 0.0, sigma2)
     return (x, var, n + 1)
 
@@ -163,6 +175,12 @@ def logistic(a: float) -> float:
 
 def band(mean: float, var: float, level: float = 0.95) -> tuple[float, float]:
     """Two-sided credible interval of p = logistic(state), state ~ N(mean, var)."""
+    try:
+        ok = -_INF < mean < _INF and 0.0 <= var < _INF and 0.0 < level < 1.0
+    except TypeError:
+        ok = False
+    if not ok:
+        raise first_bad(("mean", mean, _number), ("var", var, _nonnegative), ("level", level, _open_unit))
     z = _z_two_sided(level) * math.sqrt(var)
     return logistic(mean - z), logistic(mean + z)
 
@@ -213,6 +231,7 @@ def p_difference_above(mean_a: float, var_a: float, mean_b: float, var_b: float,
     and 32 nodes cost less as floats than as a dozen small numpy calls (~0.1x of the decision
     round trip in tools/bench/latency.py).
     """
+    _two_states(mean_a, var_a, mean_b, var_b, ("margin", margin, _margin))
     if margin == 0.0:
         return _NORMAL.cdf((mean_a - mean_b) / math.sqrt(var_a + var_b))
     sa = math.sqrt(var_a)
@@ -236,6 +255,20 @@ def p_difference_above(mean_a: float, var_a: float, mean_b: float, var_b: float,
     # ws folds in ds/dt = 1/2 and the s of da = 2 (hi - lo) s ds; the density's 1/(sd sqrt(2 pi)); Phi's 1/2
     total *= span / (sa * math.sqrt(2.0 * math.pi)) * 0.5
     return min(1.0, max(0.0, total))
+
+
+def _two_states(mean_a: float, var_a: float, mean_b: float, var_b: float, last: tuple) -> None:
+    """Check two cues' logit states (finite means, variances > 0) and one more argument
+    ``last`` = (name, value, check); BadArgument names the first that is wrong."""
+    name, value, check = last
+    try:
+        ok = (-_INF < mean_a < _INF and 0.0 < var_a < _INF and -_INF < mean_b < _INF and 0.0 < var_b < _INF
+              and 0.0 <= value < 1.0 and (check is not _open_unit or value > 0.0))
+    except TypeError:
+        ok = False
+    if not ok:
+        raise first_bad(("mean_a", mean_a, _number), ("var_a", var_a, _positive), ("mean_b", mean_b, _number),
+                        ("var_b", var_b, _positive), last)
 
 
 def _probit_of_logit(a: np.ndarray) -> np.ndarray:
@@ -265,6 +298,7 @@ def dprime_estimate(mean_a: float, var_a: float, mean_b: float, var_b: float,
     and each quantile is found by a safeguarded Newton search from the normal approximation of
     D (its moments by the same nodes), to 1e-5 in d' (about 140 us). Returns (d', lower, upper).
     """
+    _two_states(mean_a, var_a, mean_b, var_b, ("level", level, _open_unit))
     clip = 1e-15
     d = _NORMAL.inv_cdf(min(max(logistic(mean_a), clip), 1 - clip)) - \
         _NORMAL.inv_cdf(min(max(logistic(mean_b), clip), 1 - clip))

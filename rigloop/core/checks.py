@@ -1,6 +1,9 @@
 """Argument checks shared by the core's numeric modules: finite numbers, open unit
 interval, positive numbers, counts, binary outcomes. Each raises BadArgument naming the
 argument, what it must be and what came (``'sigma2' must be a finite number > 0 (got 0)``).
+
+``first_bad`` serves functions on the per-trial path that test their arguments in one
+chained comparison and, only when it fails, ask which argument broke which rule.
 """
 
 from __future__ import annotations
@@ -35,6 +38,38 @@ def _positive(name: str, value: Any) -> float:
     if value <= 0.0:
         raise BadArgument(name, "a finite number > 0", value)
     return value
+
+
+def _negative(name: str, value: Any) -> float:
+    value = _number(name, value)
+    if value >= 0.0:
+        raise BadArgument(name, "a finite number < 0", value)
+    return value
+
+
+def _nonnegative(name: str, value: Any) -> float:
+    value = _number(name, value)
+    if value < 0.0:
+        raise BadArgument(name, "a finite number >= 0", value)
+    return value
+
+
+def _margin(name: str, value: Any) -> float:
+    value = _number(name, value)
+    if not 0.0 <= value < 1.0:
+        raise BadArgument(name, "a margin between probabilities in [0, 1)", value)
+    return value
+
+
+def first_bad(*rules: tuple[str, Any, Any]) -> BadArgument:
+    """The error for the first (name, value, check) whose check refuses its value; the
+    caller already knows one does (a generic one naming every argument if none did)."""
+    for name, value, check in rules:
+        try:
+            check(name, value)
+        except BadArgument as err:
+            return err
+    return BadArgument(", ".join(n for n, _, _ in rules), "numbers within their ranges", tuple(v for _, v, _ in rules))
 
 
 def _count(name: str, value: Any) -> int:

@@ -66,7 +66,7 @@ def p_respond(value: Any, beta: float, theta: float, lapse: float) -> Any:
     """
     if type(value) is float:
         return _lapse_logistic_scalar(beta * (value - theta), lapse)
-    v = np.asarray(value, dtype=np.float64)
+    v = _floats("value", value)
     # z = β(V − θ)
     z = beta * (v - theta)
     return _plain(_lapse_logistic(z, lapse))
@@ -78,7 +78,7 @@ def log_lik_respond(value: Any, responded: Any, beta: float, theta: float, lapse
     responded: 1 (or True) responded, 0 (or False) withheld; nan (not observed) gives nan.
     Stable for large |β(V − θ)|: log p stays finite where p itself rounds to 0 or 1.
     """
-    v = np.asarray(value, dtype=np.float64)
+    v = _floats("value", value)
     # z = β(V − θ)
     z = beta * (v - theta)
     return _plain(_log_lik(z, responded, lapse))
@@ -110,7 +110,7 @@ def log_lik_right(q_left: Any, q_right: Any, chose: Any, beta: float, bias: floa
     chose: ``RIGHT`` (+1) or ``LEFT`` (−1); ``NO_CHOICE`` (0) or nan (an omitted trial)
     gives nan. Stable for large logits, as ``log_lik_respond``.
     """
-    c = np.asarray(chose, dtype=np.float64)
+    c = _floats("chose", chose)
     z = _choice_logit(q_left, q_right, beta, bias, persev, history)
     # y = 1 for a right choice, 0 for left, nan for none
     y = np.where(c == 0.0, math.nan, (c + 1.0) / 2.0)
@@ -129,11 +129,11 @@ def history_step(h: Any, choice: Any, decay: float) -> Any:
     if type(h) is float and (choice == 1.0 or choice == -1.0):
         # one float and a side: the same formula without numpy's per-call cost
         return decay * h + (1 - decay) * choice
-    c = np.asarray(choice, dtype=np.float64)
+    c = _floats("choice", choice)
     chosen = np.abs(c) == 1.0
     if not np.all(chosen | (c == 0.0) | np.isnan(c)):
         raise BadArgument("choice", "+1 (right), -1 (left), or 0 or nan (no choice)", choice)
-    hh = np.asarray(h, dtype=np.float64)
+    hh = _floats("h", h)
     # h ← decay·h + (1 − decay)·c
     stepped = decay * hh + (1 - decay) * c
     return _plain(np.where(chosen, stepped, hh))
@@ -234,7 +234,7 @@ def _lapse_logistic_scalar(z: float, lapse: float) -> float:
 
 def _log_lik(z: np.ndarray, y: Any, lapse: float) -> np.ndarray:
     """log P(y) with P(y = 1) = lapse/2 + (1 − lapse)·σ(z), in log space; nan y gives nan."""
-    y = np.asarray(y, dtype=np.float64)
+    y = _floats("responded", y)
     log_half_lapse = math.log(lapse / 2) if lapse > 0 else -math.inf
     log_engaged = math.log1p(-lapse) if lapse < 1 else -math.inf
     # log σ(±z) = −log(1 + e^(∓z))
@@ -250,11 +250,19 @@ def _log_lik(z: np.ndarray, y: Any, lapse: float) -> np.ndarray:
 
 def _choice_logit(q_left: Any, q_right: Any, beta: float, bias: float, persev: float,
                   history: Any) -> np.ndarray:
-    ql = np.asarray(q_left, dtype=np.float64)
-    qr = np.asarray(q_right, dtype=np.float64)
-    h = np.asarray(history, dtype=np.float64)
+    ql = _floats("q_left", q_left)
+    qr = _floats("q_right", q_right)
+    h = _floats("history", history)
     # z = β(Q_R − Q_L) + bias + persev·h
     return beta * (qr - ql) + bias + persev * h
+
+
+def _floats(name: str, value: Any) -> np.ndarray:
+    """``value`` as a float64 array; BadArgument naming it when it is not numbers."""
+    try:
+        return np.asarray(value, dtype=np.float64)
+    except (TypeError, ValueError):
+        raise BadArgument(name, "numbers (a float or an array of them)", value) from None
 
 
 def _plain(x: np.ndarray) -> Any:

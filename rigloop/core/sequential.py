@@ -18,7 +18,7 @@ from typing import Any
 import numpy as np
 
 from ..errors import BadArgument
-from .checks import _binary, _count, _number, _open_unit
+from .checks import _binary, _count, _negative, _number, _open_unit, _positive, first_bad
 
 _INF = math.inf
 
@@ -55,8 +55,8 @@ class BernoulliSPRT:
         self.p0, self.p1 = _open_unit("p0", p0), _open_unit("p1", p1)
         if self.p0 == self.p1:
             raise BadArgument("p1", f"a probability different from p0 = {self.p0:g}", p1)
+        self.ln_b, self.ln_a = sprt_bounds(alpha, beta)  # (checks alpha and beta first)
         self.alpha, self.beta = float(alpha), float(beta)
-        self.ln_b, self.ln_a = sprt_bounds(alpha, beta)
         self.reset()
 
     def __repr__(self) -> str:
@@ -273,7 +273,17 @@ def wald_trials_to_pass(p: float, up: float, down: float, ln_b: float, ln_a: flo
     L = ln A / (ln A - ln B), E[N] = -ln A ln B / E[step^2]); tests are repeated until one
     passes, so the total is E[N] / (1 - L) (Wald's identity over the restarts).
     """
-    theta = _wald_exponent(p, up, down)
+    try:
+        ok = 0.0 < p < 1.0 and 0.0 < up < _INF and -_INF < down < 0.0 and -_INF < ln_b < 0.0 < ln_a < _INF
+    except TypeError:
+        ok = False
+    if not ok:  # (at p = 0 or 1 the search for Wald's exponent would never end)
+        raise first_bad(("p", p, _open_unit), ("up", up, _positive), ("down", down, _negative),
+                        ("ln_b", ln_b, _negative), ("ln_a", ln_a, _positive))
+    try:
+        theta = _wald_exponent(p, up, down)
+    except OverflowError:  # p so near 0 or 1 that e^(theta step) leaves the floats before the root
+        raise BadArgument("p", "a probability far enough from 0 and 1 for Wald's approximation", p) from None
     drift = p * up + (1.0 - p) * down
     if theta == 0.0:
         accept0 = ln_a / (ln_a - ln_b)

@@ -199,7 +199,27 @@ def square(name: str, value: Any, n: int) -> np.ndarray:
         raise BadArgument(name, "a covariance with a non-negative diagonal",
                           _Shown("a negative variance"))
     # (P + Pᵀ)/2 leaves an exactly symmetric P unchanged bit for bit
-    return (arr + arr.T) * 0.5
+    with np.errstate(over="ignore"):
+        out = (arr + arr.T) * 0.5
+    if not np.isfinite(out).all():
+        raise BadArgument(name, "a covariance of finite size (P + Pᵀ overflows)", _Shown("entries near the float limit"))
+    return out
+
+
+def state_weights(state: dict[str, Any]) -> np.ndarray:
+    """A stored state's ``w`` as a float64 array (its shape and values checked by the ``w``
+    setter), or BadArgument naming it when it is not numbers at all."""
+    try:
+        return np.asarray(state["w"], dtype=np.float64)
+    except (TypeError, ValueError):
+        raise BadArgument("state['w']", "an array of finite numbers (the learner's weights)", state["w"]) from None
+
+
+def innovation(name: str, s: float) -> BadArgument:
+    """The error for a Kalman observation whose variance hᵀΣ⁻h + σ_r² is not a positive
+    finite number: the covariance is not positive semi-definite along h, or overflowed."""
+    return BadArgument(name, "a positive semi-definite covariance of finite size (hᵀΣh + noise must be a finite "
+                             "number > 0 for every observed row h)", _Shown(f"hᵀΣh + noise = {s!r}"))
 
 
 def nonfinite(pairs: list[tuple[str, Any]]) -> BadArgument:

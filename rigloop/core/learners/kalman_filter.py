@@ -23,6 +23,8 @@ import numpy as np
 from . import _shared as sh
 from ._shared import Learner, TrialResult
 
+_INF = math.inf
+
 
 def kalman_predict(P: np.ndarray, diffusion: float) -> np.ndarray:
     """Diffusion step. P: (n, n) covariance; returns Σ⁻ = P + τ²I (a new array)."""
@@ -43,6 +45,8 @@ def kalman_correct(
     Ph = P @ h
     # s = hᵀΣ⁻h + σ_r²
     s = float(h @ Ph) + noise
+    if not 0.0 < s < math.inf:
+        raise sh.innovation("P", s)
     # k = Σ⁻h / s
     k = Ph / s
     # ŵ ← ŵ + kδ;  Σ ← Σ⁻ − k hᵀΣ⁻
@@ -169,6 +173,8 @@ class _Gaussian(Learner):
         self._P.dot(h, u)
         # s = hᵀΣ⁻h + σ_r²
         s = float(h.dot(u)) + self._noise
+        if not 0.0 < s < _INF:  # Σ not positive semi-definite along h, or overflowed (Σ⁻ is diffused already)
+            raise sh.innovation("cov", s)
         # u = Σ⁻h / √s, so that k = u/√s, k δ = u δ/√s and k hᵀΣ⁻ = u uᵀ
         rs = 1.0 / math.sqrt(s)
         np.multiply(u, rs, u)
@@ -273,7 +279,7 @@ class KalmanFilter(_Gaussian):
     @classmethod
     def from_state(cls, state: dict[str, Any]) -> KalmanFilter:
         cls._check_state(state, ("w", "cov", "diffusion", "noise", "prior_var"))
-        w = np.asarray(state["w"], dtype=np.float64)
+        w = sh.state_weights(state)
         learner = cls(w.size, **{k: sh.param(state, k) for k in cls._param_names})
         learner._restore(state)
         return learner

@@ -186,7 +186,7 @@ class KalmanTD(_Gaussian):
     @classmethod
     def from_state(cls, state: dict[str, Any]) -> KalmanTD:
         cls._check_state(state, ("w", "cov", "gamma", "diffusion", "noise", "prior_var"))
-        w = np.asarray(state["w"], dtype=np.float64)
+        w = sh.state_weights(state)
         learner = cls(w.size, **{k: sh.param(state, k) for k in cls._param_names})
         learner._restore(state)
         return learner

@@ -91,7 +91,7 @@ class RescorlaWagner(Learner):
     @classmethod
     def from_state(cls, state: dict[str, Any]) -> RescorlaWagner:
         cls._check_state(state, ("w", "alpha"))
-        w = np.asarray(state["w"], dtype=np.float64)
+        w = sh.state_weights(state)
         learner = cls(w.size, alpha=sh.param(state, "alpha"))
         learner.w = w
         return learner

@@ -131,7 +131,7 @@ class TD(Learner):
     @classmethod
     def from_state(cls, state: dict[str, Any]) -> TD:
         cls._check_state(state, ("w", "z", "alpha", "gamma", "lam"))
-        w = np.asarray(state["w"], dtype=np.float64)
+        w = sh.state_weights(state)
         learner = cls(w.size, **{k: sh.param(state, k) for k in cls._param_names})
         learner.w = w
         learner._z[...] = sh.row("z", state["z"], learner._n)

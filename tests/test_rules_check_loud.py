@@ -197,6 +197,17 @@ def test_contradictory_bounds_can_never_be_true():
     assert got[0].startswith(f"{D1}: can never be true:") and "contradict each other" in got[0]
 
 
+def test_an_interval_whose_lower_end_must_exceed_its_upper_end_can_never_be_true():
+    assert problems(with_end("dprime_lower(tone_hi, tone_lo) > dprime_upper(tone_hi, tone_lo)")) == [
+        f"{D1}: can never be true: 'dprime_lower(tone_hi, tone_lo) > dprime_upper(tone_hi, tone_lo)' asks the lower "
+        "end of a credible interval to exceed its upper end; the lower end is never above the upper one"]
+    assert problems(with_end("p_upper(all) < p_lower(all) and trials_in_block > 5"))[0].startswith(
+        f"{D1}: can never be true: 'p_upper(all) < p_lower(all)' asks the lower end")
+    # at any two levels: a central interval's lower end is below the median, its upper end above
+    assert "asks the lower end" in problems(with_end("p_lower(all, 0.5) > p_upper(all, 0.99)"))[0]
+    load_rules(with_end("p_respond_lower(tone_hi) > p_respond_upper(tone_lo)"))  # two cues: two intervals
+
+
 def test_a_trial_count_beyond_max_trials_can_never_be_true():
     assert problems(with_end("trials_in_block >= 100", "max_trials = 50")) == [
         f"{D1}: can never be true: 'trials_in_block >= 100' needs trials_in_block >= 100, but trials_in_block is "

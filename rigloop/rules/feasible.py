@@ -33,6 +33,8 @@ PER_CUE_ESTIMATES = frozenset({
     "p_above_chance",
 })
 _FLIP = {"<": ">", "<=": ">=", ">": "<", ">=": "<=", "==": "==", "!=": "!="}
+# the two ends of one credible interval: the lower end is never above the upper one
+_INTERVAL_ENDS = {f"{q}_lower": f"{q}_upper" for q in ("p", "p_respond", "p_right", "dprime")}
 
 
 @dataclass(frozen=True, slots=True)
@@ -141,10 +143,33 @@ def _never(expr: Expr, node: Node, where: Where) -> str | None:
     return None
 
 
+def _ends_crossed(expr: Expr, node: Compare) -> str | None:
+    """Why a comparison asking a credible interval's lower end to exceed its upper end (the
+    same cues) can never hold, else None. Levels do not matter: a central interval's lower
+    end is below the median at every level, its upper end above."""
+    for i, op in enumerate(node.ops):
+        a, b = node.operands[i], node.operands[i + 1]
+        if op in ("<", "<="):
+            a, b, op = b, a, _FLIP[op]
+        if op != ">" or not (isinstance(a, Call) and isinstance(b, Call)) or _INTERVAL_ENDS.get(a.func) != b.func:
+            continue
+        if _cues_of(a) == _cues_of(b):
+            return (f"'{expr.source(node)}' asks the lower end of a credible interval to exceed its upper end; "
+                    "the lower end is never above the upper one")
+    return None
+
+
+def _cues_of(call: Call) -> tuple[str, ...]:
+    return tuple(a.cue for a in call.args if isinstance(a, CueRef))
+
+
 def _conjunction(expr: Expr, compares: list[Compare], where: Where) -> str | None:
     """Intersect the bounds ``and``-ed comparisons put on each quantity; the first empty one says why."""
     need: dict[str, tuple[Node, Span, list[str]]] = {}
     for cmp_ in compares:
+        crossed = _ends_crossed(expr, cmp_)
+        if crossed is not None:
+            return crossed
         for q, key, span in _atoms(cmp_):
             node, have, texts = need.get(key, (q, Span(), []))
             texts = texts if expr.source(cmp_) in texts else [*texts, expr.source(cmp_)]

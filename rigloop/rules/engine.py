@@ -306,7 +306,7 @@ def observe(spec: Spec, sched: ScheduleState, event) -> ScheduleState:
                 t.test, sched.sprt_llr if verdict == "continue" else 0.0, correct, up, down, upper, lower)
     side = event.response.value
     if side in ("left", "right"):
-        window = block.next_cue.window if block is not None and block.next_cue.kind == "anti_bias" else 10
+        window = block.next_cue.window if block is not None and block.next_cue.kind in ("counter_bias", "anti_bias") else 10
         # b <- b + (x - b) / window, x = 1 for a right choice
         ch["right_bias"] = sched.right_bias + ((1.0 if side == "right" else 0.0) - sched.right_bias) / window
         ch["n_choices"] = sched.n_choices + 1

@@ -129,9 +129,9 @@ class NextCue:
 
     kinds: ``sequence`` (fixed order, cycled), ``balanced`` (shuffled mini-blocks, each
     cue ``repeats`` times, runs at most ``max_run``), ``weighted`` (independent draws),
-    ``uncertain`` (the cue whose value sd is largest; ties at random), ``anti_bias``
-    (the file's ``counter_bias``, two-choice: favour the side the animal under-chooses;
-    the tag stays ``anti_bias`` because the engine and stored decisions' reasons use it).
+    ``uncertain`` (the cue whose value sd is largest; ties at random), ``counter_bias``
+    (two-choice: favour the side the animal under-chooses; ``anti_bias`` for a file that
+    still says the old name, so its stored reasons replay word for word).
     """
 
     kind: str

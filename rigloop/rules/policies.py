@@ -21,6 +21,9 @@ from .state import ScheduleState
 
 # --------------------------------------------------------------------------- next cue
 
+# the two-choice policy under its name and its old one (kept for files stored with it): the reason word
+COUNTER_BIAS = {"counter_bias": "counter-bias", "anti_bias": "anti-bias"}
+
 
 def run_ok(order: list[str], last: str | None, run: int, max_run: int) -> bool:
     """True when ``order`` following ``run`` repeats of ``last`` never repeats a cue more
@@ -91,7 +94,7 @@ def choose_cue(block: Block, sched: ScheduleState, view, rng: np.random.Generato
         cue = bcues[i]
         others = ", ".join(f"{c} {fmt(s)}" for c, s in zip(bcues, sds) if c != cue)
         why = f"cue {cue}: most uncertain value (sd {fmt(sds[i])}; {others})"
-    elif pol.kind == "anti_bias":
+    elif pol.kind in COUNTER_BIAS:
         b = sched.right_bias
         # favour the under-chosen side: P(right-correct cue) = 1 - recent P(choose right)
         p_right = min(max(1.0 - b, 1.0 - pol.max_p), pol.max_p)
@@ -101,7 +104,7 @@ def choose_cue(block: Block, sched: ScheduleState, view, rng: np.random.Generato
             if cues[c].role == side:
                 pool.append(c)
         cue = pool[int(rng.integers(len(pool)))] if len(pool) > 1 else pool[0]
-        why = (f"cue {cue}: anti-bias, recent right choices {fmt(b)} "
+        why = (f"cue {cue}: {COUNTER_BIAS[pol.kind]}, recent right choices {fmt(b)} "
                f"-> P(right-side cue) = {fmt(p_right)}")
     else:  # pragma: no cover - the loader admits only the kinds above
         raise ValueError(pol.kind)

@@ -28,6 +28,7 @@ def read_next_cue(r: Reader, b: dict, path: str, bcues: tuple[str, ...], cues: d
     t = r.table(b, "next_cue", npath)
     if t is None:
         t = {"policy": "balanced"} if len(bcues) > 1 else {"policy": "sequence", "sequence": list(bcues)}
+    written = t.get("policy")
     t = _renamed(r, t, npath)
     kind = r.text(t, "policy", f"{npath}.policy", choices=tuple(NEXT_CUE_KEYS), required=True) or "balanced"
     r.keys(t, NEXT_CUE_KEYS[kind], npath)
@@ -38,7 +39,7 @@ def read_next_cue(r: Reader, b: dict, path: str, bcues: tuple[str, ...], cues: d
     if kind == "weighted":
         return _weighted(r, t, npath, bcues)
     if kind == "counter_bias":
-        return _counter_bias(r, t, npath, bcues, cues)
+        return _counter_bias(r, t, npath, bcues, cues, old_name=written == "anti_bias")
     return NextCue(kind)
 
 
@@ -103,15 +104,17 @@ def _weighted(r: Reader, t: dict, npath: str, bcues: tuple[str, ...]) -> NextCue
     return NextCue("weighted", weights=tuple(pairs))
 
 
-def _counter_bias(r: Reader, t: dict, npath: str, bcues: tuple[str, ...], cues: dict[str, CueSpec]) -> NextCue:
-    """Two-choice: offer the side the animal under-chooses more often. The spec keeps the
-    kind tag ``anti_bias`` the engine and stored decisions' reasons already use."""
+def _counter_bias(r: Reader, t: dict, npath: str, bcues: tuple[str, ...], cues: dict[str, CueSpec],
+                  old_name: bool = False) -> NextCue:
+    """Two-choice: offer the side the animal under-chooses more often. A file that says the
+    old name ``anti_bias`` keeps that kind tag, whose reasons read "anti-bias", so sessions
+    stored with it still replay word for word; ``counter_bias`` reads "counter-bias"."""
     sides = {cues[c].role for c in bcues if c in cues}
     if not {"left", "right"} <= sides:
         r.add(f"{npath}.policy", "'counter_bias' needs cues with role = \"left\" and role = \"right\" in the block")
     window = r.num(t, "window", f"{npath}.window", 10, lo=1, hi=500, integer=True)
     max_p = r.num(t, "max_p", f"{npath}.max_p", 0.8, lo=0.5, hi=1.0)
-    return NextCue("anti_bias", window=window, max_p=max_p)
+    return NextCue("anti_bias" if old_name else "counter_bias", window=window, max_p=max_p)
 
 
 def read_reward(r: Reader, b: dict, path: str, cues) -> RewardPolicy:

@@ -56,7 +56,7 @@ NAMES: dict[str, NameSpec] = {
     "correct_in_block": NameSpec(NUM, 0, INF, "correct trials in the current block"),
     "session_min": NameSpec(NUM, 0, INF, "minutes since the session opened (to the end of the last trial)"),
     "ul_session": NameSpec(NUM, 0, INF, "µL delivered this session"),
-    "ul_today": NameSpec(NUM, 0, INF, "µL delivered today (UTC day), all sessions"),
+    "ul_today": NameSpec(NUM, 0, INF, "µL delivered today (the lab's day: [welfare] timezone and day_starts), all sessions"),
     "misses_in_row": NameSpec(NUM, 0, INF, "trials in a row without a response (omissions, go-cue misses)"),
     "unrewarded_in_row": NameSpec(NUM, 0, INF, "trials in a row without reward"),
     "hits": NameSpec(NUM, 0, INF, "go-cue trials answered, this block"),

@@ -13,6 +13,7 @@ from collections.abc import Iterable, Mapping, Sequence
 from typing import Any
 
 _VALUE = re.compile(r"^value\[(.+)\]$")
+_BEHAVIOUR = re.compile(r"^(p_respond|p_right)\[(.+)\]$")  # the animal's own estimate per cue
 
 
 def _series(rows: Sequence[Mapping[str, Any]], name: str) -> list[float]:
@@ -42,7 +43,9 @@ def plot_subject(
     """Write a four-panel PNG (or PDF/SVG by extension) of one subject's trials to ``path``.
 
     ``quantities``: per-trial rows with ``value[cue]``, ``sd[cue]``, ``delta_cue``,
-    ``delta_outcome``, ``p_correct``, ``p_lo95``, ``p_hi95``. ``decisions``: the decision
+    ``delta_outcome``, ``p_correct``, ``p_lo95``, ``p_hi95``, and the animal's own behaviour
+    per cue (``p_respond[cue]`` or ``p_right[cue]`` with ``_lo95``/``_hi95``) beside what the
+    learner predicts (``p_model[cue]``): the second panel shows where the two disagree. ``decisions``: the decision
     rows that followed each trial (``block``, ``stage``, ``reward_prob``). ``trials``: the
     trial rows (``session``, ``reward_ul``), for the water panel (µL delivered, summed within
     each session); without them that panel shows the reward probability decided. Returns ``path``.
@@ -57,29 +60,42 @@ def plot_subject(
     d = list(decisions)
     x = np.arange(1, len(q) + 1)
     cues = sorted({m.group(1) for row in q for k in row for m in [_VALUE.match(k)] if m})
+    behaviour = sorted({(m.group(2), m.group(1)) for row in q for k in row for m in [_BEHAVIOUR.match(k)] if m})
+    named = sorted(set(cues) | {c for c, _ in behaviour})
+    colour = {c: f"C{i % 10}" for i, c in enumerate(named)}  # one colour per cue, in every panel
 
-    fig, axes = plt.subplots(4, 1, figsize=(10, 10), sharex=True, constrained_layout=True)
+    fig, axes = plt.subplots(4, 1, figsize=(10, 11), sharex=True, constrained_layout=True)
     ax = axes[0]
     for cue in cues:
         mean = np.array(_series(q, f"value[{cue}]"))
         sd = np.array(_series(q, f"sd[{cue}]"))
         ok = ~np.isnan(mean)
-        (line,) = ax.plot(x[ok], mean[ok], ".-", ms=3, lw=1, label=cue)
+        ax.plot(x[ok], mean[ok], ".-", ms=3, lw=1, color=colour[cue], label=cue)
         if np.any(np.nan_to_num(sd[ok]) > 0):
-            ax.fill_between(x[ok], mean[ok] - sd[ok], mean[ok] + sd[ok], color=line.get_color(), alpha=0.2, lw=0)
-    ax.set_ylabel("value at cue onset\n(mean ± sd)")
+            ax.fill_between(x[ok], mean[ok] - sd[ok], mean[ok] + sd[ok], color=colour[cue], alpha=0.2, lw=0)
+    ax.set_ylabel("learner's value at cue onset\n(mean ± sd)")
     ax.legend(loc="upper left", fontsize=8, ncol=max(1, len(cues)))
 
     ax = axes[1]
+    for cue, name in behaviour:
+        est = np.array(_series(q, f"{name}[{cue}]"))
+        lo, hi = np.array(_series(q, f"{name}_lo95[{cue}]")), np.array(_series(q, f"{name}_hi95[{cue}]"))
+        what = "P(respond)" if name == "p_respond" else "P(right)"
+        ax.plot(x, est, lw=1.2, color=colour[cue], label=f"animal: {what} | {cue}")
+        ax.fill_between(x, lo, hi, color=colour[cue], alpha=0.15, lw=0)
+        model = np.array(_series(q, f"p_model[{cue}]"))
+        ok = ~np.isnan(model)
+        if ok.any():
+            ax.plot(x[ok], model[ok], ".", ms=2, color=colour[cue], alpha=0.6, label=f"learner predicts | {cue}")
     p = np.array(_series(q, "p_correct"))
-    lo, hi = np.array(_series(q, "p_lo95")), np.array(_series(q, "p_hi95"))
-    ax.plot(x, p, color="k", lw=1.2, label="P(correct)")
-    ax.fill_between(x, lo, hi, color="0.6", alpha=0.4, lw=0, label="95% band")
+    if not behaviour or not np.all(np.isnan(p)):
+        ax.plot(x, p, color="0.3", lw=0.8, ls="--", label="P(correct), all cues")
     if chance is not None:
-        ax.axhline(chance, color="r", ls=":", lw=1, label="chance")
+        ax.axhline(chance, color="0.4", ls=":", lw=1, label="chance")
     ax.set_ylim(0, 1)
-    ax.set_ylabel("response\nprobability")
-    ax.legend(loc="lower right", fontsize=8)
+    ax.set_ylabel("the animal's responses\n(estimate, 95% band)")
+    # beside the panel, where it hides no trial
+    ax.legend(loc="upper left", bbox_to_anchor=(1.005, 1.0), fontsize=7, frameon=False)
 
     ax = axes[2]
     ax.plot(x, _series(q, "delta_cue"), ".", ms=3, label="δ at cue onset")

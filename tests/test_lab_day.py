@@ -95,3 +95,13 @@ def test_bad_day_settings_are_named():
         'welfare.day_starts: must be a local time "HH:MM" from "00:00" to "23:59", the start of the lab\'s day '
         "for water today (got '6am')",
     ]
+
+
+def test_check_says_which_day_water_today_adds_up_over():
+    """`rigloop check` names the day's start and zone, and says when it is only the default."""
+    from rigloop.rules import load_example
+    from rigloop.rules.plan import describe
+
+    text = describe(load_example("tone_reversal"))
+    assert ("'water today' adds up over a day that starts at 00:00 UTC (the default: set [welfare] timezone "
+            "and day_starts to your lab's day)") in text

@@ -81,6 +81,10 @@ def describe(rules, profile=None) -> str:
     add(f"  daily minimum {fmt(w.daily_min_ml)} mL: warns after {fmt(w.warn_after_min)} min when the session is "
         f"on track to fall short over {fmt(w.planned_min)} planned minutes")
     add(f"  no single reward above {fmt(w.max_reward_ul)} µL")
+    day = f"starts at {w.day_starts} {w.timezone}"
+    if w.timezone == "UTC" and w.day_starts == "00:00":
+        day += " (the default: set [welfare] timezone and day_starts to your lab's day)"
+    add(f"  'water today' adds up over a day that {day}")
     if w.relax:
         add(f"  loosened on purpose: {', '.join(w.relax)}")
     from .lint import glossary, warnings

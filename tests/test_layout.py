@@ -36,7 +36,16 @@ LAYERS = [
     {"__init__", "__main__", "trial", "step", "subject", "examples"},
 ]
 # the one module each optional dependency may be imported in
-OPTIONAL = {"matplotlib": "outputs/report.py", "scipy": "fit/search.py", "numba": "offline/batch_kernels.py"}
+OPTIONAL = {
+    "matplotlib": "outputs/report.py",
+    "scipy": "fit/search.py",
+    "numba": "offline/batch_kernels.py",
+    "pandas": "outputs/frames.py",  # rigloop.open's DataFrames and the Parquet export (pyarrow through pandas)
+    "pyarrow": "outputs/frames.py",
+    "pynwb": "outputs/nwb.py",
+    "starlette": "serve/web.py",
+    "uvicorn": "serve/web.py",
+}
 
 
 def _imports(path: pathlib.Path):

@@ -20,6 +20,8 @@ General layout: one room per job, each importing only the rooms above it in this
   demo/      `make demo`
   cli/       argument parsing and wiring only
 
+``rigloop.open(path)`` reads a store as pandas DataFrames (outputs/frames.py).
+
 The scripting API keeps its paths: rigloop.rules.load (load_rules_file), rigloop.subject
 (new_subject), rigloop.step (begin_session, step), rigloop.trial (the value types).
 """
@@ -27,6 +29,16 @@ The scripting API keeps its paths: rigloop.rules.load (load_rules_file), rigloop
 from .core.trial import CuePresentation, Decision, Outcome, Response, TrialEvent
 from .errors import BadArgument, BadEvent, RigloopError, RuleError, StoreError, WireError
 from .version import __version__
+
+
+def open(path):  # noqa: A001  (rigloop.open, as the analysis API reads; the builtin is untouched elsewhere)
+    """The store at ``path`` opened read-only as pandas DataFrames (``rigloop.outputs.frames.Frames``).
+
+    Imported on first use, so ``import rigloop`` stays light (no pandas until then)."""
+    from .outputs.frames import Frames
+
+    return Frames(path)
+
 
 __all__ = [
     "BadArgument",

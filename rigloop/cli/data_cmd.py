@@ -45,7 +45,8 @@ def add_export(sub: argparse._SubParsersAction) -> None:
     add_store(p, subject_required=False, subject_help="only this subject (default: every subject)")
     add_session(p)
     p.add_argument("--what", choices=("trials", "decisions", "quantities"), default="trials", help="what to write")
-    p.add_argument("--format", choices=("csv", "jsonl"), default="csv", help="the file format")
+    p.add_argument("--format", choices=("csv", "jsonl", "parquet"), default="csv",
+                   help="the file format (parquet: the columns of rigloop.open's DataFrames; needs --out)")
     p.add_argument("--out", default="-", help="output file (default: standard output)")
     p.set_defaults(func=_run_export)
 
@@ -53,6 +54,8 @@ def add_export(sub: argparse._SubParsersAction) -> None:
 def _run_export(args: argparse.Namespace) -> int:
     from ..offline.tables import export
 
+    if args.format == "parquet":
+        return _run_export_parquet(args)
     with open_store(args.db) as store:
         if args.out == "-":
             n = export(store, args.what, args.format, sys.stdout, subject=args.subject, session=args.session)
@@ -61,6 +64,17 @@ def _run_export(args: argparse.Namespace) -> int:
                 n = export(store, args.what, args.format, fh, subject=args.subject, session=args.session)
     print(f"{n:,} {args.what} rows written to {args.out if args.out != '-' else 'standard output'}",
           file=sys.stderr)
+    return 0
+
+
+def _run_export_parquet(args: argparse.Namespace) -> int:
+    from ..errors import BadArgument
+    from ..outputs.frames import export_parquet
+
+    if args.out == "-":
+        raise BadArgument("--out", "a file path for a Parquet file (a binary format)", args.out)
+    n = export_parquet(args.db, args.what, args.out, subject=args.subject, session=args.session)
+    print(f"{n:,} {args.what} rows written to {args.out}", file=sys.stderr)
     return 0
 
 

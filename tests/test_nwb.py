@@ -160,3 +160,21 @@ def test_nwb_inspector_finds_no_critical_problem(tone, tmp_path):
     found = [m for m in inspector.inspect_nwbfile(nwbfile_path=done.path)
              if m.importance.name in ("CRITICAL", "PYNWB_VALIDATION")]
     assert not found, found
+
+
+def test_export_command_writes_nwb_and_needs_a_subject(tmp_path, capsys):
+    from rigloop.cli import main
+
+    _store(tmp_path / "a.sqlite", "gonogo_shaping")
+    out = tmp_path / "m1.nwb"
+    argv = ["export", "--db", str(tmp_path / "a.sqlite"), "--format", "nwb"]
+    assert main([*argv, "--subject", "m1", "--out", str(out)]) == 0
+    assert "90 trials of 2 session(s)" in capsys.readouterr().err
+    io, nwb = _read(out)
+    with io:
+        assert len(nwb.trials) == 90 and nwb.subject.subject_id == "m1"
+    assert main([*argv, "--out", str(tmp_path / "x.nwb")]) == 2
+    assert "--subject" in capsys.readouterr().err
+    assert main([*argv, "--subject", "m1"]) == 2  # standard output is no place for HDF5
+    assert "--out" in capsys.readouterr().err
+    assert not (tmp_path / "x.nwb").exists()

@@ -45,8 +45,10 @@ def add_export(sub: argparse._SubParsersAction) -> None:
     add_store(p, subject_required=False, subject_help="only this subject (default: every subject)")
     add_session(p)
     p.add_argument("--what", choices=("trials", "decisions", "quantities"), default="trials", help="what to write")
-    p.add_argument("--format", choices=("csv", "jsonl", "parquet"), default="csv",
-                   help="the file format (parquet: the columns of rigloop.open's DataFrames; needs --out)")
+    p.add_argument("--format", choices=("csv", "jsonl", "parquet", "nwb"), default="csv",
+                   help="the file format (parquet: the columns of rigloop.open's DataFrames; needs --out; "
+                        "nwb: one file per subject with all its sessions, trials and regressors, "
+                        "needs --subject and --out)")
     p.add_argument("--out", default="-", help="output file (default: standard output)")
     p.set_defaults(func=_run_export)
 
@@ -56,6 +58,8 @@ def _run_export(args: argparse.Namespace) -> int:
 
     if args.format == "parquet":
         return _run_export_parquet(args)
+    if args.format == "nwb":
+        return _run_export_nwb(args)
     with open_store(args.db) as store:
         if args.out == "-":
             n = export(store, args.what, args.format, sys.stdout, subject=args.subject, session=args.session)
@@ -78,22 +82,76 @@ def _run_export_parquet(args: argparse.Namespace) -> int:
     return 0
 
 
+def _run_export_nwb(args: argparse.Namespace) -> int:
+    from ..errors import BadArgument
+    from ..outputs.nwb import write_nwb
+
+    if args.subject is None:
+        raise BadArgument("--subject", "the subject to write (an NWB file holds one subject)", None)
+    if args.session is not None:
+        raise BadArgument("--session", "no session (an NWB file holds all of a subject's sessions)",
+                          args.session)
+    if args.out == "-":
+        raise BadArgument("--out", "a file path for an NWB file (a binary format)", args.out)
+    with open_store(args.db) as store:
+        done = write_nwb(store, args.subject, args.out)
+    print(f"{done.trials:,} trials of {done.sessions} session(s) and {done.td_errors:,} prediction errors "
+          f"of subject {args.subject} written to {done.path}", file=sys.stderr)
+    return 0
+
+
 def add_report(sub: argparse._SubParsersAction) -> None:
-    p = sub.add_parser("report", help="plot a subject's learning (values ± sd, learning curve, errors)")
-    add_store(p)
-    p.add_argument("--out", default=None, help="image path (default: SUBJECT.png)")
+    p = sub.add_parser("report", help="figures for a lab meeting: one subject's learning, responses and water, "
+                                      "or one figure per cohort (--cohort)")
+    add_store(p, subject_required=False, subject_help="the subject's name, as stored (one animal's figure)")
+    p.add_argument("--cohort", action="store_true", help="one figure for several animals (see --subjects)")
+    p.add_argument("--subjects", default="all", metavar="A,B,...|all",
+                   help="the cohort's subjects, comma-separated, or all (default: all)")
+    p.add_argument("--out", default=None, help="PNG, or vector PDF/SVG, by extension (default: SUBJECT.png or "
+                                               "cohort.png)")
     p.set_defaults(func=_run_report)
 
 
-def _run_report(args: argparse.Namespace) -> int:
-    from ..outputs.report import plot_subject
+def _subject_rows(store, subject: str) -> dict:
+    """What the figures read of one stored subject: its rows and its sessions."""
     from ..replay import stored_sessions
 
+    stored_sessions(store, subject)
+    return {"quantities": list(store.rows("quantities", subject=subject)),
+            "decisions": list(store.rows("decisions", subject=subject)),
+            "trials": list(store.rows("trials", subject=subject)), "sessions": store.sessions(subject)}
+
+
+def _cohort_names(store, text: str) -> list[str]:
+    """The subjects ``--subjects`` names (``all``: every stored subject), each checked to be stored."""
+    from ..errors import BadArgument
+
+    known = store.subjects()
+    names = known if text.strip() == "all" else [n.strip() for n in text.split(",") if n.strip()]
+    missing = [n for n in names if n not in known]
+    if missing or not names:
+        raise BadArgument("--subjects", f"stored subjects, comma-separated, or all (stored: {', '.join(known)})",
+                          text)
+    return names
+
+
+def _run_report(args: argparse.Namespace) -> int:
+    from ..errors import BadArgument
+    from ..outputs.report import check_out, plot_subject, title_for
+
+    if not args.cohort and args.subject is None:
+        raise BadArgument("--subject", "a subject's name, or --cohort for a cohort figure", None)
+    out = check_out(args.out or ("cohort.png" if args.cohort else f"{args.subject}.png"))  # before any reading
     with open_store(args.db) as store:
-        stored_sessions(store, args.subject)
-        q = list(store.rows("quantities", subject=args.subject))
-        d = list(store.rows("decisions", subject=args.subject))
-        t = list(store.rows("trials", subject=args.subject))
-    out = plot_subject(q, d, args.out or f"{args.subject}.png", trials=t, title=f"subject {args.subject}")
-    print(f"wrote {out} ({len(q):,} trials)")
+        if args.cohort:
+            from ..outputs.cohort_report import plot_cohort
+
+            rows = {name: _subject_rows(store, name) for name in _cohort_names(store, args.subjects)}
+            plot_cohort(rows, out)
+            print(f"wrote {out} ({len(rows)} subjects, {sum(len(r['quantities']) for r in rows.values()):,} trials)")
+            return 0
+        rows = _subject_rows(store, args.subject)
+    plot_subject(rows["quantities"], rows["decisions"], out, trials=rows["trials"], sessions=rows["sessions"],
+                 title=title_for(args.subject, rows["sessions"]))
+    print(f"wrote {out} ({len(rows['quantities']):,} trials)")
     return 0

@@ -12,17 +12,18 @@ The modules, from the bottom up:
 
   records   the values kept and returned (SessionInfo, CommitResult, Snapshot), canonical
             JSON, one trial's commit checked and encoded; pure
-  schema    the DDL, SCHEMA_VERSION, creating a new file's tables, the v1 -> v2 migration
+  schema    the DDL, SCHEMA_VERSION, creating a new file's tables, the v1 -> v2 -> v3 migrations
   db        the connection: header and application-id checks, pragmas, durable writes and
             reads, stopping after a failed write
   reading   read-only queries (``Reader``): sessions, paged trials / decisions / export
-            rows, snapshots, statistics
+            rows, snapshots, water (rewards, ``Supplement`` entries), statistics
   store     ``Store``: a ``Reader`` that also opens and closes sessions, commits trials
-            (one or a group per transaction) and saves snapshots
+            (one or a group per transaction), saves snapshots and records supplements
 """
 
 from __future__ import annotations
 
+from .reading import Supplement
 from .records import BatchItem, CommitResult, SessionInfo, Snapshot, canonical_json, rules_digest
 from .schema import APPLICATION_ID, SCHEMA_VERSION
 from .store import Store
@@ -35,6 +36,7 @@ __all__ = [
     "SessionInfo",
     "Snapshot",
     "Store",
+    "Supplement",
     "canonical_json",
     "rules_digest",
 ]

@@ -89,6 +89,7 @@ class Database:
                 if version < schema.SCHEMA_VERSION:
                     # one transaction: a crash leaves the old file as it was
                     _upgrade(c, 1, schema.migrate_v1)
+                    _upgrade(c, 2, schema.migrate_v2)
                     tables = schema.tables(c)
                 missing = schema.TABLES - tables
                 if missing:

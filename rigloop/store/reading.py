@@ -1,5 +1,5 @@
 """Read-only queries of the store: sessions, trials, decisions, the flat rows of an
-export, snapshots and statistics (``Reader``, the read half of ``Store``), and the few
+export, snapshots, water (rewards on the rig, supplements) and statistics (``Reader``, the read half of ``Store``), and the few
 lookups that a write also makes inside its own transaction.
 
 The iterators read in pages, so no cursor stays open across a ``yield``: a ``Store``
@@ -14,6 +14,7 @@ import json
 import os
 import sqlite3
 from collections.abc import Iterator
+from dataclasses import dataclass
 from typing import Any
 
 from ..core.trial import Decision, TrialEvent
@@ -25,6 +26,20 @@ from .schema import SCHEMA_VERSION
 _PAGE = 1000  # rows per page in the iterators
 _SESSION_COLS = ("subject, session, rig, rules_name, rules_text, rules_sha256, seed, opened_at, profile, meta, "
                  "closed_at")
+
+
+
+
+@dataclass(frozen=True)
+class Supplement:
+    """Water given off the rig: ``volume_ul`` µL to ``subject``, counted toward lab day
+    ``day`` (YYYY-MM-DD), entered at ``recorded_at`` (Unix seconds) with a free ``note``."""
+
+    subject: str
+    day: str
+    volume_ul: float
+    recorded_at: float
+    note: str
 
 
 # --------------------------------------------------------------------------- lookups on a connection
@@ -191,10 +206,27 @@ class Reader:
                 blob = bytes(blob)
                 yield Snapshot(subj, sess, trial, blob, sha, hashlib.sha256(blob).hexdigest() == sha, created)
 
+    # -- water --------------------------------------------------------------------
+
+    def rewards(self, subject: str, session: str) -> list[tuple[float, float]]:
+        """``(wall_time, reward_ul)`` of each of the session's rewarded trials, in trial order:
+        the water the animal earned on the rig."""
+        return self._database.read("SELECT wall_time, reward_ul FROM trials WHERE subject = ? AND session = ? "
+                                   "AND reward_ul > 0 ORDER BY trial", (subject, session))
+
+    def supplements(self, subject: str | None = None) -> list[Supplement]:
+        """The water given off the rig (all subjects, or one), by subject, day and entry order."""
+        sql = "SELECT subject, day, volume_ul, recorded_at, note FROM supplements"
+        if subject is None:
+            rows = self._database.read(sql + " ORDER BY subject, day, id")
+        else:
+            rows = self._database.read(sql + " WHERE subject = ? ORDER BY day, id", (subject,))
+        return [Supplement(*r) for r in rows]
+
     def statistics(self) -> dict[str, Any]:
         """Row counts, file and WAL sizes in bytes, schema and SQLite versions."""
         counts = {}
-        for table in ("subjects", "sessions", "trials", "snapshots"):
+        for table in ("subjects", "sessions", "trials", "snapshots", "supplements"):
             counts[table] = self._database.read(f"SELECT COUNT(*) FROM {table}")[0][0]
         counts["decisions"] = counts["quantities"] = counts["trials"]  # one row holds all three
         return {

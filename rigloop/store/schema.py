@@ -1,12 +1,14 @@
 """The store's tables: the DDL, the schema version, creating a new file's tables and the
-migration from schema version 1.
+migrations from schema versions 1 and 2.
 
 One row of ``trials`` holds a trial's event, the decision it produced and its model
 quantities, each as canonical JSON text (sorted keys, no spaces, floats as ``repr`` so they
 round-trip exactly), plus key columns for queries; the views ``decisions`` and
 ``quantities`` show them as tables of their own. One row per trial keeps a commit to one
 table page and one index page in the usual case, so a durable commit writes little to
-the WAL. A store written by schema version 1 (three tables) is migrated when opened.
+the WAL. ``supplements`` holds the water given off the rig (schema 3), one row per entry,
+kept for the water ledger. A store written by schema version 1 (three tables) or 2 (no
+supplements) is migrated when opened.
 
 The functions here run inside a transaction their caller holds (``db.py`` starts it).
 """
@@ -15,10 +17,10 @@ from __future__ import annotations
 
 import sqlite3
 
-SCHEMA_VERSION = 2
+SCHEMA_VERSION = 3
 # PRAGMA application_id marks the file as a rigloop store: "RGLP" as a 32-bit integer.
 APPLICATION_ID = 0x52474C50
-TABLES = frozenset({"subjects", "sessions", "trials", "snapshots"})
+TABLES = frozenset({"subjects", "sessions", "trials", "snapshots", "supplements"})
 # the columns an INSERT into trials fills (all but the storage-order id)
 TRIAL_COLUMNS = ("subject, session, trial, rig, wall_time, first_cue, reward_ul, result, event, "
                  "next_trial, cue, block, stage, reward_armed, end_session, decision, quantities")
@@ -53,6 +55,17 @@ CREATE VIEW decisions AS
     FROM trials;
 CREATE VIEW quantities AS
     SELECT subject, session, trial, quantities AS data FROM trials;
+"""
+_SCHEMA_SUPPLEMENTS = """
+CREATE TABLE supplements (
+    id          INTEGER PRIMARY KEY,        -- entry order
+    subject     TEXT NOT NULL,              -- as on the rig (an animal not yet trained may have entries)
+    day         TEXT NOT NULL,              -- the lab day it counts toward, YYYY-MM-DD
+    volume_ul   REAL NOT NULL CHECK (volume_ul > 0),
+    recorded_at REAL NOT NULL,              -- Unix seconds when it was entered
+    note        TEXT NOT NULL
+);
+CREATE INDEX supplements_by_subject ON supplements (subject, day);
 """
 _SCHEMA = ("""
 CREATE TABLE subjects (
@@ -89,7 +102,7 @@ CREATE TABLE snapshots (
     UNIQUE (subject, session, trial),
     FOREIGN KEY (subject, session) REFERENCES sessions(subject, session)
 );
-""")
+""" + _SCHEMA_SUPPLEMENTS)
 
 
 def version(c: sqlite3.Connection) -> int:
@@ -127,6 +140,12 @@ def migrate_v1(c: sqlite3.Connection) -> None:
         c.execute(f"DROP TABLE {table}")
     _execute_all(c, _SCHEMA_VIEWS)
     c.execute("PRAGMA user_version = 2")
+
+
+def migrate_v2(c: sqlite3.Connection) -> None:
+    """Schema 2 -> 3: add the (empty) supplements table; nothing else changes."""
+    _execute_all(c, _SCHEMA_SUPPLEMENTS)
+    c.execute("PRAGMA user_version = 3")
 
 
 def _execute_all(c: sqlite3.Connection, script: str) -> None:

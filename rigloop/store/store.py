@@ -11,8 +11,10 @@ One ``Store`` may be shared between threads: each call takes the connection's lo
 
 from __future__ import annotations
 
+import datetime as _dt
 import hashlib
 import json
+import math
 import os
 import sqlite3
 import time
@@ -21,7 +23,7 @@ from collections.abc import Mapping, Sequence
 from ..core.trial import Decision, TrialEvent
 from ..errors import BadArgument, ConflictingTrial, RigloopError, StoreError
 from .db import Database
-from .reading import Reader, session_in, session_known, stored_texts
+from .reading import Reader, Supplement, session_in, session_known, stored_texts
 from .records import (
     BatchItem,
     CommitResult,
@@ -34,6 +36,9 @@ from .records import (
 )
 from .schema import TRIAL_COLUMNS
 
+# one supplement entry above this is refused as a slip (a mouse's whole daily ration is about
+# 1-3 mL: recalled from memory, not a protocol)
+MAX_SUPPLEMENT_UL = 10_000.0
 _INSERT_TRIAL = (f"INSERT INTO trials ({TRIAL_COLUMNS}) "
                  "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?) ON CONFLICT DO NOTHING")
 
@@ -221,6 +226,23 @@ class Store(Reader):
             self._put_snapshot(c, *key, p.snapshot)
         return CommitResult(d, False)
 
+    # -- water ------------------------------------------------------------------------
+
+    def add_supplement(self, subject: str, day: str, volume_ul: float, note: str = "",
+                       recorded_at: float | None = None) -> Supplement:
+        """Record water given to ``subject`` off the rig, counted toward lab day ``day``
+        (YYYY-MM-DD), in its own transaction; returns what was stored."""
+        entry = Supplement(_subject_name(subject), _day_text(day), _supplement_ul(volume_ul),
+                           time.time() if recorded_at is None else seconds("recorded_at", recorded_at),
+                           _note_text(note))
+
+        def work(c: sqlite3.Connection) -> None:
+            c.execute("INSERT INTO supplements (subject, day, volume_ul, recorded_at, note) VALUES (?, ?, ?, ?, ?)",
+                      (entry.subject, entry.day, entry.volume_ul, entry.recorded_at, entry.note))
+
+        self._database.write(work)
+        return entry
+
     # -- snapshots ----------------------------------------------------------------
 
     def save_snapshot(self, subject: str, session: str, trial: int, blob: bytes) -> None:
@@ -245,3 +267,38 @@ class Store(Reader):
             "sha256 = excluded.sha256",
             (subject, session, trial, time.time(), blob, hashlib.sha256(blob).hexdigest()),
         )
+
+
+def _subject_name(subject: object) -> str:
+    """A supplement's subject: a non-empty name."""
+    if not isinstance(subject, str) or not subject.strip():
+        raise BadArgument("subject", "a non-empty name", subject)
+    return subject
+
+
+def _day_text(day: object) -> str:
+    """A lab day as YYYY-MM-DD."""
+    if isinstance(day, str) and len(day) == 10:
+        try:
+            return _dt.date.fromisoformat(day).isoformat()
+        except ValueError:
+            pass
+    raise BadArgument("day", "a date YYYY-MM-DD", day)
+
+
+def _supplement_ul(volume: object) -> float:
+    """A supplement's volume in µL: a number > 0 and at most MAX_SUPPLEMENT_UL."""
+    if isinstance(volume, bool) or not isinstance(volume, (int, float)) or not math.isfinite(volume) or volume <= 0:
+        raise BadArgument("volume_ul", "a volume in µL > 0", volume)
+    if volume > MAX_SUPPLEMENT_UL:
+        raise BadArgument("volume_ul", f"at most {MAX_SUPPLEMENT_UL / 1000:g} mL ({MAX_SUPPLEMENT_UL:g} µL) in one "
+                                       "entry; record a larger amount as several entries if it is really meant",
+                          volume)
+    return float(volume)
+
+
+def _note_text(note: object) -> str:
+    """A supplement's note: text (may be empty)."""
+    if not isinstance(note, str):
+        raise BadArgument("note", "text", note)
+    return note

@@ -1,4 +1,4 @@
-"""Daemon commands: ``serve`` runs it; ``watch`` and ``status`` read a running one; ``keys``
+"""Daemon commands: ``serve`` runs it; ``watch``, ``web`` and ``status`` read a running one; ``keys``
 makes its CURVE keys.
 
 Each ``add_<name>`` declares a command's arguments; its runner imports the work lazily
@@ -129,6 +129,24 @@ def _run_watch(args: argparse.Namespace) -> int:
     from ..serve.watch import main as watch_main
 
     return watch_main(args)
+
+
+def add_web(sub: argparse._SubParsersAction) -> None:
+    p = sub.add_parser("web", help="the live room page: every rig and animal of a daemon's data directory")
+    add_data_dir(p, "the daemon's data directory (its store, and daemon.json for the observer stream)",
+                 required=True)
+    p.add_argument("--listen", default="127.0.0.1:8080", metavar="HOST:PORT",
+                   help="where the page is served (default 127.0.0.1:8080, loopback; read only, no login)")
+    p.add_argument("--publish", metavar="ADDR",
+                   help="the daemon's PUB endpoint (default: the one in DIR/daemon.json, looked for until found)")
+    p.set_defaults(func=_run_web)
+
+
+def _run_web(args: argparse.Namespace) -> int:
+    from ..outputs.report import plot_subject
+    from ..serve.web import serve_web
+
+    return serve_web(args.data, args.listen, publish=args.publish, draw=plot_subject)
 
 
 def add_status(sub: argparse._SubParsersAction) -> None:

@@ -103,7 +103,8 @@ def _run_export_nwb(args: argparse.Namespace) -> int:
 def add_report(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser("report", help="figures for a lab meeting: one subject's learning, responses and water, "
                                       "or one figure per cohort (--cohort)")
-    add_store(p, subject_required=False, subject_help="the subject's name, as stored (one animal's figure)")
+    add_store(p, subject_required=False,
+              subject_help="the subject's name, as stored: one animal's figure (default: none; then --cohort)")
     p.add_argument("--cohort", action="store_true", help="one figure for several animals (see --subjects)")
     p.add_argument("--subjects", default="all", metavar="A,B,...|all",
                    help="the cohort's subjects, comma-separated, or all (default: all)")

@@ -112,3 +112,29 @@ def test_headless_browser_shows_the_subject(room, tmp_path):
     assert shot.exists() and shot.stat().st_size > 1000
     if os.environ.get("RIGLOOP_KEEP_SCREENSHOT"):
         shutil.copy(shot, os.environ["RIGLOOP_KEEP_SCREENSHOT"])
+
+
+def test_watch_shows_every_subject_from_the_start_and_wraps_reasons(room):
+    """``rigloop watch --data DIR`` lists a subject that has not changed since it started,
+    and every reason of its newest decision appears whole, wrapped under the reason column."""
+    import io
+    import re
+    from types import SimpleNamespace
+
+    from rigloop.serve.watch import Table, render
+    from rigloop.serve.watch import main as watch_main
+
+    d, rig, web, first = room
+    out = io.StringIO()
+    args = SimpleNamespace(publish=None, data=d.settings.data, once=False, count=None, timeout=0.5, plain=True)
+    assert watch_main(args, out) == 0
+    text = out.getvalue()
+    assert "m1" in text and "acquisition" in text
+    table = Table()
+    table.load(web.app.state.room.snapshot())
+    for width in (110, 220):  # reasons below the row, then beside it
+        drawn = render(table, width=width)
+        assert width == 110 or all(len(line) <= width for line in drawn.splitlines())
+        flat = re.sub(r"\s+", " ", drawn)
+        for reason in first.decision.reasons:
+            assert re.sub(r"\s+", " ", reason) in flat

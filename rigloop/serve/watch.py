@@ -4,14 +4,17 @@
 The daemon publishes one msgpack map per event on its PUB socket, topic = subject id:
 ``{"type": "trial" | "session_opened" | "session_closed", "subject", "session", ...,
 "summary": {...}}``. ``Table`` folds those maps into one row per subject; ``render``
-draws it as text. The screen is redrawn with plain ANSI codes (home + clear), no
-curses; ``--plain`` prints each table below the last instead.
+draws it as text, every reason of the newest decision wrapped under the reason
+column (never cut). With ``--data`` the table starts with every subject in the store
+(read only), so subjects show before they change. The screen is redrawn with plain
+ANSI codes (home + clear), no curses; ``--plain`` prints each table below the last instead.
 """
 
 from __future__ import annotations
 
 import json
 import sys
+import textwrap
 import time
 from collections.abc import Mapping
 from typing import Any
@@ -48,8 +51,21 @@ class Table:
         if isinstance(decision, Mapping):
             reasons = decision.get("reasons") or []
             row["last"] = {"trial": decision.get("trial"), "cue": decision.get("cue"),
-                           "reward_prob": decision.get("reward_prob"), "reason": reasons[0] if reasons else ""}
+                           "reward_prob": decision.get("reward_prob"), "reason": "; ".join(map(str, reasons))}
         self.updates += 1
+
+    def load(self, rows: Mapping[str, Mapping[str, Any]]) -> None:
+        """Start from the room's rows (``serve.room``: the store), before any update."""
+        for subject, r in rows.items():
+            row = self.rows.setdefault(subject, {"subject": subject})
+            for key in ("rig", "trial", "stage", "block", "ul_today", "values", "p_correct"):
+                if r.get(key) is not None:
+                    row[key] = r[key]
+            row["session"] = f"{r.get('session')} (closed)" if r.get("closed") else r.get("session")
+            d = r.get("decision")
+            if d:
+                row["last"] = {"trial": d.get("trial"), "cue": d.get("cue"), "reward_prob": d.get("reward_prob"),
+                               "reason": "; ".join(map(str, d.get("reasons") or []))}
 
 
 def _num(x: Any, fmt: str = "{:.2f}") -> str:
@@ -58,7 +74,9 @@ def _num(x: Any, fmt: str = "{:.2f}") -> str:
 
 def render(table: Table, width: int = 160) -> str:
     """The table as text: subject, rig, session, trial, block, stage, value ± sd per
-    cue, response probability with its 95% band, µL today, last decision and reason."""
+    cue, response probability with its 95% band, µL today, last decision and its reasons
+    (wrapped under the reason column, or on their own lines below the row when fewer
+    than 30 characters of ``width`` are left for them)."""
     head = ["subject", "rig", "session", "trial", "stage", "block", "values (mean ± sd)", "p(correct) [95%]",
             "µL today", "next", "reason"]
     lines = []
@@ -75,14 +93,21 @@ def render(table: Table, width: int = 160) -> str:
                       _num(r.get("ul_today"), "{:.0f}"), nxt, str(last.get("reason") or "")])
     widths = [max(len(h), *(len(row[i]) for row in lines)) if lines else len(h) for i, h in enumerate(head)]
     widths[-1] = len(head[-1])
+    indent = sum(widths[:-1]) + 2 * (len(widths) - 1)
+    beside = width - indent >= 30  # else the reasons go on their own lines below the row
 
-    def fmt(row: list[str]) -> str:
-        text = "  ".join(c.ljust(w) for c, w in zip(row, widths, strict=True))
-        return text[:width]
+    def fmt(row: list[str]) -> list[str]:
+        left = "  ".join(c.ljust(w) for c, w in zip(row[:-1], widths[:-1], strict=True)) + "  "
+        if not beside:
+            parts = textwrap.wrap(row[-1], max(30, width - 4), break_on_hyphens=False)
+            return [left.rstrip()] + ["    " + p for p in parts]
+        parts = textwrap.wrap(row[-1], width - indent, break_on_hyphens=False) or [""]
+        return [(left + parts[0]).rstrip()] + [" " * indent + p for p in parts[1:]]
 
-    out = [f"rigloop watch — {len(table.rows)} subjects, {table.updates} updates", fmt(head),
-           fmt(["-" * w for w in widths])]
-    out += [fmt(row) for row in lines]
+    out = [f"rigloop watch — {len(table.rows)} subjects, {table.updates} updates", *fmt(head),
+           *fmt(["-" * w for w in widths])]
+    for row in lines:
+        out += fmt(row)
     return "\n".join(out) + "\n"
 
 
@@ -100,6 +125,20 @@ def _endpoint(args: Any, key: str, default: str) -> str:
     return default
 
 
+def _stored_rows(data: str) -> dict[str, dict[str, Any]]:
+    """Every subject of the store in ``data`` (read only; none when there is no store yet)."""
+    from pathlib import Path
+
+    from ..store import Store
+    from .room import rows_from_store
+
+    path = Path(data) / "rigloop.sqlite"
+    if not path.exists():
+        return {}
+    with Store(path, create=False) as store:
+        return rows_from_store(store)
+
+
 def main(args: Any, out=None) -> int:
     """Subscribe and redraw until ``--count``/``--once``/``--timeout`` or Ctrl-C."""
     out = out or sys.stdout
@@ -110,6 +149,11 @@ def main(args: Any, out=None) -> int:
     ctx = zlink.new_context()
     sub = zlink.SubLink(ctx, endpoint)
     table = Table()
+    if getattr(args, "data", None):
+        table.load(_stored_rows(args.data))
+        if count is None and table.rows:
+            out.write(("" if plain else CLEAR) + render(table))
+            out.flush()
     deadline = None if timeout is None else time.monotonic() + timeout
     last_draw = 0.0
     try:

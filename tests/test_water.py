@@ -153,6 +153,8 @@ def test_cli_add_and_ledger(tmp_path, rules, capsys):
     back = {(r["subject"], r["day"]): r for r in csv.DictReader(out_csv.open(encoding="utf-8"))}
     assert back[("m1", "2027-01-16")]["supplement_ml"] == "0.900" and back[("m1", "2027-01-16")]["below_min"] == "no"
     assert back[("m3", "2027-01-16")]["daily_min_ml"] == "" and back[("m3", "2027-01-16")]["below_min"] == "no"
+    assert main(["water", "--db", db, "--until", "2027-13-01"]) == 2
+    assert "'until' must be a date YYYY-MM-DD (got '2027-13-01')" in capsys.readouterr().err
     assert main(["water", "--db", db, "--data", str(data)]) == 2
     assert "exactly one of them" in capsys.readouterr().err
 

@@ -24,14 +24,14 @@ def add_water(sub: argparse._SubParsersAction) -> None:
     p.add_argument("words", nargs="*", metavar="add SUBJECT VOLUME",
                    help='nothing: show the ledger; "add SUBJECT VOLUME": record a supplement (0.4mL, 400uL, '
                         '400µL; a bare number is µL)')
-    p.add_argument("--db", default=None, help="the SQLite store (or --data)")
-    add_data_dir(p, "a daemon's data directory: use DIR/rigloop.sqlite (or --db)")
+    p.add_argument("--db", default=None, help="the SQLite store (default: none, give this or --data)")
+    add_data_dir(p, "a daemon's data directory: use DIR/rigloop.sqlite (default: none, give this or --db)")
     p.add_argument("--subject", default=None, help="only this subject (default: every subject)")
     p.add_argument("--days", type=Count(1, 3660), default=14, help="the last this many lab days")
     p.add_argument("--until", default=None, metavar="YYYY-MM-DD",
                    help="the ledger's last lab day (default: the latest day with any record)")
-    p.add_argument("--csv", default=None, metavar="OUT", help="also write the ledger as CSV to OUT ('-': stdout)")
-    p.add_argument("--note", default="", help="add: what the supplement was and who gave it")
+    p.add_argument("--csv", default=None, metavar="OUT", help="also write the ledger as CSV to OUT ('-': stdout; default: no CSV)")
+    p.add_argument("--note", default="", help="add: what the supplement was and who gave it (default: no note)")
     p.add_argument("--day", default=None, metavar="YYYY-MM-DD",
                    help="add: the lab day it counts toward (default: the subject's lab day now)")
     p.add_argument("--new", action="store_true",

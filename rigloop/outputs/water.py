@@ -111,6 +111,8 @@ def today(store, subject: str, now: float | None = None) -> str:
 def ledger(store, subject: str | None = None, days: int | None = None, until: str | None = None) -> list[WaterDay]:
     """The ledger rows, by subject (first seen first) and day: the last ``days`` lab days up
     to ``until`` (default: the latest day with any record in the store)."""
+    if until is not None and not _is_day(until):
+        raise BadArgument("until", "a date YYYY-MM-DD", until)
     limits = session_limits(store)
     subjects = _subjects(store, subject)
     per = {s: _subject_days(store, s, limits) for s in subjects}
@@ -181,6 +183,14 @@ def _filled(subject: str, raw: dict[str, dict], first: str | None, last: str) ->
                             tuple(r["notes"]) if r else ()))
         day = _shift(day, 1)
     return out
+
+
+def _is_day(text: object) -> bool:
+    """True for a real date written YYYY-MM-DD."""
+    try:
+        return isinstance(text, str) and len(text) == 10 and _dt.date.fromisoformat(text).isoformat() == text
+    except ValueError:
+        return False
 
 
 def _shift(day: str, n: int) -> str:

@@ -138,3 +138,20 @@ def test_watch_shows_every_subject_from_the_start_and_wraps_reasons(room):
         flat = re.sub(r"\s+", " ", drawn)
         for reason in first.decision.reasons:
             assert re.sub(r"\s+", " ", reason) in flat
+
+
+def test_a_card_shows_water_today_against_the_rule_files_daily_minimum(tmp_path):
+    """Water today counts over the lab's day of the newest trial, beside the session rule
+    file's daily minimum (tone_reversal: the default 1 mL)."""
+    from rigloop.offline.simulate import preset_animal, record_session
+    from rigloop.rules import load_example
+    from rigloop.serve import room, web
+    from rigloop.store import Store
+
+    rules = load_example("tone_reversal")
+    with Store(tmp_path / "w.sqlite") as store:
+        record_session(store, rules, preset_animal("typical", rules, "bk-m01", 1), session="s1", max_trials=40)
+        row = room.subject_row(store, "bk-m01")
+        earned = sum(t["reward_ul"] or 0.0 for t in store.rows("trials", "bk-m01", "s1"))
+    assert row["daily_min_ul"] == 1000.0 and row["ul_today"] == earned
+    assert "(daily minimum 1000 µL)" in web.card(row)

@@ -85,22 +85,42 @@ def subject_row(store: Any, subject: str) -> dict[str, Any] | None:
     return row
 
 
+def _limits(info) -> Any | None:
+    """The welfare limits of a stored session's own rule file (None if it no longer loads)."""
+    from ..errors import RigloopError
+    from ..rules import load_rules
+
+    try:
+        return load_rules(info.rules_text, source=f"session {info.session}").spec.welfare
+    except RigloopError:
+        return None
+
+
 def _water_today(store: Any, subject: str, sessions: list) -> dict[str, Any]:
-    """µL delivered on the UTC day of the subject's newest trial, over every session that day."""
+    """µL delivered on the lab's day of the subject's newest trial (the day the rule file's
+    ``[welfare] timezone`` and ``day_starts`` set; UTC by default), over every session that
+    day, and that rule file's daily minimum in µL."""
+    from ..rules.welfare import lab_day
+
+    limits = _limits(sessions[-1])
     newest = None
     for t in store.rows("trials", subject, sessions[-1].session):
         newest = t["wall_time"]
+    minimum = None if limits is None else float(limits.daily_min_ml) * 1000.0
     if newest is None:
-        return {"ul_today": 0.0, "day": None}
+        return {"ul_today": 0.0, "day": None, "daily_min_ul": minimum}
     start = newest - newest % DAY_S
+    day = None if limits is None else lab_day(newest, limits)
     total = 0.0
     for info in sessions:
-        if info.closed_at is not None and info.closed_at < start:
-            continue
+        if info.closed_at is not None and info.closed_at < start - DAY_S:
+            continue  # closed before the day could have begun, in any time zone
         for t in store.rows("trials", subject, info.session):
-            if start <= (t["wall_time"] or 0.0) < start + DAY_S:
+            w = t["wall_time"] or 0.0
+            same = lab_day(w, limits) == day if limits is not None else start <= w < start + DAY_S
+            if same:
                 total += t["reward_ul"] or 0.0
-    return {"ul_today": total, "day": start}
+    return {"ul_today": total, "day": day if day is not None else start, "daily_min_ul": minimum}
 
 
 def rows_from_store(store: Any) -> dict[str, dict[str, Any]]:

@@ -40,6 +40,12 @@ HEARTBEAT_S = 15.0
 # --------------------------------------------------------------------------- drawing
 
 
+def _minimum(row: Mapping[str, Any]) -> str:
+    """`` of the daily minimum N µL`` when the rule file says it (the protocol's, not rigloop's)."""
+    m = row.get("daily_min_ul")
+    return "" if m is None else f' <span class="min">(daily minimum {_num(m, "{:.0f}")} µL)</span>'
+
+
 def sparkline(points: list, width: int = 160, height: int = 36) -> str:
     """An inline SVG of P over the trials: the 95% band shaded, the estimate as a line."""
     if not points:
@@ -75,7 +81,7 @@ def card(row: Mapping[str, Any], detail: bool = False) -> str:
     head = (f'<h2><a href="/subject/{e(s)}">{e(s)}</a> <span class="rig">on {e(str(row.get("rig", "–")))}</span></h2>'
             f'<div class="meta">session {session} · trial <b class="trial">{e(str(row.get("trial", "–")))}</b>'
             f' · stage <b>{e(str(row.get("stage") or "–"))}</b> · block <b>{e(str(row.get("block") or "–"))}</b>'
-            f' · water today <b>{_num(row.get("ul_today"), "{:.0f}")} µL</b></div>')
+            f' · water today <b>{_num(row.get("ul_today"), "{:.0f}")} µL</b>{_minimum(row)}</div>')
     cues = []
     for cue, pts in sorted((row.get("behaviour") or {}).items()):
         last = pts[-1] if pts else None

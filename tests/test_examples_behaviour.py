@@ -126,3 +126,17 @@ def test_gonogo_learners_reach_criterion_and_maintenance():
         runs = _runs(rules, "typical", seed, 3, 300)
         blocks = {d.block for run in runs for d in run.decisions}
         assert "maintenance" in blocks, seed
+
+
+@pytest.mark.parametrize("example", ["tone_reversal", "gonogo_shaping", "two_choice_staircase"])
+@pytest.mark.parametrize("preset", ["side_biased", "slow_reverser", "lapsing"])
+def test_animals_that_struggle_pass_no_block_before_they_discriminate(example, preset):
+    """Side-biased, slowly reversing and lapsing animals may take longer, but no block or stage of
+    any shipped file ends before the animal's true responses tell the cues apart."""
+    rules = load_example(example)
+    early = judged = 0
+    for seed in range(3):
+        timings = T.block_timing(T.truth_trials(_runs(rules, preset, seed, 3, 300)), rules.spec)
+        early += T.ended_early(timings)
+        judged += sum(1 for t in timings if t.ended and t.judged)
+    assert early == 0, f"{early} of {judged} judged blocks ended before the animal discriminated"

@@ -47,6 +47,7 @@ import numpy as np
 from ..errors import BadArgument
 from .checks import _margin, _nonnegative, _number, _open_unit, _positive, first_bad
 from .curve import _filter_step, _z_two_sided
+from .curve import _logistic as logistic  # 1 / (1 + e^-a) without overflow: the curve's own
 
 RESPOND = "respond"  # P(respond | cue)
 RIGHT = "right"  # P(choose right | cue)
@@ -123,8 +124,7 @@ class CueEstimate:
 
     def updated(self, y: bool, sigma2: float) -> CueEstimate:
         """The estimate after one more observed trial (``y``: the response happened)."""
-        x, var, _ = _filter_step(self.x, self.var, 1 if y else 0, 0.0, _nonnegative("sigma2", sigma2))
-        return CueEstimate(x, var, self.n + 1)
+        return CueEstimate(*updated(self.as_tuple(), y, sigma2, self.var))
 
     def predictive(self, sigma2: float) -> tuple[float, float]:
         """(mean, variance) of the logit state on the cue's next trial: N(x, var + sigma2)."""
@@ -163,14 +163,6 @@ def updated(est: tuple[float, float, int] | None, y: bool, sigma2: float, prior_
                         "prior_var", var, _positive), ("sigma2", sigma2, _nonnegative))
     x, var, _ = _filter_step(x, var, 1 if y else 0, 0.0, sigma2)
     return (x, var, n + 1)
-
-
-def logistic(a: float) -> float:
-    """1 / (1 + e^-a), without overflow."""
-    if a >= 0.0:
-        return 1.0 / (1.0 + math.exp(-a))
-    e = math.exp(a)
-    return e / (1.0 + e)
 
 
 def band(mean: float, var: float, level: float = 0.95) -> tuple[float, float]:

@@ -7,25 +7,15 @@ punishments and, for action values, the action it took on each cue.
 from __future__ import annotations
 
 from . import behaviour as B
+from .derived import derived
 from .learner_setup import action_cue
 from .trial import TrialEvent
 
 
 def _actions_table(rules) -> dict[str, tuple[str, ...]] | None:
-    """cue -> its actions when the learner holds action values, else None (kept per rule file)."""
-    hit = _ACTIONS.get(id(rules))
-    if hit is not None and hit[0] is rules:
-        return hit[1]
-    table = None
-    if rules.learner.values == "cue_action":
-        table = {c: rules.spec.actions_of(c) for c in rules.cues}
-    if len(_ACTIONS) > 64:
-        _ACTIONS.clear()
-    _ACTIONS[id(rules)] = (rules, table)
-    return table
-
-
-_ACTIONS: dict[int, tuple] = {}
+    """cue -> its actions when the learner holds action values, else None (made once per rule file)."""
+    return derived(rules, "actions", lambda r: {c: r.spec.actions_of(c) for c in r.cues}
+                   if r.learner.values == "cue_action" else None)
 
 
 def _scored(event: TrialEvent) -> bool | None:

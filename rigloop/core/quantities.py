@@ -19,9 +19,12 @@ _Z95 = _z_two_sided(0.95)  # the z of the 95% bands
 
 def _behaviour_names(spec) -> tuple[tuple[str, str, str, str], ...]:
     """(cue, estimate, lower, upper quantity names) for every cue of the file (made once per file)."""
+    return derived(spec, "behaviour_names", _names_of)
+
+
+def _names_of(spec) -> tuple[tuple[str, str, str, str], ...]:
     choice = spec.choice_cues()
-    return derived(spec, "behaviour_names", lambda sp: tuple(
-        (cue, *B.quantity_names(cue, B.RIGHT if cue in choice else B.RESPOND)) for cue in sp.cues))
+    return tuple((cue, *B.quantity_names(cue, B.RIGHT if cue in choice else B.RESPOND)) for cue in spec.cues)
 
 
 def _choice_cues(spec) -> frozenset[str]:

@@ -21,10 +21,11 @@ import numpy as np
 
 from ..errors import BadEvent
 from . import behaviour as B
-from .curve import LearningCurve, _z_two_sided
+from .curve import LearningCurve
 from .experience import _action_cues, _actions_table, _is_go, _punishments, _scored
 from .learner_setup import action_cue, learner_key, new_learner, representation_for
 from .quantities import (
+    _Z95,
     _behaviour_quantities,
     _choice_cues,
     _cue_ids,
@@ -76,7 +77,6 @@ class Update:
         }
 
 
-_Z95 = _z_two_sided(0.95)  # the z of the 95% band step reports
 
 
 

@@ -13,7 +13,7 @@ from __future__ import annotations
 import re
 import threading
 from collections import deque
-from collections.abc import Iterable, Mapping
+from collections.abc import Callable, Iterable, Iterator, Mapping
 from typing import Any
 
 POINTS = 60  # trials per sparkline
@@ -207,3 +207,22 @@ def feed_all(room: Room, messages: Iterable[Mapping[str, Any]]) -> None:
     """Fold several messages (tests, replays of a stream)."""
     for m in messages:
         room.feed(m)
+
+
+def observer_messages(sub, keep_going: Callable[[], bool]) -> Iterator[dict | None]:
+    """The stream's messages read from ``sub`` (a ``SubLink``) while ``keep_going()`` holds:
+    each decoded map, or None after 200 ms without one (so a reader can look at its clock).
+    A frame that is not a msgpack map is skipped. What ``watch`` and the room page read."""
+    import msgpack
+
+    while keep_going():
+        got = sub.recv(200)
+        if got is None:
+            yield None
+            continue
+        try:
+            msg = msgpack.unpackb(got[1], raw=False)
+        except Exception:  # a malformed frame on the stream: skip it
+            continue
+        if isinstance(msg, dict):
+            yield msg

@@ -19,9 +19,8 @@ import time
 from collections.abc import Mapping
 from typing import Any
 
-import msgpack
-
 from ..links import zmq as zlink
+from .room import observer_messages
 
 CLEAR = "\x1b[H\x1b[2J"
 
@@ -156,19 +155,14 @@ def main(args: Any, out=None) -> int:
             out.flush()
     deadline = None if timeout is None else time.monotonic() + timeout
     last_draw = 0.0
+    def keep_going() -> bool:
+        return (count is None or table.updates < count) and (deadline is None or time.monotonic() < deadline)
+
     try:
-        while count is None or table.updates < count:
-            if deadline is not None and time.monotonic() >= deadline:
-                break
-            got = sub.recv(200)
-            if got is None:
+        for msg in observer_messages(sub, keep_going):
+            if msg is None:
                 continue
-            try:
-                msg = msgpack.unpackb(got[1], raw=False)
-            except Exception:  # a malformed frame on the stream: skip it
-                continue
-            if isinstance(msg, dict):
-                table.feed(msg)
+            table.feed(msg)
             now = time.monotonic()
             if count is None and now - last_draw < 0.25:
                 continue  # redraw at most 4 times a second

@@ -26,12 +26,10 @@ from collections.abc import Mapping
 from pathlib import Path
 from typing import Any
 
-import msgpack
-
 from ..links import zmq as zlink
 from ..store import Store
 from .daemon import read_state_file
-from .room import Room, rows_from_store
+from .room import Room, observer_messages, rows_from_store
 
 STORE_FILE = "rigloop.sqlite"
 POLL_S = 0.2  # how often an event stream looks for changed rows
@@ -167,15 +165,8 @@ class Follower:
         sub = zlink.SubLink(ctx, endpoint)
         self.connected.set()
         try:
-            while not self.stopping.is_set():
-                got = sub.recv(200)
-                if got is None:
-                    continue
-                try:
-                    msg = msgpack.unpackb(got[1], raw=False)
-                except Exception:  # a malformed frame on the stream: skip it
-                    continue
-                if isinstance(msg, dict):
+            for msg in observer_messages(sub, lambda: not self.stopping.is_set()):
+                if msg is not None:
                     self.room.feed(msg)
         finally:
             sub.close()

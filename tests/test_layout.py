@@ -45,6 +45,9 @@ OPTIONAL = {
     "pynwb": "outputs/nwb.py",
     "starlette": "serve/web.py",
     "uvicorn": "serve/web.py",
+    "tqdm": "cli/progress.py",  # a dependency, but the bars are drawn in one place
+    "dask": "offline/executors.py",  # the optional cluster executor (the 'cluster' extra)
+    "distributed": "offline/executors.py",
 }
 
 

@@ -21,10 +21,12 @@ from .data_cmd import add_export, add_import, add_report
 from .demo_cmd import add_demo
 from .fit_cmd import add_fit
 from .offline_cmd import add_check, add_replay, add_simulate
+from .psychometric_cmd import add_psychometric
 from .serve_cmd import add_keys, add_serve, add_status, add_watch, add_web
 from .water_cmd import add_water
 
 COMMANDS = [add_demo, add_check, add_import, add_replay, add_export, add_simulate, add_report, add_fit,
+            add_psychometric,
             add_serve, add_watch, add_web, add_status, add_keys, add_water]
 
 

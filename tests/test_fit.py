@@ -116,9 +116,11 @@ def test_log_likelihood_is_stable_for_extreme_slopes():
     ("kalman_td", make_representation("serial_compound", TONES, dt=0.5, n_bins=2),
      {"gamma": 0.9, "diffusion": 0.01, "noise": 1.0, "prior_var": 1.0}),
 ])
-def test_onset_values_equal_a_per_trial_loop(learner_name, rep, params):
+def test_onset_values_equal_a_per_trial_loop(learner_name, rep, params, monkeypatch):
     """Onset values (one learn_trial over stacked rows for reward learners) equal predict()
     at the onset row before a per-trial learn_trial, trial by trial."""
+    # the readable path, bit for bit (the compiled one agrees to rounding: test_fit_fast.py)
+    monkeypatch.setenv("RIGLOOP_NO_NUMBA", "1")
     events = simulate("rescorla_wagner", {"alpha": 0.2}, 8.0, 0.4, 0.05, n=80, seed=4)
     data = fit.prepare(events, rep, reward_unit_ul=UNIT)
     got = fit.onset_values(data, make_learner(learner_name, rep.n_features, **params))

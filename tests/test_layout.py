@@ -29,7 +29,8 @@ LAYERS = [
     {"rules"},
     {"wire", "store", "links"},
     {"replay"},
-    {"offline", "fit", "outputs", "serve"},
+    {"offline"},
+    {"fit", "outputs", "serve"},  # fit runs its likelihood on offline's batch kernels
     {"testing"},
     {"demo"},
     {"cli"},

@@ -240,3 +240,183 @@ def behaviour_steps(x, var, n, held, cue, y, sigma2, newton_max, tol) -> None:
         var[s, j] = 1.0 / (1.0 / var_pred + p * (1.0 - p))
         n[s, j] += 1
         held[s, j] = True
+
+
+# --------------------------------------------------------------------------- fit trajectories
+#
+# The value trajectory a fit needs: before each of a subject's trials, the value (and
+# variance) of a few probe rows (the trial's onset row; or the rows of its cue with each
+# side), for P parameter sets at once (optimiser points, starts). ``rigloop.batch.onsets``
+# packs the rows and calls these. Each parameter set runs the single learner's steps in
+# order (methods.md §2, §4 for the Kalman learners; Sutton & Barto 2018 Ch. 12 for TD(λ);
+# Rescorla & Wagner 1972), the sums over non-zero entries only, so the numbers agree
+# with the learners to rounding (their BLAS dots sum in another order).
+#
+# Status per parameter set: 0 fine; 1 a prediction error was not finite; 2 the
+# innovation variance hᵀΣ⁻h + σ_r² was not a finite number > 0 (the cases in which the
+# learners raise BadArgument). A failed set stops at that step; its outputs are partial.
+
+
+@njit(cache=True, nogil=True)
+def _kalman_probes(A, X, r, bounds, probes, has, g, tau2, noise, skip_empty, V, var, h, u, nz):
+    """One parameter set's Kalman (TD) trials, in place; returns the status.
+
+    A: (n + 1, n) [Σ; ŵ], the starting state, left at the end state. X: (R, n) every
+    trial's rows stacked; r: (R,); bounds: (N + 1,) trial k owns rows bounds[k] to
+    bounds[k + 1] (the row after its last is terminal, all zero); probes: (N, Q, n) rows
+    read before trial k where has[k]. g, tau2, noise: γ (0 for the reward learner), τ²,
+    σ_r². skip_empty: a featureless row learns nothing (Kalman TD) or is observed (the
+    filter). V, var: (N, Q) receive xᵀŵ and xᵀΣx of each probe (nan where not has[k]).
+    """
+    n = A.shape[1]
+    N, Q = has.shape[0], probes.shape[1]
+    for k in range(N):
+        for q in range(Q):
+            if has[k]:
+                x = probes[k, q]
+                v = 0.0
+                vv = 0.0
+                for i in range(n):
+                    xi = x[i]
+                    if xi != 0.0:
+                        v += xi * A[n, i]
+                        px = 0.0
+                        for j in range(n):
+                            if x[j] != 0.0:
+                                px += A[i, j] * x[j]
+                        vv += xi * px
+                V[k, q] = v
+                var[k, q] = vv
+            else:
+                V[k, q] = math.nan
+                var[k, q] = math.nan
+        last = bounds[k + 1]
+        for t in range(bounds[k], last):
+            x = X[t]
+            # h = x − γx' (x' the next row of the trial, zero after its last)
+            m = 0
+            empty = True
+            for i in range(n):
+                xn = X[t + 1, i] if t + 1 < last else 0.0
+                if x[i] != 0.0:
+                    empty = False
+                h[i] = x[i] - xn * g
+                if h[i] != 0.0:
+                    nz[m] = i
+                    m += 1
+            if skip_empty and empty:
+                continue
+            # δ = r − hᵀŵ
+            hw = 0.0
+            for a in range(m):
+                hw += h[nz[a]] * A[n, nz[a]]
+            delta = r[t] - hw
+            if not math.isfinite(delta):
+                return 1
+            # Σ⁻ = Σ + τ²I, then u ← Σ⁻h (the learner's order: diffuse, then multiply;
+            # Σ⁻'s column j read as its row j, Σ⁻ being exactly symmetric)
+            if tau2 != 0.0:
+                for i in range(n):
+                    A[i, i] += tau2
+            for i in range(n):
+                u[i] = 0.0
+            for a in range(m):
+                j = nz[a]
+                hj = h[j]
+                for i in range(n):
+                    u[i] += A[j, i] * hj
+            # s = hᵀΣ⁻h + σ_r²
+            hu = 0.0
+            for a in range(m):
+                hu += h[nz[a]] * u[nz[a]]
+            s = hu + noise
+            if not (0.0 < s and s < math.inf):
+                return 2
+            rs = 1.0 / math.sqrt(s)
+            for i in range(n):
+                u[i] *= rs
+            c = delta * rs
+            # Σ ← Σ⁻ − u uᵀ (each entry one exact product: Σ stays exactly symmetric);
+            # ŵ ← ŵ + (δ/√s) u
+            for i in range(n):
+                ui = u[i]
+                if ui != 0.0:
+                    for j in range(n):
+                        A[i, j] -= ui * u[j]
+            for j in range(n):
+                A[n, j] += c * u[j]
+    return 0
+
+
+@njit(cache=True, nogil=True)
+def kalman_probes(A, X, r, bounds, probes, has, g, tau2, noise, skip_empty, V, var, status):
+    """``_kalman_probes`` for P parameter sets: A (P, n + 1, n); g, tau2, noise (P,);
+    V, var (P, N, Q); status (P,) int64 receives each set's status."""
+    n = X.shape[1]
+    h, u, nz = np.empty(n), np.empty(n), np.empty(n, dtype=np.intp)
+    for p in range(A.shape[0]):
+        status[p] = _kalman_probes(A[p], X, r, bounds, probes, has, g[p], tau2[p], noise[p],
+                                   skip_empty, V[p], var[p], h, u, nz)
+
+
+@njit(cache=True, nogil=True)
+def _delta_probes(w, z, X, r, bounds, probes, has, alpha, g, gl, V, nz):
+    """One parameter set's delta-rule trials (TD(λ); Rescorla–Wagner is γ = λ = 0), in
+    place; returns the status.
+
+    w, z: (n,) weights (the start, left at the end) and trace (reset at each trial's
+    start, as ``TD.learn_trial`` does); alpha: (n,) rates; g: γ; gl: γλ (0: z = x).
+    Per step δ = r + γ wᵀx' − wᵀx, z ← γλz + x, w ← w + (α δ) z. V: (N, Q) probe values.
+    """
+    n = w.shape[0]
+    N, Q = has.shape[0], probes.shape[1]
+    for k in range(N):
+        for q in range(Q):
+            if has[k]:
+                x = probes[k, q]
+                v = 0.0
+                for i in range(n):
+                    if x[i] != 0.0:
+                        v += x[i] * w[i]
+                V[k, q] = v
+            else:
+                V[k, q] = math.nan
+        for i in range(n):
+            z[i] = 0.0
+        last = bounds[k + 1]
+        for t in range(bounds[k], last):
+            x = X[t]
+            v = 0.0
+            for i in range(n):
+                if x[i] != 0.0:
+                    v += x[i] * w[i]
+            vn = 0.0
+            if g != 0.0 and t + 1 < last:
+                for i in range(n):
+                    if X[t + 1, i] != 0.0:
+                        vn += X[t + 1, i] * w[i]
+            delta = r[t] + g * vn - v
+            if not math.isfinite(delta):
+                return 1
+            # z ← γλz + x  (γλ = 0: z = x)
+            m = 0
+            for i in range(n):
+                z[i] = z[i] * gl + x[i] if gl != 0.0 else x[i]
+                if z[i] != 0.0:
+                    nz[m] = i
+                    m += 1
+            # w ← w + (α δ) z
+            for a in range(m):
+                i = nz[a]
+                w[i] += alpha[i] * delta * z[i]
+    return 0
+
+
+@njit(cache=True, nogil=True)
+def delta_probes(w, z, X, r, bounds, probes, has, alpha, g, gl, V, status):
+    """``_delta_probes`` for P parameter sets: w, z (P, n); alpha (P, n); g, gl (P,);
+    V (P, N, Q); status (P,) int64."""
+    nz = np.empty(X.shape[1], dtype=np.intp)
+    for p in range(w.shape[0]):
+        status[p] = _delta_probes(w[p], z[p], X, r, bounds, probes, has, alpha[p], g[p],
+                                  gl[p], V[p], nz)

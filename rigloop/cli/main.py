@@ -59,12 +59,16 @@ def build_parser() -> argparse.ArgumentParser:
     )
     parser.add_argument("--version", action="version", version=f"rigloop {__version__}")
     parser.add_argument("--debug", action="store_true", help="on a failure, show the full traceback")
+    parser.add_argument("--quiet", action="store_true", help="draw no progress bars")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
     for add in COMMANDS:
         add(sub)
     for p in sub.choices.values():  # also after the command: `rigloop serve ... --debug`
         p.add_argument("--debug", action="store_true", default=argparse.SUPPRESS,
                        help="on a failure, show the full traceback")
+        if "--quiet" not in p._option_string_actions:  # no progress bars (they are off in pipes anyway)
+            p.add_argument("--quiet", action="store_true", default=argparse.SUPPRESS,
+                           help="draw no progress bars")
     return parser
 
 
@@ -112,6 +116,10 @@ def main(argv: list[str] | None = None) -> int:
     if not getattr(args, "func", None):
         parser.print_help()
         return 2
+    if getattr(args, "quiet", False):
+        from .progress import set_quiet
+
+        set_quiet(True)
     try:
         return int(args.func(args) or 0)
     except BrokenPipeError:  # output piped into head, less, ...: the reader left

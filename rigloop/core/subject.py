@@ -173,3 +173,11 @@ def new_subject(subject: str, rules) -> SubjectState:
         curves={},
         schedule=rules.start_subject(),
     )
+
+
+def resident(state: SubjectState) -> SubjectState:
+    """``state`` kept compact while it waits for its subject's next trial (the daemon's
+    cache of thousands of subjects): the learner drops its working buffers and rebuilds
+    them, the same bits, when next used. Returns ``state`` itself."""
+    state.learner._rest()
+    return state

@@ -44,7 +44,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from .. import wire
-from ..core.subject import SubjectState
+from ..core.subject import SubjectState, resident
 from ..core.trial import Decision, TrialEvent
 from ..errors import ConflictingTrial, StoreError
 from ..store import Store
@@ -258,6 +258,12 @@ class CommitPipeline:
             raise batch.error
         self._take_results(batch)
         self._send(batch.out)
+        # after the replies: the committed states shrink to their resting form (a few µs each,
+        # 15.3 -> 10.1 kB per subject at n = 32, tools/bench/memory.py)
+        states = self.subjects.states
+        for p in batch.trials:
+            if p.decision is not None and states.get(p.event.subject) is p.state:
+                resident(p.state)
 
     def _take_results(self, batch: Batch) -> None:
         """Apply a committed batch's results to the subject states; fill in its replies."""

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 from typing import Any
 
-from ..core.subject import SubjectState
+from ..core.subject import SubjectState, resident
 from ..replay import recover
 from ..store import SessionInfo, Store
 
@@ -31,7 +31,7 @@ class Subjects:
         """The subject's state from the store, kept as its committed state (None if unknown)."""
         state = recover(self.store, subject)
         if state is not None:
-            self.states[subject] = state
+            self.states[subject] = resident(state)
         return state
 
     def save_snapshot(self, subject: str, state: SubjectState) -> None:

@@ -326,6 +326,10 @@ class Learner:
         new._allocate(self)
         return new
 
+    def _rest(self) -> None:
+        """Shrink to a compact form while resident between trials (a no-op unless a learner
+        has one); the next use restores the working form, the same bits."""
+
     def _learned(self, X: np.ndarray, r: np.ndarray) -> tuple[Learner, TrialResult, bool | None]:
         """A copy of this learner after ``_learn(X, r)`` (rows already checked), the
         trial's result, and whether this state and the new one are finite (None: not

@@ -164,7 +164,7 @@ def main(argv: list[str] | None = None) -> int:
     print("  largest allocation sites, kB per subject:")
     for row in b["top_lines"]:
         print(f"    {row['bytes_per_subject'] / 1024:6.1f}  {row['where']}")
-    print("target met" if result["met"] else "target NOT met")
+    print(f"target ≤ {TARGET_MB:.0f} MB: {'PASS' if result['met'] else 'FAIL'}")
     return 0
 
 

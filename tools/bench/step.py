@@ -102,12 +102,15 @@ def main() -> int:
     ap.add_argument("--reps", type=int, default=5)
     args = ap.parse_args()
     out = {"step_median_us": step_medians(args.reps), "tricks": tricks(), "target_step_us": 60.0}
+    out["pass"] = out["step_median_us"]["tone_reversal"] <= out["target_step_us"]
     if args.json:
         print(json.dumps(out))
         return 0
     print("step, median µs in-process (best of the passes):")
     for name, us in out["step_median_us"].items():
         print(f"  {name:<22} {us:8.1f}")
+    ok = out["step_median_us"]["tone_reversal"] <= out["target_step_us"]
+    print(f"target tone_reversal ≤ {out['target_step_us']:.0f} µs: {'PASS' if ok else 'FAIL'}")
     print("\ntrick vs its readable reference (same bits; tests/test_fast_paths.py):")
     print(f"  {'':<40} {'trick µs':>9} {'reference µs':>13} {'ratio':>7}")
     for name, r in out["tricks"].items():

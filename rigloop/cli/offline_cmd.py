@@ -66,6 +66,9 @@ def add_simulate(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--mix", default=None, metavar="PRESET=FRACTION,...",
                    help="a mix of presets over the subjects instead, e.g. typical=0.75,non_discriminator=0.25 "
                         "(default: every subject is --animal)")
+    p.add_argument("--animals-from", default=None, metavar="FIT_JSON",
+                   help="simulate the fitted models in this `rigloop fit --json` file instead of presets "
+                        "(--subjects animals per fitted subject; default: none)")
     p.set_defaults(func=_run_simulate)
 
 
@@ -76,6 +79,12 @@ def _run_simulate(args: argparse.Namespace) -> int:
     from ..rules.load import load_any
 
     check_name("--animal", "a simulated animal preset", args.animal, PRESETS)
+    if args.animals_from:
+        from ..offline.fitted_animals import read_fit_json, simulate_fitted
+
+        rules = load_any(rules_name(args.rules))
+        return simulate_fitted(rules, read_fit_json(args.animals_from, rules), subjects=args.subjects,
+                               sessions=args.sessions, max_trials=args.max_trials, seed=args.seed, db=args.db)
     return print_simulation(load_any(rules_name(args.rules)), subjects=args.subjects, sessions=args.sessions,
                             max_trials=args.max_trials, task=args.task, seed=args.seed, db=args.db,
                             animal=args.animal, mix=args.mix)

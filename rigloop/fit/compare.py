@@ -11,7 +11,7 @@ from typing import Any
 from ..core.features import Representation
 from ..core.learners import LEARNERS
 from ..errors import BadArgument
-from .data import FitData, prepare
+from .data import FitData, link_for, prepare
 from .params import PARAMETERS, default_fixed, model_parameters
 from .results import FitResult
 from .search import fit_subject
@@ -19,18 +19,46 @@ from .search import fit_subject
 
 @dataclass(frozen=True, slots=True)
 class ModelSpec:
-    """A candidate model for ``compare_learners``: a learner on a representation."""
+    """A candidate model for ``compare_learners``: a learner on a representation, with
+    its pins, starts and bounds, and the response link (None: from the trials)."""
 
     learner: str
     representation: Representation
     reward_unit_ul: float
     fixed: Mapping[str, Any] | None = None
     start: Mapping[str, float] | None = None
+    bounds: Mapping[str, tuple[float, float]] | None = None
+    link: str | None = None
+
+    def with_choices(self, fix: Mapping[str, Any] | None = None,
+                     bounds: Mapping[str, tuple[float, float]] | None = None,
+                     start: Mapping[str, float] | None = None) -> ModelSpec:
+        """This spec with a caller's pins, bounds and starts laid over its own, each only
+        where the name is a parameter of this model. A name given bounds or a start is
+        freed from a default pin; a pinned name loses its start."""
+        names = model_parameters(self.learner, self.link or "respond")
+        fix = {k: v for k, v in (fix or {}).items() if k in names}
+        bounds = {k: v for k, v in (bounds or {}).items() if k in names and k not in fix}
+        start = {k: v for k, v in (start or {}).items() if k in names and k not in fix}
+        fixed = {k: v for k, v in dict(self.fixed or default_fixed(
+            self.learner, self.representation, self.link or "respond")).items()
+            if k not in bounds and k not in start}
+        fixed.update(fix)
+        starts = {k: v for k, v in dict(self.start or {}).items() if k not in fixed}
+        for k, v in list(starts.items()):
+            lo, hi = bounds.get(k, (PARAMETERS[k].lo, PARAMETERS[k].hi))
+            starts[k] = min(max(v, lo), hi)
+        starts.update(start)
+        merged = dict(self.bounds or {})
+        merged.update(bounds)
+        return ModelSpec(self.learner, self.representation, self.reward_unit_ul, fixed,
+                         starts or None, merged or None, self.link)
 
 
-def spec_from_rules(rules, learner: str | None = None) -> ModelSpec:
+def spec_from_rules(rules, learner: str | None = None, link: str | None = None) -> ModelSpec:
     """The rule file's learner (or ``learner``) on its representation, started at its
-    parameters; Bayesian learners keep the file's ``noise`` (see ``fit/params.py``).
+    parameters; Bayesian learners keep the file's ``noise`` (see ``fit/params.py``), and
+    the choice link keeps the file's history decay.
 
     A learner of the other target than the file's gets the matching representation of
     the same cues (as the rule-file loader requires): a reward learner one row per trial
@@ -52,7 +80,9 @@ def spec_from_rules(rules, learner: str | None = None) -> ModelSpec:
         rep = make_representation("identity", rep.cues)
     elif not reward_learner and not rep.timed:
         rep = make_representation("presence", rep.cues, dt=rules.features.dt)
-    fixed = default_fixed(name, rep)
+    fixed = default_fixed(name, rep, link or "respond")
+    if "decay" in fixed:
+        fixed["decay"] = float(rules.spec.response.decay)
     start: dict[str, float] = {}
     if name == rules.learner.name:
         for key, value in rules.learner.params.items():
@@ -61,7 +91,7 @@ def spec_from_rules(rules, learner: str | None = None) -> ModelSpec:
             elif isinstance(value, (int, float)) and not isinstance(value, bool):
                 spec = PARAMETERS[key]
                 start[key] = min(max(float(value), spec.lo), spec.hi)
-    return ModelSpec(name, rep, rules.reward_unit_ul, fixed, start or None)
+    return ModelSpec(name, rep, rules.reward_unit_ul, fixed, start or None, None, link)
 
 
 def compare_learners(
@@ -71,12 +101,17 @@ def compare_learners(
     starts: int = 4,
     seed: int = 0,
     progress: Callable[[int, int], None] | None = None,
+    crossval: bool = True,
+    intervals: bool = True,
+    bootstrap: int = 0,
 ) -> list[FitResult]:
     """Fit each candidate in ``models`` to the same trials; the results ranked by AIC.
 
     models: ``ModelSpec`` values, or loaded ``Rules`` (their learner and representation).
-    Rows are computed once per distinct representation and reward unit. The likelihoods
-    are of the same responses, so their AICs compare whatever the representations.
+    Rows are computed once per distinct representation, reward unit and link. The
+    likelihoods are of the same responses, so their AICs compare whatever the
+    representations. With two or more sessions each result also carries the
+    cross-validated log-likelihood of held-out sessions (``crossval``).
     progress(done, total) counts starts over all the models.
     """
     specs = [m if isinstance(m, ModelSpec) else spec_from_rules(m) for m in models]
@@ -86,15 +121,18 @@ def compare_learners(
     prepared: dict[tuple, FitData] = {}
     results = []
     for i, spec in enumerate(specs):
-        key = (spec.representation, spec.reward_unit_ul)
+        link = spec.link or link_for(events)
+        key = (spec.representation, spec.reward_unit_ul, link)
         if key not in prepared:
-            prepared[key] = prepare(events, spec.representation, reward_unit_ul=spec.reward_unit_ul)
+            prepared[key] = prepare(events, spec.representation, reward_unit_ul=spec.reward_unit_ul,
+                                    link=link)
         each = None
         if progress is not None:
             def each(done: int, total: int, i: int = i) -> None:
                 progress(i * total + done, len(specs) * total)
         results.append(fit_subject(prepared[key], spec.learner, fixed=spec.fixed, start=spec.start,
-                                   starts=starts, seed=seed, progress=each))
+                                   bounds=spec.bounds, starts=starts, seed=seed, progress=each,
+                                   crossval=crossval, intervals=intervals, bootstrap=bootstrap))
     return sorted(results, key=lambda r: r.aic)
 
 
@@ -107,6 +145,14 @@ def fit_from_store(
     starts: int = 4,
     seed: int = 0,
     progress: Callable[[int, int], None] | None = None,
+    link: str | None = None,
+    fix: Mapping[str, Any] | None = None,
+    bounds: Mapping[str, tuple[float, float]] | None = None,
+    start: Mapping[str, float] | None = None,
+    bootstrap: int = 0,
+    crossval: bool = True,
+    intervals: bool = True,
+    option_names: Sequence[str] = ("fix", "bounds", "start"),
 ) -> FitResult | list[FitResult]:
     """Fit a subject's stored trials (every session, or only ``session``).
 
@@ -114,17 +160,37 @@ def fit_from_store(
     sessions (they must agree on representation and reward unit). One learner name (or
     None: the rule file's) gives a FitResult; a sequence of names gives the results
     ranked by AIC. The learner starts naive and carries across the sessions in order.
+    link: None picks it from the trials' response kinds. fix, bounds, start: the caller's
+    pins, search bounds and starts, applied to each learner that has the parameter
+    (``ModelSpec.with_choices``). crossval: the held-out-session log-likelihood (two
+    sessions or more). A name in fix, bounds or start that no fitted model has is refused
+    with the valid ones (``option_names``: what the three are called in the message).
     """
     infos = _stored_sessions(store, subject, session)
     rules = _session_rules(infos)
     events = [e for info in infos for e in store.trials(subject, info.session)]
-    if learner is None or isinstance(learner, str):
-        spec = spec_from_rules(rules[-1], learner)
-        return fit_subject(events, spec.learner, spec.representation,
-                           reward_unit_ul=spec.reward_unit_ul, fixed=spec.fixed, start=spec.start,
-                           starts=starts, seed=seed, progress=progress)
-    specs = [spec_from_rules(rules[-1], name) for name in learner]
-    return compare_learners(events, specs, starts=starts, seed=seed, progress=progress)
+    link = link or link_for(events)
+    names = [learner] if learner is None or isinstance(learner, str) else list(learner)
+    plain = [spec_from_rules(rules[-1], name, link) for name in names]
+    _check_parameter_names(plain, link, option_names, fix, bounds, start)
+    specs = [spec.with_choices(fix, bounds, start) for spec in plain]
+    ranked = compare_learners(events, specs, starts=starts, seed=seed, progress=progress,
+                              crossval=crossval, intervals=intervals, bootstrap=bootstrap)
+    return ranked[0] if learner is None or isinstance(learner, str) else ranked
+
+
+def _check_parameter_names(specs: Sequence[ModelSpec], link: str, option_names: Sequence[str],
+                           *given: Mapping[str, Any] | None) -> None:
+    """Each name given must be a parameter of at least one of the fitted models."""
+    from ..core.names import check_name
+
+    valid: dict[str, None] = {}
+    for spec in specs:
+        valid.update(dict.fromkeys(model_parameters(spec.learner, link)))
+    learners = ", ".join(dict.fromkeys(s.learner for s in specs))
+    for option, mapping in zip(option_names, given, strict=True):
+        for name in mapping or {}:
+            check_name(option, f"a parameter of {learners} with the {link} link", name, valid)
 
 
 def _stored_sessions(store, subject: str, session: str | None) -> list:

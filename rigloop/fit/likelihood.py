@@ -15,9 +15,17 @@ steepness, θ the value at which the animal responds half of the engaged time, l
 the fraction of trials on which it responds at random. Trials without a cue or without
 an observed response add nothing to the likelihood but still update the learner. The
 link and its log-likelihood are ``core.responses.p_respond`` and ``log_lik_respond``,
-kept there so that live code can report the same numbers. That module also has the
-two-choice softmax link (``p_right``); fitting it would use the same frame (a second
-value, a bias term) but is not implemented yet.
+kept there so that live code can report the same numbers.
+
+Two-choice tasks (``data.link == "choice"``): the learner holds one value per cue and
+side, and the animal chooses right with probability
+
+    p_t = lapse/2 + (1 − lapse) · logistic(β (Q_R − Q_L) + bias + persev · h_t)
+
+(``core.responses.p_right``), Q_L, Q_R the values of the trial's first cue with each side
+before the trial's update, h_t the choice-history kernel before trial t (``history``:
+h ← decay·h + (1 − decay)·c, c = +1 right, −1 left, unchanged by an omission; from 0 at
+the first trial, carried across sessions as live).
 """
 
 from __future__ import annotations
@@ -29,10 +37,11 @@ from typing import Any
 import numpy as np
 
 from ..core.learners import make_learner
-from ..core.responses import log_lik_respond, p_respond
+from ..core.responses import log_lik_respond, log_lik_right, p_respond, p_right
 from ..errors import BadArgument
 from .data import FitData
-from .params import OBSERVATION_PARAMS, in_domain, model_parameters
+from .fast import onset_values_fast
+from .params import LINK_PARAMETER_NAMES, in_domain, link_parameters, model_parameters
 from .results import FittedTrials
 
 _FAR_WORSE = 1e10  # the objective where the learner overflows: far worse than any fit
@@ -42,8 +51,12 @@ def onset_values(data: FitData, learner) -> np.ndarray:
     """(N,) value at each trial's first cue onset before the trial's update (nan: no cue).
 
     Reward learners learn the stacked rows in one ``learn_trial``; value learners one
-    trial at a time. Either way ``learner`` ends after the last trial.
+    trial at a time. Either way ``learner`` ends after the last trial. The compiled
+    engine (``fast.onset_values_fast``) runs it when it can; this is the reference.
     """
+    fast = onset_values_fast(data, learner)
+    if fast is not None:
+        return fast[0]
     if learner.kind != "reward":
         return _values(data, learner)[0]
     values = learner.learn_trial(data.X_all, data.r_all).values
@@ -55,7 +68,10 @@ def onset_values(data: FitData, learner) -> np.ndarray:
 
 def _values(data: FitData, learner, with_sd: bool = False) -> tuple[np.ndarray, np.ndarray | None]:
     """(N,) onset values before each trial's update (nan for cueless trials), and sds;
-    one ``learn_trial`` per trial."""
+    one ``learn_trial`` per trial (the reference; ``fast.onset_values_fast`` when it can)."""
+    fast = onset_values_fast(data, learner, with_sd)
+    if fast is not None:
+        return fast
     N = data.n_events
     V = np.full(N, math.nan)
     sd = np.full(N, math.nan) if with_sd and learner.bayesian else None
@@ -72,6 +88,34 @@ def _values(data: FitData, learner, with_sd: bool = False) -> tuple[np.ndarray, 
     return V, sd
 
 
+def side_values(data: FitData, learner) -> tuple[np.ndarray, np.ndarray]:
+    """(N,) Q_L and Q_R of each trial's first cue before the trial's update (nan: no cue);
+    one ``learn_trial`` per trial (choice link)."""
+    N = data.n_events
+    QL, QR = np.full(N, math.nan), np.full(N, math.nan)
+    for k in range(N):
+        pair = data.side_rows[k]
+        if pair is not None:
+            # Q_side = x_(cue:side)ᵀ w, before this trial's learning
+            QL[k] = float(pair[0] @ learner.w)
+            QR[k] = float(pair[1] @ learner.w)
+        X, r = data.rows[k]
+        learner.learn_trial(X, r)
+    return QL, QR
+
+
+def history(responded: np.ndarray, decay: float) -> np.ndarray:
+    """(N,) the choice-history kernel h before each trial: h ← decay·h + (1 − decay)·c with
+    c = +1 right (responded 1), −1 left (0); a trial without a choice leaves h unchanged."""
+    h = np.empty(len(responded))
+    cur = 0.0
+    for k, y in enumerate(responded):
+        h[k] = cur
+        if y == y:  # not nan
+            cur = decay * cur + (1 - decay) * (2.0 * y - 1.0)
+    return h
+
+
 def response_probability(V: np.ndarray, beta: float, theta: float, lapse: float) -> np.ndarray:
     """p = lapse/2 + (1 − lapse) · logistic(β (V − θ)), elementwise
     (``core.responses.p_respond``: no overflow for any β (V − θ))."""
@@ -84,37 +128,61 @@ def _observed_sum(V: np.ndarray, mask: np.ndarray, y: np.ndarray,
     return float(np.sum(log_lik_respond(V[mask], y, beta, theta, lapse)))
 
 
+def _choice_sum(QL: np.ndarray, QR: np.ndarray, h: np.ndarray, mask: np.ndarray,
+                y: np.ndarray, obs: Mapping[str, float]) -> float:
+    """Σ log P(choice_t) over the trials in ``mask`` (y: 1 right, 0 left, already masked)."""
+    chose = 2.0 * y - 1.0
+    return float(np.sum(log_lik_right(QL[mask], QR[mask], chose, obs["beta"], obs["bias"],
+                                      obs["lapse"], obs["persev"], h[mask])))
+
+
 def log_likelihood(data: FitData, learner_name: str, params: Mapping[str, Any]) -> float:
     """Σ_t log P(response_t | params) over the observed trials of ``data``.
 
-    params: every learner parameter (defaults of the learner where missing) plus
-    ``beta``, ``theta``, ``lapse`` (required).
+    params: every learner parameter (defaults of the learner where missing) plus the
+    link's (required): ``beta``, ``theta``, ``lapse`` (go/no-go) or ``beta``, ``bias``,
+    ``lapse``, ``persev``, ``decay`` (choice).
     """
-    learner, (beta, theta, lapse) = _build(data, learner_name, params)
-    V = onset_values(data, learner)
+    learner, obs = _build(data, learner_name, params)
     mask = ~np.isnan(data.responded)
-    return _observed_sum(V, mask, data.responded[mask], beta, theta, lapse)
+    if data.link == "choice":
+        QL, QR = side_values(data, learner)
+        h = history(data.responded, obs["decay"])
+        return _choice_sum(QL, QR, h, mask, data.responded[mask], obs)
+    V = onset_values(data, learner)
+    return _observed_sum(V, mask, data.responded[mask], obs["beta"], obs["theta"], obs["lapse"])
 
 
 def fitted_trials(data: FitData, learner_name: str, params: Mapping[str, Any]) -> FittedTrials:
-    """Per-trial value, sd and response probability at ``params``."""
-    learner, (beta, theta, lapse) = _build(data, learner_name, params)
+    """Per-trial value, sd and response probability at ``params``.
+
+    Choice link: value is Q_R − Q_L, p_respond is P(right), responded 1 right / 0 left
+    (sd: None).
+    """
+    learner, obs = _build(data, learner_name, params)
+    if data.link == "choice":
+        QL, QR = side_values(data, learner)
+        h = history(data.responded, obs["decay"])
+        p = np.asarray(p_right(QL, QR, obs["beta"], obs["bias"], obs["lapse"], obs["persev"], h))
+        return FittedTrials(data.sessions, data.trials, QR - QL, None, p,
+                            np.array(data.responded))
     V, sd = _values(data, learner, with_sd=True)
-    p = response_probability(V, beta, theta, lapse)
+    p = response_probability(V, obs["beta"], obs["theta"], obs["lapse"])
     return FittedTrials(data.sessions, data.trials, V, sd, p, np.array(data.responded))
 
 
 def _build(data: FitData, learner_name: str, params: Mapping[str, Any]):
-    """A fresh learner at ``params`` and the checked (β, θ, lapse)."""
-    names = model_parameters(learner_name)
+    """A fresh learner at ``params`` and the checked link parameters by name."""
+    names = model_parameters(learner_name, data.link)
     unknown = sorted(set(params) - set(names))
     if unknown:
         raise BadArgument("params", f"parameters of {learner_name} ({', '.join(names)})", unknown)
-    missing = [p for p in OBSERVATION_PARAMS if p not in params]
+    wanted = link_parameters(data.link)
+    missing = [p for p in wanted if p not in params]
     if missing:
-        raise BadArgument("params", "a mapping including beta, theta and lapse", sorted(params))
-    obs = tuple(in_domain(p, params[p]) for p in OBSERVATION_PARAMS)
-    lparams = {k: v for k, v in params.items() if k not in OBSERVATION_PARAMS}
+        raise BadArgument("params", f"a mapping including {', '.join(wanted)}", sorted(params))
+    obs = {p: in_domain(p, params[p]) for p in wanted}
+    lparams = {k: v for k, v in params.items() if k not in LINK_PARAMETER_NAMES}
     learner = make_learner(learner_name, data.representation.n_features, **lparams)
     return learner, obs
 
@@ -123,23 +191,30 @@ class NegLogLik:
     """−Σ_t log P(response_t) as a function of the free parameters (natural scale, in the
     order of ``free``), the others pinned: what the optimiser minimises.
 
-    Onset values are cached by learner parameters: a step in β, θ or lapse (most of a
-    numerical gradient) does not rerun the learner. A point where the learner overflows,
-    or the sum is not finite, scores 1e10.
+    Learner values are cached by learner parameters: a step in a link parameter (most of
+    a numerical gradient) does not rerun the learner. A point where the learner
+    overflows, or the sum is not finite, scores 1e10. ``responded`` replaces the responses
+    the sum runs over (nan: left out): a held-out session (``crossval``), or redrawn
+    go/no-go responses (``bootstrap``); the learner and the choice kernel still follow
+    the animal's own.
     """
 
     def __init__(self, data: FitData, learner_name: str, free: Sequence[str],
-                 pinned: Mapping[str, Any]):
+                 pinned: Mapping[str, Any], responded: np.ndarray | None = None):
         self.data = data
         self.learner_name = learner_name
         self.free = tuple(free)
-        self.mask = ~np.isnan(data.responded)
-        self.y_obs = data.responded[self.mask]
-        self.lparams = [n for n in self.free if n not in OBSERVATION_PARAMS]
-        self.oparams = {n: i for i, n in enumerate(self.free) if n in OBSERVATION_PARAMS}
-        self.pinned_learner = {k: v for k, v in pinned.items() if k not in OBSERVATION_PARAMS}
-        self.pinned_obs = {k: v for k, v in pinned.items() if k in OBSERVATION_PARAMS}
-        self.cache: dict[tuple, np.ndarray] = {}
+        y = data.responded if responded is None else np.asarray(responded, dtype=np.float64)
+        self.y = y
+        self.mask = ~np.isnan(y)
+        self.y_obs = y[self.mask]
+        self.link = data.link
+        self.lparams = [n for n in self.free if n not in LINK_PARAMETER_NAMES]
+        self.oparams = {n: i for i, n in enumerate(self.free) if n in LINK_PARAMETER_NAMES}
+        self.pinned_learner = {k: v for k, v in pinned.items() if k not in LINK_PARAMETER_NAMES}
+        self.pinned_obs = {k: v for k, v in pinned.items() if k in LINK_PARAMETER_NAMES}
+        self.cache: dict[tuple, Any] = {}
+        self.h_cache: dict[float, np.ndarray] = {}
 
     def __call__(self, theta: np.ndarray) -> float:
         kw = dict(self.pinned_learner)
@@ -149,17 +224,34 @@ class NegLogLik:
         V = self._onset_values(kw)
         if V is None:
             return _FAR_WORSE
-        total = -_observed_sum(V, self.mask, self.y_obs, obs["beta"], obs["theta"], obs["lapse"])
+        if self.link == "choice":
+            h = self._history(obs["decay"])
+            total = -_choice_sum(V[0], V[1], h, self.mask, self.y_obs, obs)
+        else:
+            total = -_observed_sum(V, self.mask, self.y_obs, obs["beta"], obs["theta"],
+                                   obs["lapse"])
         return total if math.isfinite(total) else _FAR_WORSE
 
-    def _onset_values(self, kw: dict[str, Any]) -> np.ndarray | None:
-        """Onset values with the learner at ``kw`` (None: it overflows); 16 kept."""
+    def _history(self, decay: float) -> np.ndarray:
+        h = self.h_cache.get(decay)
+        if h is None:
+            if len(self.h_cache) >= 16:
+                del self.h_cache[next(iter(self.h_cache))]
+            # the kernel follows every choice the animal made, in the likelihood or not
+            h = self.h_cache[decay] = history(self.data.responded, decay)
+        return h
+
+    def _onset_values(self, kw: dict[str, Any]):
+        """Onset values (choice: the pair Q_L, Q_R) with the learner at ``kw`` (None: it
+        overflows); 16 kept."""
         key = tuple(kw[n] for n in self.lparams)
         V = self.cache.get(key)
         if V is None:
             n_features = self.data.representation.n_features
             try:
-                V = onset_values(self.data, make_learner(self.learner_name, n_features, **kw))
+                learner = make_learner(self.learner_name, n_features, **kw)
+                V = (side_values(self.data, learner) if self.link == "choice"
+                     else onset_values(self.data, learner))
             except (BadArgument, FloatingPointError):
                 return None
             if len(self.cache) >= 16:

@@ -10,6 +10,8 @@ depends on diffusion/noise and prior_var/noise only, so behaviour cannot tell al
 apart; ``noise`` is pinned (at 1.0, or the rule file's value in ``fit_from_store``).
 With one-row-per-trial ("identity") features, TD's ``gamma`` and ``lam`` and Kalman
 TD's ``gamma`` have no effect (the next row is the terminal zero row) and are pinned too.
+The choice link pins the history kernel's ``decay`` at 0.7: with persev near 0 it has no
+effect on the choices. A bound or start given for a default pin frees it (``fit_subject``).
 """
 
 from __future__ import annotations
@@ -25,7 +27,11 @@ from ..core.features import Representation
 from ..core.learners import LEARNERS
 from ..errors import BadArgument
 
-OBSERVATION_PARAMS = ("beta", "theta", "lapse")
+OBSERVATION_PARAMS = ("beta", "theta", "lapse")  # the go/no-go link's (``respond``)
+CHOICE_PARAMS = ("beta", "bias", "lapse", "persev", "decay")  # the two-choice link's
+LINK_PARAMS = {"respond": OBSERVATION_PARAMS, "choice": CHOICE_PARAMS}
+LINKS = tuple(LINK_PARAMS)
+LINK_PARAMETER_NAMES = frozenset(OBSERVATION_PARAMS + CHOICE_PARAMS)
 
 
 @dataclass(frozen=True, slots=True)
@@ -50,20 +56,37 @@ PARAMETERS: dict[str, ParamSpec] = {p.name: p for p in (
     ParamSpec("beta", 0.1, 100.0, True, 5.0, (0.0, math.inf)),
     ParamSpec("theta", -3.0, 3.0, False, 0.3, (-math.inf, math.inf)),
     ParamSpec("lapse", 0.0, 0.5, False, 0.05, (0.0, 1.0)),
+    ParamSpec("bias", -5.0, 5.0, False, 0.0, (-math.inf, math.inf)),
+    ParamSpec("persev", -5.0, 5.0, False, 0.0, (-math.inf, math.inf)),
+    ParamSpec("decay", 0.0, 0.99, False, 0.7, (0.0, 0.999)),
 )}
+DEFAULT_DECAY = 0.7  # the choice-history kernel's decay when it is pinned (core.responses default)
 
 
-def model_parameters(learner_name: str) -> tuple[str, ...]:
-    """Every parameter of the fitted model: the learner's, then β, θ, lapse."""
+def model_parameters(learner_name: str, link: str = "respond") -> tuple[str, ...]:
+    """Every parameter of the fitted model: the learner's, then the link's
+    (``respond``: β, θ, lapse; ``choice``: β, bias, lapse, persev, decay)."""
     cls = LEARNERS.get(learner_name) if isinstance(learner_name, str) else None
     if cls is None:
         raise BadArgument("learner", f"one of {', '.join(map(repr, LEARNERS))}", learner_name)
-    return (*cls._param_names, *OBSERVATION_PARAMS)
+    return (*cls._param_names, *link_parameters(link))
 
 
-def default_fixed(learner_name: str, representation: Representation) -> dict[str, float]:
-    """The parameters pinned when ``fixed`` is None (see the module docstring)."""
+def link_parameters(link: str) -> tuple[str, ...]:
+    """The parameters of a response link (``LINKS``)."""
+    if link not in LINK_PARAMS:
+        raise BadArgument("link", f"one of {', '.join(map(repr, LINKS))}", link)
+    return LINK_PARAMS[link]
+
+
+def default_fixed(learner_name: str, representation: Representation,
+                  link: str = "respond") -> dict[str, float]:
+    """The parameters pinned when ``fixed`` is None (see the module docstring); the
+    choice link pins the history kernel's ``decay`` (its persev weight stays free)."""
+    model_parameters(learner_name, link)  # an unknown learner or link: a clear error
     out: dict[str, float] = {}
+    if link == "choice":
+        out["decay"] = DEFAULT_DECAY
     if LEARNERS[learner_name].bayesian:
         out["noise"] = 1.0
     if not representation.timed:
@@ -78,13 +101,13 @@ def default_fixed(learner_name: str, representation: Representation) -> dict[str
 
 
 def pinned_parameters(learner_name: str, representation: Representation,
-                      fixed: Mapping[str, Any] | None) -> dict[str, Any]:
+                      fixed: Mapping[str, Any] | None, link: str = "respond") -> dict[str, Any]:
     """The pins of a fit: ``fixed`` (None: ``default_fixed``), each number in its domain.
 
     A list, tuple or array pin (a per-cue rate) is kept as it came.
     """
-    names = model_parameters(learner_name)
-    pinned = dict(default_fixed(learner_name, representation) if fixed is None else fixed)
+    names = model_parameters(learner_name, link)
+    pinned = dict(default_fixed(learner_name, representation, link) if fixed is None else fixed)
     check_names("fixed", pinned, names)
     for name, value in pinned.items():
         if not isinstance(value, (list, tuple, np.ndarray)):

@@ -60,6 +60,13 @@ class FitResult:
              the Hessian is not positive definite; ``se_note`` says why something is missing.
     aic, bic: Akaike (1974) and Schwarz (1978) criteria with k = len(free) and
              n = n_trials (the trials in the likelihood).
+    link:    "respond" (go/no-go logistic) or "choice" (two-choice softmax).
+    ci95:    profile-likelihood 95% interval per fitted parameter (``profile.Interval``).
+    warnings: plain sentences about parameters the trials do not pin down.
+    bounds, start: the search range and first start of each fitted parameter.
+    bootstrap: parametric-bootstrap 95% percentile interval per fitted parameter, if run.
+    cv_log_likelihood: Σ over held-out sessions of their log-likelihood at the parameters
+             fitted to the other sessions (``crossval.py``), if computed.
     """
 
     learner: str
@@ -76,6 +83,14 @@ class FitResult:
     se_note: str
     starts: int
     trials: FittedTrials | None = field(default=None, repr=False)
+    link: str = "respond"
+    ci95: dict[str, Any] = field(default_factory=dict)
+    warnings: tuple[str, ...] = ()
+    bounds: dict[str, tuple[float, float]] = field(default_factory=dict)
+    start: dict[str, float] = field(default_factory=dict)
+    bootstrap: dict[str, tuple[float, float]] | None = None
+    cv_log_likelihood: float | None = None
+    cv_sessions: int = 0
 
     @property
     def k(self) -> int:
@@ -89,6 +104,20 @@ class FitResult:
     def bic(self) -> float:
         return bic(self.log_likelihood, self.k, self.n_trials)
 
+    def record(self) -> dict[str, Any]:
+        """The fixed JSON record of ``rigloop fit --json`` (scripts depend on its keys):
+        learner, link, params, se, ci95, fixed, log_likelihood, aic, bic, n_trials,
+        converged, warnings; plus cv_log_likelihood (null without two sessions)."""
+        se = {n: (None if self.se is None else _plain_or_none(self.se.get(n))) for n in self.free}
+        return {"learner": self.learner, "link": self.link,
+                "params": {n: _jsonable(v) for n, v in self.params.items()},
+                "se": se,
+                "ci95": {n: [iv.lo, iv.hi] for n, iv in self.ci95.items()},
+                "fixed": {n: _jsonable(v) for n, v in self.fixed.items()},
+                "log_likelihood": self.log_likelihood, "aic": self.aic, "bic": self.bic,
+                "n_trials": self.n_trials, "converged": self.converged,
+                "warnings": list(self.warnings), "cv_log_likelihood": self.cv_log_likelihood}
+
     def to_dict(self) -> dict[str, Any]:
         """Plain data (no per-trial arrays) for JSON."""
         return {"learner": self.learner, "representation": self.representation,
@@ -96,7 +125,13 @@ class FitResult:
                 "se": None if self.se is None else dict(self.se), "se_note": self.se_note,
                 "log_likelihood": self.log_likelihood, "aic": self.aic, "bic": self.bic,
                 "n_trials": self.n_trials, "n_events": self.n_events, "k": self.k,
-                "converged": self.converged, "message": self.message, "starts": self.starts}
+                "converged": self.converged, "message": self.message, "starts": self.starts,
+                "link": self.link, "ci95": {n: [iv.lo, iv.hi] for n, iv in self.ci95.items()},
+                "warnings": list(self.warnings),
+                "bounds": {n: list(b) for n, b in self.bounds.items()},
+                "bootstrap": None if self.bootstrap is None else
+                {n: list(b) for n, b in self.bootstrap.items()},
+                "cv_log_likelihood": self.cv_log_likelihood}
 
 
 def aic(log_likelihood: float, k: int) -> float:
@@ -110,36 +145,78 @@ def bic(log_likelihood: float, k: int, n: int) -> float:
 
 
 def format_fit(result: FitResult) -> str:
-    """The parameter table with log-likelihood, AIC and BIC, as the CLI prints it."""
-    lines = [f"learner {result.learner} on {result.representation} features: "
+    """The parameter table (estimate, SE, 95% interval, search range, start), then the
+    criteria, the optimiser's state and the warnings, as the CLI prints it."""
+    link = "two-choice softmax" if result.link == "choice" else "go/no-go logistic"
+    lines = [f"learner {result.learner} on {result.representation} features, {link} link: "
              f"{result.n_trials:,} of {result.n_events:,} trials in the likelihood, "
              f"{result.starts} starts",
-             f"  {'parameter':<12}{'estimate':>12}{'SE':>12}"]
+             f"  {'parameter':<12}{'estimate':>11}{'SE':>10}  {'95% interval':<24}"
+             f"{'search range':<20}{'start':>8}"]
     for name, value in result.params.items():
         if name in result.fixed:
             shown = value if isinstance(value, (list, tuple)) else f"{float(value):.4g}"
-            lines.append(f"  {name:<12}{shown!s:>12}{'(fixed)':>12}")
+            lines.append(f"  {name:<12}{shown!s:>11}{'':>10}  {'(fixed)':<24}")
             continue
         se = result.se.get(name) if result.se else None
-        lines.append(f"  {name:<12}{value:>12.4g}{(f'{se:.3g}' if se is not None else '-'):>12}")
+        iv = result.ci95.get(name)
+        if iv is None:
+            ci = "-"
+        else:
+            ci = f"[{iv.lo:.4g}, {iv.hi:.4g}]"
+            if iv.lo_end == "estimate at bound" or iv.hi_end == "estimate at bound":
+                ci += " 1-sided"
+            elif "search bound" in (iv.lo_end, iv.hi_end):
+                ci += " cut"
+        lo, hi = result.bounds.get(name, (math.nan, math.nan))
+        start = result.start.get(name)
+        lines.append(f"  {name:<12}{value:>11.4g}{(f'{se:.3g}' if se is not None else '-'):>10}  "
+                     f"{ci:<24}{f'[{lo:.4g}, {hi:.4g}]':<20}"
+                     f"{(f'{start:.4g}' if start is not None else '-'):>8}")
+    if result.bootstrap:
+        for name, (lo, hi) in result.bootstrap.items():
+            lines.append(f"  bootstrap 95% interval of {name}: [{lo:.4g}, {hi:.4g}]")
     lines.append(f"  log-likelihood {result.log_likelihood:.3f}   AIC {result.aic:.3f}   "
                  f"BIC {result.bic:.3f}   k = {result.k}")
+    if result.cv_log_likelihood is not None:
+        lines.append(f"  cross-validated log-likelihood {result.cv_log_likelihood:.3f} "
+                     f"({result.cv_sessions} held-out sessions)")
     state = "converged" if result.converged else "NOT converged"
     lines.append(f"  optimiser: {state} ({result.message})")
     if result.se_note:
         lines.append(f"  note: {result.se_note}")
+    for w in result.warnings:
+        lines.append(f"  warning: {w}")
     return "\n".join(lines)
 
 
 def format_ranking(results: Sequence[FitResult]) -> str:
-    """The AIC ranking of several fits (best first), with ΔAIC from the best."""
+    """The AIC ranking of several fits (best first), with ΔAIC from the best, BIC and
+    (when computed) the cross-validated log-likelihood of held-out sessions."""
     best = min(r.aic for r in results)
-    lines = [f"  {'rank':<6}{'learner':<18}{'k':>3}{'log-lik':>12}{'AIC':>12}{'dAIC':>9}"
-             f"{'BIC':>12}"]
+    cv = any(r.cv_log_likelihood is not None for r in results)
+    lines = [f"  {'rank':<6}{'learner':<18}{'link':<9}{'k':>3}{'log-lik':>12}{'AIC':>12}"
+             f"{'dAIC':>9}{'BIC':>12}" + (f"{'CV log-lik':>13}" if cv else "")]
     for i, r in enumerate(sorted(results, key=lambda r: r.aic)):
-        lines.append(f"  {i + 1:<6}{r.learner:<18}{r.k:>3}{r.log_likelihood:>12.3f}{r.aic:>12.3f}"
-                     f"{r.aic - best:>9.2f}{r.bic:>12.3f}")
+        row = (f"  {i + 1:<6}{r.learner:<18}{r.link:<9}{r.k:>3}{r.log_likelihood:>12.3f}"
+               f"{r.aic:>12.3f}{r.aic - best:>9.2f}{r.bic:>12.3f}")
+        if cv:
+            row += f"{r.cv_log_likelihood:>13.3f}" if r.cv_log_likelihood is not None else f"{'-':>13}"
+        lines.append(row)
     return "\n".join(lines)
+
+
+def _plain_or_none(x: Any) -> float | None:
+    return None if x is None else _plain(x)
+
+
+def _jsonable(v: Any) -> Any:
+    """A parameter value as JSON data (a per-cue rate array as a list)."""
+    if isinstance(v, np.ndarray):
+        return v.tolist()
+    if isinstance(v, (list, tuple)):
+        return list(v)
+    return float(v)
 
 
 def _plain(x: float) -> float | None:

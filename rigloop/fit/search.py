@@ -7,7 +7,10 @@ unit box (``_Box``): linearly for rates, probabilities and θ; on a log scale fo
 variances and β (``params.PARAMETERS`` lists the default bounds). Standard errors come
 from a numerical Hessian of the negative log-likelihood at the optimum, taken in the
 same unit-box coordinates and mapped back by the delta method (equal to the
-natural-scale Hessian at a stationary point).
+natural-scale Hessian at a stationary point). 95% intervals come from the profile
+likelihood (``profile.py``), one-sided where an estimate sits on a bound; a parametric
+bootstrap (``bootstrap.py``) is on request. ``warnings`` says, in sentences, where a
+parameter is not identified by the trials.
 
 scipy is an optional dependency (the ``fit`` extra) and is imported here only, when a
 fit runs.
@@ -27,12 +30,14 @@ from .data import FitData, as_fit_data, check_enough_trials
 from .likelihood import NegLogLik, fitted_trials
 from .params import (
     PARAMETERS,
+    default_fixed,
     free_parameters,
     model_parameters,
     pinned_parameters,
     search_bounds,
     start_values,
 )
+from .profile import interval_warnings, profile_intervals
 from .results import FitResult
 
 _HESSIAN_STEP = 1e-4  # in unit-box coordinates: about eps**(1/4), common practice
@@ -67,6 +72,10 @@ def fit_subject(
     seed: int = 0,
     hessian: bool = True,
     progress: Callable[[int, int], None] | None = None,
+    link: str | None = None,
+    intervals: bool = True,
+    bootstrap: int = 0,
+    crossval: bool = False,
 ) -> FitResult:
     """Maximum-likelihood fit of ``learner_name`` and the observation model to ``events``.
 
@@ -77,8 +86,13 @@ def fit_subject(
     it entirely, so ``{}`` frees every parameter).
     start: starting values for some free parameters (the first start); the others come
     from ``PARAMETERS`` defaults. bounds: (low, high) per parameter, replacing the default.
+    With ``fixed`` None, a default pin that ``bounds`` or ``start`` names is freed.
     starts: number of starts (the first, then a seeded draw from a 3-level grid).
-    progress(done, total) is called after each start.
+    progress(done, total) is called after each start (and each profile and bootstrap fit).
+    link: "respond" (go/no-go) or "choice" (two sides); None picks it from the trials'
+    response kinds (``data.link_for``). intervals: profile-likelihood 95% intervals
+    (``profile.py``); bootstrap: that many parametric-bootstrap refits (``bootstrap.py``);
+    crossval: the cross-validated log-likelihood of held-out sessions (``crossval.py``).
 
     Steps:
       1. import scipy.optimize (MissingDependency without it);
@@ -88,12 +102,18 @@ def fit_subject(
       5. the starting points on the unit box: the first start, then grid points;
       6. L-BFGS-B from each point on the negative log-likelihood; the lowest wins;
       7. standard errors from the Hessian there (unless ``hessian`` is False);
-      8. the per-trial values and probabilities at the fitted parameters.
+      8. profile intervals, bootstrap intervals and the warnings;
+      9. the per-trial values and probabilities at the fitted parameters.
     """
     optimize = _scipy_optimize()
-    data = as_fit_data(events, representation, reward_unit_ul)
-    pinned = pinned_parameters(learner_name, data.representation, fixed)
-    names = model_parameters(learner_name)
+    data = as_fit_data(events, representation, reward_unit_ul, link)
+    if fixed is None:
+        # a default pin the caller gave bounds or a start for is fitted instead
+        named = set(bounds or {}) | set(start or {})
+        fixed = {k: v for k, v in default_fixed(learner_name, data.representation, data.link).items()
+                 if k not in named}
+    pinned = pinned_parameters(learner_name, data.representation, fixed, data.link)
+    names = model_parameters(learner_name, data.link)
     free = free_parameters(names, pinned)
     box_bounds = search_bounds(free, bounds or {}, names)
     check_enough_trials(data, len(free))
@@ -111,14 +131,59 @@ def fit_subject(
     s_hat = np.clip(best.x, 0.0, 1.0)
     theta_hat = box.natural(s_hat)
     params = {n: pinned[n] if n in pinned else float(theta_hat[free.index(n)]) for n in names}
-    se, note = (_standard_errors(nll, s_hat, theta_hat, box) if hessian
-                else (None, "standard errors not computed (hessian=False)"))
+    se, note, se_unit = (_standard_errors(nll, s_hat, theta_hat, box) if hessian
+                         else (None, "standard errors not computed (hessian=False)", None))
     message = best.message if isinstance(best.message, str) else best.message.decode()
+    warnings = [] if best.success else [
+        f"The optimiser did not converge ({message}): the estimates may not be the maximum "
+        f"of the likelihood; try more starts (--starts)."]
+    if se is None and hessian:
+        warnings.append("The Hessian of the negative log-likelihood is not positive definite: "
+                        "some parameter is not identified by these trials (two may trade off "
+                        "against each other); fix one and fit again.")
+    ci95 = {}
+    if intervals:
+        ci95, lowest = profile_intervals(nll, s_hat, float(best.fun), box.natural, free,
+                                         lambda f, z0: _local(optimize, f, z0), se_unit)
+        if lowest < float(best.fun) - 0.01:
+            warnings.append(f"A profile found a log-likelihood {float(best.fun) - lowest:.2f} "
+                            f"higher than the optimiser's: the fit stopped at a local optimum; "
+                            f"fit again with more starts (--starts).")
+        for name in free:
+            se_n = se.get(name) if se else None
+            warnings += interval_warnings(name, params[name], ci95[name], box_bounds[name], se_n,
+                                          PARAMETERS[name].log)
+
+    def refit(objective_b: NegLogLik) -> np.ndarray:
+        got = _local(optimize, lambda z: objective_b(box.natural(z)), s_hat)[0]
+        return box.natural(np.clip(got, 0.0, 1.0))
+
+    boot = None
+    if bootstrap:
+        from .bootstrap import parametric_bootstrap
+
+        boot = parametric_bootstrap(data, learner_name, free, pinned, params, bootstrap, seed,
+                                    refit, progress)
+    cv = None
+    if crossval:
+        from .crossval import cross_validated
+
+        cv = cross_validated(data, learner_name, free, pinned, refit)
     return FitResult(
         learner=learner_name, representation=data.representation.kind, params=params, free=free,
         fixed=pinned, log_likelihood=-float(best.fun), n_trials=data.n_observed,
         n_events=data.n_events, converged=bool(best.success), message=message, se=se,
-        se_note=note, starts=len(points), trials=fitted_trials(data, learner_name, params))
+        se_note=note, starts=len(points), trials=fitted_trials(data, learner_name, params),
+        link=data.link, ci95=ci95, warnings=tuple(warnings), bounds=dict(box_bounds),
+        start=dict(zip(free, map(float, first), strict=True)), bootstrap=boot,
+        cv_log_likelihood=None if cv is None else cv[0], cv_sessions=0 if cv is None else cv[1])
+
+
+def _local(optimize, f: Callable[[np.ndarray], float], z0: np.ndarray) -> tuple[np.ndarray, float]:
+    """One L-BFGS-B run on the unit box from ``z0``: (point, value)."""
+    res = optimize.minimize(f, np.asarray(z0, dtype=np.float64), method="L-BFGS-B",
+                            bounds=[(0.0, 1.0)] * len(z0))
+    return np.asarray(res.x), float(res.fun)
 
 
 def _count_of_starts(starts: Any) -> int:
@@ -199,26 +264,28 @@ def _standard_errors(nll, s_hat: np.ndarray, theta_hat: np.ndarray, box: _Box):
     inside = [i for i, s in enumerate(s_hat) if 2 * h < s < 1 - 2 * h]
     at_bound = [box.names[i] for i in range(len(s_hat)) if i not in inside]
     se: dict[str, float | None] = {n: None for n in box.names}
+    se_unit: list[float | None] = [None] * len(box.names)
     notes = []
     if at_bound:
         notes.append(f"{', '.join(at_bound)} at a bound: no standard error there "
                      "(consider fixing it or widening its bounds)")
     if not inside:
-        return se, "; ".join(notes)
+        return se, "; ".join(notes), se_unit
     H = _hessian(nll, s_hat, inside, h)
     try:
         np.linalg.cholesky(H)
     except np.linalg.LinAlgError:
         notes.insert(0, "the Hessian of the negative log-likelihood is not positive definite "
                         "(a parameter may not be identifiable from these trials; try fixing one)")
-        return None, "; ".join(notes)
+        return None, "; ".join(notes), se_unit
     cov_s = np.linalg.inv(H)
     J = box.jacobian(theta_hat)[inside]
     # Cov(θ) = J Cov(s) J, J = diag(dθ/ds)
     var = J * np.diagonal(cov_s) * J
     for j, i in enumerate(inside):
         se[box.names[i]] = float(math.sqrt(var[j]))
-    return se, "; ".join(notes)
+        se_unit[i] = float(math.sqrt(cov_s[j, j]))
+    return se, "; ".join(notes), se_unit
 
 
 def _hessian(f, x: np.ndarray, idx: Sequence[int], h: float) -> np.ndarray:

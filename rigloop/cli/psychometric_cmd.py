@@ -68,7 +68,7 @@ def run_psychometric(db: str, subject: str, *, session: str | None = None, funct
     import sys
 
     from ..fit.psychometric import fit_psychometric
-    from ..fit.psychometric_data import graded_trials
+    from ..fit.psychometric_data import graded_trials, staircase_comparison
     from ..outputs.report import check_out
 
     stream = stream or sys.stdout
@@ -90,36 +90,6 @@ def run_psychometric(db: str, subject: str, *, session: str | None = None, funct
         if out is not None:
             print(f"figure: {out}", file=stream)
     return 0
-
-
-def staircase_comparison(data, fit) -> dict | None:
-    """The track's convergence point against its rule's Levitt target and the fitted curve."""
-    from ..fit.psychometric import convergence_level, fit_psychometric, levitt_target
-
-    spec = data.staircase
-    if spec is None:
-        return None
-    target = levitt_target(spec.down, spec.up)
-    converged, reversals = convergence_level(data.track)
-    out = {"rule": f"{spec.up}-up-{spec.down}-down", "target": target, "level": converged,
-           "reversals": reversals, "p_fit_at_level": None, "threshold_at_target": None,
-           "threshold_at_target_ci95": None, "equal_steps": spec.step_harder == spec.step_easier}
-    if converged is not None:
-        out["p_fit_at_level"] = float(fit.predict([converged])[0])
-    if target is not None and fit.params["guess"] < target < 1 - fit.bounds["lapse"][1]:
-        at = fit_psychometric(fit.x.repeat(fit.n.astype(int)), _ys(fit), function=fit.function, level=target,
-                              guess=fit.params["guess"] if "guess" in fit.fixed else None,
-                              direction=fit.direction, band_runs=0, intervals=("threshold",))
-        out["threshold_at_target"] = at.params["threshold"]
-        out["threshold_at_target_ci95"] = list(at.ci95["threshold"])
-    return out
-
-
-def _ys(fit):
-    """The 1/0 scores behind the fit's counts, level by level (the order ``repeat`` gives)."""
-    import numpy as np
-
-    return np.concatenate([np.r_[np.ones(int(k)), np.zeros(int(n - k))] for k, n in zip(fit.k, fit.n)])
 
 
 def to_json(subject: str, data, fit, stair) -> dict:

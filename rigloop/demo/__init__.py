@@ -3,6 +3,8 @@
 Part 1 tours the four learners on an invented two-tone discrimination with a
 reversal. Part 2 runs the daemon on a fresh data directory with virtual rigs (ZeroMQ
 and serial) and shows what it decided and why; then replays, exports and plots.
+Part 3 fits a simulated mouse and checks the fit against it, and fits a psychometric
+function to a simulated rat's staircase trials (figures in the data directory).
 """
 
 from __future__ import annotations
@@ -42,6 +44,11 @@ def main(args) -> int:
     status = demo_daemon.run(data)
     print("")
     status |= demo_daemon.after(data)
+    print("")
+    from . import fit_tour as demo_fit
+
+    _banner("rigloop demo, part 3: does the fitted model reproduce the animal? and a psychometric fit")
+    status |= demo_fit.run(data)
     print("")
     print("demo finished" + ("" if status == 0 else " WITH PROBLEMS (see above)"))
     return status

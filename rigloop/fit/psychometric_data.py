@@ -24,6 +24,7 @@ import numpy as np
 
 from ..core.trial import Decision
 from ..errors import BadArgument
+from .psychometric import convergence_level, fit_psychometric, levitt_target
 
 COUNT_KINDS = ("licks", "lever")
 
@@ -120,3 +121,29 @@ def _staircase_of(rules, decision: Decision):
     stage = rules.spec.stages.get(decision.stage)
     block = stage.blocks.get(decision.block) if stage is not None else None
     return getattr(block, "staircase", None)
+
+
+def staircase_comparison(data, fit) -> dict | None:
+    """The track's convergence point against its rule's Levitt target and the fitted curve."""
+    spec = data.staircase
+    if spec is None:
+        return None
+    target = levitt_target(spec.down, spec.up)
+    converged, reversals = convergence_level(data.track)
+    out = {"rule": f"{spec.up}-up-{spec.down}-down", "target": target, "level": converged,
+           "reversals": reversals, "p_fit_at_level": None, "threshold_at_target": None,
+           "threshold_at_target_ci95": None, "equal_steps": spec.step_harder == spec.step_easier}
+    if converged is not None:
+        out["p_fit_at_level"] = float(fit.predict([converged])[0])
+    if target is not None and fit.params["guess"] < target < 1 - fit.bounds["lapse"][1]:
+        at = fit_psychometric(fit.x.repeat(fit.n.astype(int)), _ys(fit), function=fit.function, level=target,
+                              guess=fit.params["guess"] if "guess" in fit.fixed else None,
+                              direction=fit.direction, band_runs=0, intervals=("threshold",))
+        out["threshold_at_target"] = at.params["threshold"]
+        out["threshold_at_target_ci95"] = list(at.ci95["threshold"])
+    return out
+
+
+def _ys(fit):
+    """The 1/0 scores behind the fit's counts, level by level (the order ``repeat`` gives)."""
+    return np.concatenate([np.r_[np.ones(int(k)), np.zeros(int(n - k))] for k, n in zip(fit.k, fit.n)])

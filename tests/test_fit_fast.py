@@ -1,0 +1,150 @@
+"""The fit's compiled value trajectory (fit/fast.py, batch_kernels.kalman_probes /
+delta_probes) against the readable per-trial path it replaces.
+
+Agreement is to 1e-12, not bit for bit: the learners' dot products are BLAS sums (which
+may fuse a multiply and an add, and sum in an order of their own), while the kernels add
+the non-zero terms in index order. On one-hot rows the two agree exactly; on rows with
+several features on (presence of two cues, traces) they differ in the last bits.
+"""
+
+import math
+
+import numpy as np
+import pytest
+
+from rigloop import fit
+from rigloop.core.features import CueList, make_representation
+from rigloop.core.learners import make_learner
+from rigloop.core.trial import CuePresentation, Outcome, Response, TrialEvent
+from rigloop.errors import BadArgument
+from rigloop.fit.fast import batch_values, onset_values_fast
+
+pytest.importorskip("numba")
+
+TONES = CueList(["tone_hi", "tone_lo", "light"])
+UNIT = 4.0
+REPS = {
+    "identity": make_representation("identity", TONES),
+    "presence": make_representation("presence", TONES, dt=0.5),
+    "serial_compound": make_representation("serial_compound", TONES, dt=0.5, n_bins=4),
+    "trace": make_representation("trace", TONES, dt=0.5, decay=0.6),
+}
+LEARNERS = {
+    "rescorla_wagner": {"alpha": 0.3},
+    "kalman_filter": {"diffusion": 0.02, "noise": 0.5, "prior_var": 1.5},
+    "td": {"alpha": 0.2, "gamma": 0.9, "lam": 0.7},
+    "kalman_td": {"gamma": 0.93, "diffusion": 0.01, "noise": 0.4, "prior_var": 1.2},
+}
+
+
+def _events(n=150, seed=0):
+    """An invented task: one or two cues per trial (a tone, sometimes with the light), a
+    reward after the tone on most trials, licks at random; some trials without a cue."""
+    rng = np.random.default_rng(seed)
+    events = []
+    for t in range(1, n + 1):
+        cues = ()
+        if rng.random() > 0.05:
+            tone = "tone_hi" if rng.random() < 0.5 else "tone_lo"
+            cues = (CuePresentation(tone, 0.5, 2.0),)
+            if rng.random() < 0.4:
+                cues += (CuePresentation("light", 1.0, 2.0),)
+        rewarded = bool(cues) and rng.random() < (0.8 if cues[0].cue == "tone_hi" else 0.2)
+        events.append(TrialEvent("m1", "rig1", "s1", t, cues=cues,
+                                 outcome=Outcome(reward_ul=UNIT, reward_time=2.0) if rewarded else Outcome(),
+                                 response=Response("licks", float(rng.integers(0, 3)), "correct"),
+                                 duration=3.0))
+    return events
+
+
+def _reference(monkeypatch, fn):
+    with monkeypatch.context() as mp:
+        mp.setenv("RIGLOOP_NO_NUMBA", "1")
+        return fn()
+
+
+@pytest.mark.parametrize("rep_name", sorted(REPS))
+@pytest.mark.parametrize("learner_name", sorted(LEARNERS))
+def test_onset_values_and_end_state_agree_with_the_per_trial_learner(learner_name, rep_name,
+                                                                      monkeypatch):
+    rep = REPS[rep_name]
+    data = fit.prepare(_events(), rep, reward_unit_ul=UNIT)
+    params = LEARNERS[learner_name]
+    ref_learner = make_learner(learner_name, rep.n_features, **params)
+    want = _reference(monkeypatch, lambda: fit.onset_values(data, ref_learner))
+    fast_learner = make_learner(learner_name, rep.n_features, **params)
+    got = fit.onset_values(data, fast_learner)
+    assert onset_values_fast(data, make_learner(learner_name, rep.n_features, **params)) is not None
+    np.testing.assert_array_equal(np.isnan(got), np.isnan(want))
+    np.testing.assert_allclose(got, want, rtol=1e-12, atol=1e-13)
+    # the learner ends after the last trial on both paths
+    np.testing.assert_allclose(fast_learner.w, ref_learner.w, rtol=1e-12, atol=1e-13)
+    if ref_learner.bayesian:
+        np.testing.assert_allclose(fast_learner.cov, ref_learner.cov, rtol=1e-12, atol=1e-13)
+        assert np.array_equal(fast_learner.cov, fast_learner.cov.T)  # exactly symmetric
+
+
+def test_one_hot_rows_agree_bit_for_bit(monkeypatch):
+    """With one feature on per row (serial compound, one cue per trial) every sum has at
+    most two non-zero terms, so the order cannot matter: the values are identical."""
+    events = [e for e in _events(200, seed=3) if len(e.cues) == 1]
+    rep = REPS["serial_compound"]
+    data = fit.prepare(events, rep, reward_unit_ul=UNIT)
+    for name in ("rescorla_wagner", "td"):
+        params = LEARNERS[name] if name != "td" else {"alpha": 0.2, "gamma": 0.9, "lam": 0.0}
+        mk = lambda: make_learner(name if name != "rescorla_wagner" else "td", rep.n_features,  # noqa: E731
+                                  **(params if name == "td" else {"alpha": 0.3, "gamma": 0.9}))
+        want = _reference(monkeypatch, lambda: fit.onset_values(data, mk()))
+        np.testing.assert_array_equal(fit.onset_values(data, mk()), want)
+
+
+def test_fitted_trials_sd_agree(monkeypatch):
+    rep = REPS["serial_compound"]
+    data = fit.prepare(_events(), rep, reward_unit_ul=UNIT)
+    params = {**LEARNERS["kalman_td"], "beta": 4.0, "theta": 0.2, "lapse": 0.05}
+    want = _reference(monkeypatch, lambda: fit.fitted_trials(data, "kalman_td", params))
+    got = fit.fitted_trials(data, "kalman_td", params)
+    np.testing.assert_allclose(got.sd, want.sd, rtol=1e-12, atol=1e-13)
+    np.testing.assert_allclose(got.p_respond, want.p_respond, rtol=1e-12, atol=1e-13)
+
+
+def test_batch_values_equal_one_set_at_a_time():
+    rep = REPS["trace"]
+    data = fit.prepare(_events(), rep, reward_unit_ul=UNIT)
+    sets = [{"gamma": g, "diffusion": d, "noise": 0.4, "prior_var": 1.0}
+            for g in (0.5, 0.9) for d in (0.001, 0.05)]
+    V, ok = batch_values(data, "kalman_td", sets)
+    assert ok.all() and V.shape == (4, data.n_events, 1)
+    for i, p in enumerate(sets):
+        one = fit.onset_values(data, make_learner("kalman_td", rep.n_features, **p))
+        np.testing.assert_array_equal(V[i, :, 0], one)  # the same kernel: identical
+
+
+def test_overflow_is_refused_like_the_learner(monkeypatch):
+    """Rewards so large that the values overflow: both paths refuse (BadArgument), and the
+    likelihood objective scores such a point as far worse than any fit."""
+    events = [TrialEvent("m1", "rig1", "s1", t, cues=(CuePresentation("tone_hi", 0.5, 2.0),),
+                         outcome=Outcome(reward_ul=1e300, reward_time=2.0),
+                         response=Response("licks", 1.0, "correct"), duration=3.0)
+              for t in range(1, 60)]
+    data = fit.prepare(events, REPS["identity"], reward_unit_ul=1.0)
+    # α = 3: w ← 3r − 2w, which doubles in size each trial and overflows within 30
+    mk = lambda: make_learner("rescorla_wagner", 3, alpha=3.0)  # noqa: E731
+    with pytest.raises(BadArgument):
+        fit.onset_values(data, mk())
+    with pytest.raises(BadArgument):
+        _reference(monkeypatch, lambda: fit.onset_values(data, mk()))
+
+
+def test_a_whole_fit_agrees_with_the_reference_path(monkeypatch):
+    """The same optimiser on both paths lands on the same optimum (1e-6: the objective
+    differs in the last bits, so the numerical gradients may differ a little more)."""
+    rep = REPS["identity"]
+    data = fit.prepare(_events(200, seed=5), rep, reward_unit_ul=UNIT)
+    kw = {"fixed": {"lapse": 0.05}, "starts": 1, "intervals": False}
+    got = fit.fit_subject(data, "rescorla_wagner", **kw)
+    want = _reference(monkeypatch, lambda: fit.fit_subject(data, "rescorla_wagner", **kw))
+    assert got.log_likelihood == pytest.approx(want.log_likelihood, rel=1e-9)
+    for name in got.free:
+        assert got.params[name] == pytest.approx(want.params[name], rel=1e-6, abs=1e-8)
+    assert math.isfinite(got.log_likelihood)

@@ -114,3 +114,21 @@ def test_behaviour_quantities_equal_the_reference():
             assert fast.keys() == ref.keys()
             assert all(_bits(fast[k]) == _bits(ref[k]) for k in fast), est
     assert math.isfinite(fast[next(iter(fast))])
+
+
+def test_p_difference_above_kept_nodes_equal_the_plain_loop():
+    # the nodes kept for cue a (p_difference_above) against the plain loop, bit for bit: fresh
+    # states, then the same cue a with a new cue b (the kept path), margins 0 to near 1
+    import random
+
+    from rigloop.core import behaviour as B
+
+    rng = random.Random(11)
+    for _ in range(3000):
+        ma, va = rng.uniform(-7.0, 7.0), rng.uniform(1e-3, 6.0)
+        margin = rng.choice([0.0, 1e-9, 0.05, 0.2, 0.5, 0.95])
+        for _ in range(3):
+            mb, vb = rng.uniform(-7.0, 7.0), rng.uniform(1e-3, 6.0)
+            got = B.p_difference_above(ma, va, mb, vb, margin)
+            want = B._p_difference_above_reference(ma, va, mb, vb, margin)
+            assert got.hex() == want.hex(), (ma, va, mb, vb, margin)

@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import argparse
 import dataclasses
+import itertools
 import json
 import statistics
 import sys
@@ -26,6 +27,7 @@ sys.path.insert(0, str(ROOT))
 
 import numpy as np  # noqa: E402
 
+from rigloop.core import behaviour as behaviour_module  # noqa: E402
 from rigloop.core import curve, features, quantities, seeds  # noqa: E402
 from rigloop.core import step as core_step  # noqa: E402
 from rigloop.core.subject import new_subject  # noqa: E402
@@ -78,6 +80,7 @@ def tricks() -> dict[str, dict[str, float]]:
     cues = [(c.cue, c.onset, c.offset) for c in event.cues]
     outcomes = [(t, a / 4.0) for t, a in event.outcome_events()]
     behaviour = {"tone_hi": (1.2, 0.4, 20), "tone_lo": (-0.8, 0.5, 18)}
+    b_means = itertools.cycle(np.linspace(-1.0, 0.5, 97).tolist())  # cue b moves, cue a stays (as between trials)
     return {
         "lazy trial generator vs trial_rng": _pair(lambda: seeds._LazyTrialRng(7, 3),
                                                     lambda: seeds.trial_rng(7, 3), 20000),
@@ -90,6 +93,9 @@ def tricks() -> dict[str, dict[str, float]]:
                                                     lambda: dataclasses.replace(sched, trials_in_block=3), 20000),
         "kept trial rows vs checked rows": _pair(lambda: rep._event_rows(event, 4.0),
                                                  lambda: rep.rows(cues, outcomes, event.duration), 5000),
+        "P(p_a - p_b > m), cue a kept vs plain loop": _pair(
+            lambda: behaviour_module.p_difference_above(1.2, 0.4, next(b_means), 0.5, 0.2),
+            lambda: behaviour_module._p_difference_above_reference(1.2, 0.4, next(b_means), 0.5, 0.2), 5000),
         "behaviour quantities vs reference": _pair(
             lambda: quantities._behaviour_quantities({}, rules.spec, behaviour),
             lambda: quantities._behaviour_quantities_reference({}, rules.spec, behaviour), 20000),

@@ -164,6 +164,71 @@ class Response:
             object.__setattr__(self, "latency", _number("response.latency", self.latency, optional=True))
 
 
+@dataclass(frozen=True, slots=True)
+class TrialStep:
+    """One step of a multi-step trial: the ``state`` shown (a cue or a task state), the
+    ``action`` the animal took there (None: none), its ``time`` (s from trial start) and
+    the reward delivered at that step, ``reward_ul`` (µL, 0 for none).
+
+    A trial's steps are in the order the animal went through them, so their times never
+    decrease. A trial without steps is a one-step trial, read from its cues and response."""
+
+    state: str
+    action: str | None = None
+    time: float = 0.0
+    reward_ul: float = 0.0
+    index: int = field(default=0, compare=False, repr=False)  # its place in the trial, for error messages
+
+    def __post_init__(self) -> None:
+        where = f"steps[{self.index}]"
+        if not isinstance(self.state, str) or not self.state:
+            raise BadEvent(f"{where}.state", "must be a non-empty string (the state or cue shown)", self.state)
+        _ident(f"{where}.state", self.state)
+        if self.action is not None:
+            if not isinstance(self.action, str) or not self.action:
+                raise BadEvent(f"{where}.action", "must be a non-empty string or nil (no action)", self.action)
+            _ident(f"{where}.action", self.action)
+        if not _fine(self.time):
+            object.__setattr__(self, "time", _number(f"{where}.time", self.time))
+        if not _fine(self.reward_ul):
+            object.__setattr__(self, "reward_ul", _number(f"{where}.reward_ul", self.reward_ul))
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"state": self.state, "action": self.action, "time": self.time, "reward_ul": self.reward_ul}
+
+
+STEP_FIELDS = ("state", "action", "time", "reward_ul")
+MAX_STEPS = 16
+
+
+def _steps(value: Any) -> tuple[TrialStep, ...]:
+    """A trial's steps checked: TrialStep values (or maps of their fields), at most
+    ``MAX_STEPS``, times in order."""
+    if not isinstance(value, (list, tuple)):
+        raise BadEvent("steps", "must be a list of steps (state, action, time, reward_ul)", value)
+    if len(value) > MAX_STEPS:
+        raise BadEvent("steps", f"may hold at most {MAX_STEPS} steps", len(value))
+    out = []
+    for i, item in enumerate(value):
+        if isinstance(item, TrialStep):
+            item = TrialStep(item.state, item.action, item.time, item.reward_ul, i)
+        elif isinstance(item, Mapping):
+            unknown = sorted(set(map(str, item)) - set(STEP_FIELDS))
+            if unknown:
+                raise BadEvent(f"steps[{i}].{unknown[0]}", f"is not a step field (fields: {', '.join(STEP_FIELDS)})",
+                               item[unknown[0]])
+            if "state" not in item:
+                raise BadEvent(f"steps[{i}].state", "is missing", None)
+            item = TrialStep(item["state"], item.get("action"), item.get("time", 0.0), item.get("reward_ul", 0.0), i)
+        else:
+            raise BadEvent(f"steps[{i}]", "must be a map of state, action, time, reward_ul", item)
+        if out and item.time < out[-1].time:
+            raise BadEvent(f"steps[{i}].time", f"must not be before the previous step's time {out[-1].time:g} s",
+                           item.time)
+        out.append(item)
+    return tuple(out)
+
+
 # --------------------------------------------------------------------------- event
 
 
@@ -186,6 +251,7 @@ class TrialEvent:
     duration: float | None = None
     wall_time: float = 0.0
     extra: Mapping[str, Scalar] = field(default_factory=dict)
+    steps: tuple[TrialStep, ...] = ()
 
     def __post_init__(self) -> None:
         _ident("subject", self.subject)
@@ -209,6 +275,14 @@ class TrialEvent:
         if not _fine(self.wall_time):
             object.__setattr__(self, "wall_time", _number("wall_time", self.wall_time))
         object.__setattr__(self, "extra", _extra("extra", self.extra))
+        if self.steps != ():
+            steps = _steps(self.steps)
+            object.__setattr__(self, "steps", steps)
+            paid = math.fsum(s.reward_ul for s in steps)
+            if paid > 0 and not math.isclose(paid, self.outcome.reward_ul, rel_tol=1e-9, abs_tol=1e-9):
+                raise BadEvent("steps", f"rewards add up to {paid:g} uL but outcome.reward_ul is "
+                                        f"{self.outcome.reward_ul:g} uL (the outcome holds the trial's total, "
+                                        "which the water count uses)", paid)
         latest = max(self.event_times(), default=0.0)
         if self.duration is None:
             object.__setattr__(self, "duration", latest)
@@ -227,6 +301,8 @@ class TrialEvent:
                 times.append(t)
         if self.response.latency is not None:
             times.append(self.response.latency)
+        if self.steps:
+            times.append(self.steps[-1].time)
         return times
 
     @property
@@ -274,7 +350,9 @@ class TrialEvent:
     # -- plain data -----------------------------------------------------------
 
     def to_dict(self) -> dict[str, Any]:
-        return {
+        """Plain data; ``steps`` appears only when the trial has steps, so a one-step
+        trial's dict (and its stored text) is what it always was."""
+        out = {
             "subject": self.subject,
             "rig": self.rig,
             "session": self.session,
@@ -297,6 +375,9 @@ class TrialEvent:
             "wall_time": self.wall_time,
             "extra": dict(self.extra),
         }
+        if self.steps:
+            out["steps"] = [s.to_dict() for s in self.steps]
+        return out
 
     @classmethod
     def from_dict(cls, data: Mapping[str, Any]) -> TrialEvent:
@@ -325,6 +406,7 @@ class TrialEvent:
                 duration=data.get("duration"),
                 wall_time=data.get("wall_time", 0.0),
                 extra=data.get("extra") or {},
+                steps=data.get("steps") or (),
             )
         except BadEvent as err:
             err.raw = data
@@ -332,7 +414,7 @@ class TrialEvent:
 
 
 _EVENT_FIELDS = frozenset(
-    {"subject", "rig", "session", "trial", "cues", "outcome", "response", "duration", "wall_time", "extra"}
+    {"subject", "rig", "session", "trial", "cues", "outcome", "response", "duration", "wall_time", "extra", "steps"}
 )
 
 

@@ -16,6 +16,8 @@ See ``tests/data/import_map.toml`` for a worked example with every section:
                 wall_time takes format = "epoch" (default) or "iso", and timezone = "Area/City"
                 for ISO times written without an offset
     [[cue]]     one table per cue slot: cue, onset, offset; a blank cue cell leaves the slot empty
+    [[step]]    one table per step slot of a multi-step trial, in the order of the steps: state,
+                time (required), action, reward_ul (optional); a blank state cell ends the steps
     [outcome]   reward_ul (µL), or rewarded (true/false, 1/0, yes/no) with volume_ul =
                 <constant µL>; reward_time, punishment, punishment_time, timeout_s
     [response]  kind, value, result, latency
@@ -80,6 +82,14 @@ class CueSlot:
 
 
 @dataclass(frozen=True, slots=True)
+class StepSlot:
+    state: Source
+    time: Source
+    action: Source | None = None
+    reward_ul: Source | None = None
+
+
+@dataclass(frozen=True, slots=True)
 class ColumnMap:
     """A validated column mapping (see the module docstring); built by ``load_mapping``."""
 
@@ -106,6 +116,7 @@ class ColumnMap:
     encoding: str = "utf-8-sig"
     source: str | None = None
     wall_format: str = "epoch"  # trial.wall_time's format: "epoch" or "iso"
+    steps: tuple[StepSlot, ...] = ()
 
     def sources(self) -> list[Source]:
         out = [self.subject, self.session, self.trial, self.rig, self.wall_time, self.duration,
@@ -113,6 +124,8 @@ class ColumnMap:
                self.timeout_s, self.kind, self.value, self.result, self.latency]
         for slot in self.cues:
             out += [slot.cue, slot.onset, slot.offset]
+        for step in self.steps:
+            out += [step.state, step.time, step.action, step.reward_ul]
         out += [s for _, s in self.extra]
         return [s for s in out if s is not None]
 
@@ -121,13 +134,14 @@ class ColumnMap:
         return list(dict.fromkeys(s.column for s in self.sources() if s.column is not None))
 
 
-_SECTIONS = {"csv", "trial", "cue", "outcome", "response", "extra"}
+_SECTIONS = {"csv", "trial", "cue", "step", "outcome", "response", "extra"}
 _TRIAL_KEYS = {"subject": "str", "session": "str", "trial": "int", "rig": "str", "wall_time": "time",
                "duration": "float"}
 _OUTCOME_KEYS = {"reward_ul": "float", "rewarded": "bool", "volume_ul": None, "reward_time": "float",
                  "punishment": "str", "punishment_time": "float", "timeout_s": "float"}
 _RESPONSE_KEYS = {"kind": "str", "value": "auto", "result": "str", "latency": "float"}
 _CUE_KEYS = {"cue": "str", "onset": "float", "offset": "float"}
+_STEP_KEYS = {"state": "str", "time": "float", "action": "str", "reward_ul": "float"}
 _CHOICES = {"response.result": RESPONSE_RESULTS, "outcome.punishment": PUNISHMENTS}
 
 
@@ -260,6 +274,7 @@ def _build(data: dict[str, Any], source: str | None) -> ColumnMap:
     delimiter, encoding = _csv_section(ld, data)
     fields = _trial_section(ld, data)
     cues = _cue_section(ld, data)
+    steps = _step_section(ld, data)
     rw, volume = _outcome_section(ld, data)
     rs = _response_section(ld, data)
     extra = _extra_section(ld, data)
@@ -273,7 +288,7 @@ def _build(data: dict[str, Any], source: str | None) -> ColumnMap:
         punishment=rw.get("punishment"), punishment_time=rw.get("punishment_time"),
         timeout_s=rw.get("timeout_s"), kind=rs.get("kind"), value=rs.get("value"), result=rs.get("result"),
         latency=rs.get("latency"), extra=tuple(extra), delimiter=delimiter, encoding=encoding, source=source,
-        wall_format=_wall_format(data),
+        wall_format=_wall_format(data), steps=tuple(steps),
     )
     return mapping
 
@@ -329,6 +344,26 @@ def _cue_section(ld: _Loader, data: dict[str, Any]) -> list[CueSlot]:
         if all(parts.get(k) is not None for k in _CUE_KEYS):
             cues.append(CueSlot(parts["cue"], parts["onset"], parts["offset"]))
     return cues
+
+
+def _step_section(ld: _Loader, data: dict[str, Any]) -> list[StepSlot]:
+    """``[[step]]``: one slot per step of a multi-step trial, in step order."""
+    steps = []
+    raw_steps = data.get("step", [])
+    if not isinstance(raw_steps, list):
+        ld.problems.append("step must be an array of tables ([[step]] sections)")
+        raw_steps = []
+    for i, raw in enumerate(raw_steps, start=1):
+        slot = ld.table(raw, f"step[{i}]", _STEP_KEYS)
+        parts = {}
+        for key, kind in _STEP_KEYS.items():
+            if key in slot:
+                parts[key] = ld.spec(slot[key], f"step[{i}].{key}", kind)
+            elif key in ("state", "time"):
+                ld.problems.append(f"step[{i}].{key} is required")
+        if parts.get("state") is not None and parts.get("time") is not None:
+            steps.append(StepSlot(parts["state"], parts["time"], parts.get("action"), parts.get("reward_ul")))
+    return steps
 
 
 def _outcome_section(ld: _Loader, data: dict[str, Any]) -> tuple[dict[str, Source | None], float | None]:

@@ -14,7 +14,7 @@ from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
 from typing import Any, TextIO
 
-from ..core.trial import CuePresentation, Outcome, Response, TrialEvent
+from ..core.trial import CuePresentation, Outcome, Response, TrialEvent, TrialStep
 from ..errors import BadEvent, RigloopError
 from .csv_cells import CellError
 from .csv_map import ColumnMap, Source
@@ -170,13 +170,33 @@ def _event(row: Mapping[str, str], row_no: int, m: ColumnMap) -> tuple[TrialEven
         extra = {name: get(src) for name, src in m.extra}
         wall_time = get(m.wall_time, 0.0)
         duration = get(m.duration)
+        steps = _steps(m, get, field_columns)
         current = None
-        return TrialEvent(subject, rig, session, trial, tuple(cues), outcome, response, duration, wall_time, extra), None
+        return TrialEvent(subject, rig, session, trial, tuple(cues), outcome, response, duration, wall_time, extra,
+                          steps), None
     except CellError as err:
         column = current.column if current is not None else None
         return None, RowProblem(row_no, column, str(err))
     except BadEvent as err:
         return None, RowProblem(row_no, _column_of(err.field, m, field_columns), str(err))
+
+
+def _steps(m: ColumnMap, get, field_columns: dict[str, str | None]) -> tuple[TrialStep, ...]:
+    """The row's steps, slot by slot, up to the first blank state cell."""
+    steps = []
+    for i, slot in enumerate(m.steps):
+        state = get(slot.state)
+        if state is None:
+            break
+        fields = {"state": slot.state, "time": slot.time, "action": slot.action, "reward_ul": slot.reward_ul}
+        for part, src in fields.items():
+            field_columns[f"steps[{i}].{part}"] = src.column if src is not None else None
+        time = get(slot.time)
+        if time is None:
+            raise BadEvent(f"steps[{i}].time", f"is blank, but step {state!r} needs its time", None)
+        steps.append(TrialStep(state, get(slot.action), time, get(slot.reward_ul, 0.0), i))
+    field_columns["steps"] = m.steps[0].state.column if m.steps else None
+    return tuple(steps)
 
 
 def _column_of(field: str, m: ColumnMap, known: Mapping[str, str | None]) -> str | None:

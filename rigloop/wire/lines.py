@@ -76,6 +76,7 @@ _EVENT_KEYS = {
     "response.latency": "lat",
     "duration": "dur",
     "wall_time": "wall",
+    "steps": "steps",
 }
 # Decision field -> serial key, for error keys (the text lists keep their field names there)
 _DECISION_KEYS = {f.name: f.key for f in DECISION if f.kind != "texts"}
@@ -300,6 +301,8 @@ def _serial_key(name: str, table: dict[str, str]) -> str:
         return table[name]
     if name.startswith("cues"):
         return "cues"
+    if name.startswith("steps"):
+        return "steps"
     if name.startswith("extra"):
         rest = name[len("extra") :].lstrip(".")
         return "x." + esc(rest, KEY_OK) if rest and rest != "key" else "x."
@@ -390,6 +393,7 @@ def _read_trial(f: _Line) -> TrialReport:
         if name in extra:
             raise MessageError("bad_field", f"extra field {show(name)} appears twice", field="x." + esc(name, KEY_OK))
         extra[name] = value
+    steps = _read_steps(f.raw("steps", optional=True))
     data = {
         "subject": f.text("subj"),
         "rig": f.text("rig"),
@@ -402,7 +406,27 @@ def _read_trial(f: _Line) -> TrialReport:
         "wall_time": f.number("wall", optional=True) or 0.0,
         "extra": extra,
     }
+    if steps:
+        data["steps"] = steps
     return TrialReport(f.rid, TrialEvent.from_dict(data))
+
+
+def _read_steps(raw: str | None) -> list[dict[str, Any]]:
+    """``steps=state:action:time:uL,...`` (action empty for none; ``:uL`` may be left out)."""
+    if not raw:
+        return []
+    steps = []
+    for item in raw.split(","):
+        parts = item.split(":")
+        if len(parts) not in (3, 4):
+            raise MessageError("bad_field", f"'steps' entries must be state:action:time or state:action:time:uL "
+                                            f"(got {show(item)})", field="steps")
+        step = {"state": unesc(parts[0], "steps"), "action": unesc(parts[1], "steps") or None,
+                "time": read_float(parts[2], "steps")}
+        if len(parts) == 4:
+            step["reward_ul"] = read_float(parts[3], "steps")
+        steps.append(step)
+    return steps
 
 
 _REQUEST_READERS = {verb: _flat_reader(REQUEST_TYPES[kind], FIELDS[kind], _LAYOUTS.get(kind))
@@ -478,6 +502,10 @@ def _write_trial(r: TrialReport) -> list[tuple[str, str]]:
     out.append(("dur", fmt_float(e.duration)))
     if e.wall_time != 0:
         out.append(("wall", fmt_float(e.wall_time)))
+    if e.steps:
+        out.append(("steps", ",".join(
+            f"{esc(s.state, PART_OK)}:{'' if s.action is None else esc(s.action, PART_OK)}:{fmt_float(s.time)}"
+            + ("" if s.reward_ul == 0 else ":" + fmt_float(s.reward_ul)) for s in e.steps)))
     out.extend(("x." + esc(k, KEY_OK), fmt_scalar(v)) for k, v in e.extra.items())
     return out
 

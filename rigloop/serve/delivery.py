@@ -33,6 +33,7 @@ class Delivery:
         log_trials = self.log_trials
         latency = self.latency_ns
         published = []
+        logged = []
         for o in out:
             reply = o.reply
             try:
@@ -47,11 +48,16 @@ class Delivery:
             p = o.trial
             if p is not None and p.decision is not None:
                 if log_trials:
-                    self.log.info("trial", subject=p.event.subject, rig=p.event.rig, session=p.event.session,
-                                  trial=p.event.trial, latency_ms=round(latency_ns / 1e6, 3),
-                                  duplicate=bool(getattr(reply, "duplicate", False)), sent=ok)
+                    logged.append((p, latency_ns, reply, ok))
                 if p.update is not None and p.echo_of is None:
                     published.append(p)
+        # every reply of the batch is out before any trial is logged: a log line costs about
+        # as much as decoding a trial (tools/bench/latency.py --breakdown), and a rig late in a
+        # batch of 64 would otherwise wait for 63 of them
+        for p, latency_ns, reply, ok in logged:
+            self.log.info("trial", subject=p.event.subject, rig=p.event.rig, session=p.event.session,
+                          trial=p.event.trial, latency_ms=round(latency_ns / 1e6, 3),
+                          duplicate=bool(getattr(reply, "duplicate", False)), sent=ok)
         pub = self.publisher
         if pub is not None:
             for p in published:

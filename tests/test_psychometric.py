@@ -203,6 +203,10 @@ def test_command_json_and_figure(staircase_store, tmp_path, capsys):
     assert set(doc["params"]) == {"threshold", "slope", "guess", "lapse"}
     assert doc["params"]["guess"] == 0.5 and doc["ci95"]["guess"] is None
     assert doc["staircase"]["target"] == pytest.approx(0.7071, abs=1e-4)
+    # the 1-up-2-down track settles where the fitted curve gives Levitt's 70.7% (Levitt 1971)
+    lo, hi = doc["staircase"]["threshold_at_target_ci95"]
+    assert lo <= doc["staircase"]["level"] <= hi
+    assert abs(doc["staircase"]["p_fit_at_level"] - 0.7071) < 0.06
     assert fig.stat().st_size > 10_000
 
 

@@ -138,7 +138,7 @@ def _stair_words(s: dict) -> str:
     if s["level"] is None:
         parts.append(f"only {s['reversals']} reversals: too few for a convergence point")
     else:
-        parts.append(f"the track converged at {s['level']:.4g} (mean of the last reversals, {s['reversals']} in all), "
+        parts.append(f"the track converged at {s['level']:.4g} (mean level at its reversals after the first quarter, {s['reversals']} in all), "
                      f"where the fitted curve gives {s['p_fit_at_level']:.1%}")
     if s["threshold_at_target"] is not None:
         lo, hi = s["threshold_at_target_ci95"]

@@ -444,14 +444,17 @@ def reversal_levels(levels: Sequence[float]) -> list[float]:
     return out
 
 
-def convergence_level(levels: Sequence[float], last: int = 6) -> tuple[float | None, int]:
-    """The mean level of the last ``last`` reversals (common practice: the first few
-    reversals are dropped as the track homes in) and how many reversals there were;
-    (None, count) with fewer than 4 reversals."""
+def convergence_level(levels: Sequence[float]) -> tuple[float | None, int]:
+    """The mean level at the track's reversals after the first quarter of them (at least
+    two dropped while the track homes in; an even number kept, so peaks and valleys
+    weigh alike; common practice) and how many reversals there were; (None, count) with
+    fewer than 4 reversals."""
     rev = reversal_levels(levels)
     if len(rev) < 4:
         return None, len(rev)
-    tail = rev[-last:] if len(rev) >= last else rev[len(rev) // 2:]
+    tail = rev[max(2, len(rev) // 4):]
+    if len(tail) % 2:
+        tail = tail[1:]
     return float(np.mean(tail)), len(rev)
 
 

@@ -78,3 +78,16 @@ def test_resident_states_step_and_store_the_same():
         states.append((out, state.to_bytes()))
     assert states[0][0] == states[1][0]
     assert states[0][1] == states[1][1]
+
+
+def test_a_copy_of_a_resting_learner_leaves_it_resting():
+    rng = np.random.default_rng(4)
+    learner = KalmanTD(6)
+    learner._learn(*_trial(rng, 6))
+    want = learner._A.copy()
+    learner._rest()
+    twin = learner.copy()
+    assert learner._packed is not None  # still compact: the copy read the compact form
+    assert np.array_equal(twin._A, want)
+    new, _, _ = learner._learned(*_trial(rng, 6))
+    assert learner._packed is not None and new._packed is None

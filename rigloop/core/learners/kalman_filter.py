@@ -77,7 +77,12 @@ class _Gaussian(Learner):
         n = self._n
         self._shape = (n,)
         self._packed = None
-        self._views(np.zeros((n + 1, n)) if source is None else source._A.copy())
+        if source is None:
+            self._views(np.zeros((n + 1, n)))
+        elif source._packed is not None:  # a copy of a resting learner: built from its compact form
+            self._views(source._unpacked())
+        else:
+            self._views(source._A.copy())
 
     def _views(self, A: np.ndarray) -> None:
         """Take ``A`` ((n + 1, n): Σ over ŵ) as this learner's state, with its views and scratch."""
@@ -126,6 +131,12 @@ class _Gaussian(Learner):
 
     def _wake(self) -> None:
         """The working form again, from the compact one: the same bits as before ``_rest``."""
+        A = self._unpacked()
+        self._packed = None
+        self._views(A)
+
+    def _unpacked(self) -> np.ndarray:
+        """A new (n + 1, n) buffer [Σ; ŵ] from the compact form."""
         packed, n = self._packed, self._n
         rows, cols = _upper(n)
         m = len(rows)
@@ -133,8 +144,7 @@ class _Gaussian(Learner):
         A[rows, cols] = packed[:m]
         A[cols, rows] = packed[:m]
         A[n] = packed[m:]
-        self._packed = None
-        self._views(A)
+        return A
 
     def __getattr__(self, name: str) -> Any:
         # reached only for a slot that is not set: a working buffer of a resting learner

@@ -63,6 +63,8 @@ class FitData:
     link: str = "respond"
     # choice link: per trial, the (n,) onset rows of (cue:left, cue:right), None without a cue
     side_rows: tuple[tuple[np.ndarray, np.ndarray] | None, ...] | None = None
+    # choice link: (N, 2) the onset column of (cue:left, cue:right) per trial, −1 without a cue
+    side_columns: np.ndarray | None = None
 
     @property
     def n_events(self) -> int:
@@ -170,9 +172,14 @@ def prepare(events: Iterable, representation: Representation, *, reward_unit_ul:
     index = np.array(index, dtype=np.intp)
     for arr in (y, X_all, r_all, index):
         arr.setflags(write=False)
+    columns = None
+    if side_rows is not None:
+        columns = np.array([[int(np.argmax(x)) for x in pair] if pair is not None else [-1, -1]
+                            for pair in side_rows], dtype=np.intp).reshape(len(side_rows), 2)
+        columns.setflags(write=False)
     return FitData(representation, unit, tuple(rows), tuple(onset), y, tuple(sessions),
                    tuple(trials), X_all, r_all, index, link,
-                   None if side_rows is None else tuple(side_rows))
+                   None if side_rows is None else tuple(side_rows), columns)
 
 
 def _readonly(x: np.ndarray) -> np.ndarray:

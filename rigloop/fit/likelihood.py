@@ -90,7 +90,10 @@ def _values(data: FitData, learner, with_sd: bool = False) -> tuple[np.ndarray, 
 
 def side_values(data: FitData, learner) -> tuple[np.ndarray, np.ndarray]:
     """(N,) Q_L and Q_R of each trial's first cue before the trial's update (nan: no cue);
-    one ``learn_trial`` per trial (choice link)."""
+    one ``learn_trial`` per trial (choice link), or ``_side_values_one_hot`` when it applies."""
+    fast = _side_values_one_hot(data, learner)
+    if fast is not None:
+        return fast
     N = data.n_events
     QL, QR = np.full(N, math.nan), np.full(N, math.nan)
     for k in range(N):
@@ -101,6 +104,42 @@ def side_values(data: FitData, learner) -> tuple[np.ndarray, np.ndarray]:
             QR[k] = float(pair[1] @ learner.w)
         X, r = data.rows[k]
         learner.learn_trial(X, r)
+    return QL, QR
+
+
+def _side_values_one_hot(data: FitData, learner) -> tuple[np.ndarray, np.ndarray] | None:
+    """Q_L, Q_R from one stacked ``learn_trial``, for a reward learner on one row per trial
+    with at most one column on (identity features, one cue): None otherwise.
+
+    With one-hot rows and a diagonal prior, a column's weight changes only on a trial
+    that has it on (Rescorla–Wagner: Δw = α δ x; the Kalman filter's covariance stays
+    diagonal, so its gain is zero off the active column). So the value of column j
+    before trial t is the stacked value at the next trial that has j on, or the final
+    weight when none does: one backward pass.
+    """
+    X = data.X_all
+    if (learner.kind != "reward" or data.representation.kind != "identity"
+            or len(X) != data.n_events or not np.all(np.count_nonzero(X, axis=1) <= 1)
+            or not np.all((X == 0) | (X == 1))):
+        return None
+    values = learner.learn_trial(X, data.r_all).values
+    N = len(X)
+    active = np.where(X.any(axis=1), np.argmax(X, axis=1), -1)
+    final = np.asarray(learner.w, dtype=np.float64)
+    Q = np.empty_like(X)
+    t = np.arange(N)
+    for j in range(X.shape[1]):
+        on = np.flatnonzero(active == j)
+        if len(on) == 0:
+            Q[:, j] = final[j]
+            continue
+        # the first trial at or after t that has column j on
+        nxt = np.searchsorted(on, t)
+        Q[:, j] = np.where(nxt < len(on), values[on[np.minimum(nxt, len(on) - 1)]], final[j])
+    cols = data.side_columns
+    has = cols[:, 0] >= 0
+    QL = np.where(has, Q[t, np.maximum(cols[:, 0], 0)], math.nan)
+    QR = np.where(has, Q[t, np.maximum(cols[:, 1], 0)], math.nan)
     return QL, QR
 
 

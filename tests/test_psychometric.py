@@ -222,3 +222,11 @@ def test_command_text_and_wrong_input(staircase_store, capsys):
     assert main(["psychometric", "--db", staircase_store, "--subject", "rat01", "--level", "1.5"]) == 2
     assert main(["psychometric", "--db", staircase_store, "--subject", "rat01", "--guess", "lots"]) == 2
     assert "--guess" in capsys.readouterr().err
+
+
+def test_yes_no_fit_frees_the_guess_rate():
+    """Yes/no: responding at a 15% floor is the fitted guess rate, inside its interval."""
+    x, y = _observer("logistic", 0.5, 10.0, 0.15, 0.02, np.linspace(0.0, 1.0, 11), 1500, seed=12)
+    fit = P.fit_psychometric(x, y, function="logistic", guess=None, band_runs=0)
+    lo, hi = fit.ci95["guess"]
+    assert lo <= 0.15 <= hi and "guess" not in fit.fixed

@@ -74,6 +74,10 @@ def run_psychometric(db: str, subject: str, *, session: str | None = None, funct
     stream = stream or sys.stdout
     if out is not None:
         check_out(out)
+    if 0 < band_runs < 20:
+        from ..errors import BadArgument
+
+        raise BadArgument("--band-runs", "0 (no band) or at least 20 bootstrap refits", band_runs)
     with open_store(db) as store:
         data = graded_trials(store, subject, session)
     direction = -1 if data.staircase is not None and data.staircase.harder == "higher" else 1
@@ -104,7 +108,8 @@ def to_json(subject: str, data, fit, stair) -> dict:
 
 def format_psychometric(doc: dict) -> str:
     """The printed result."""
-    kind = "2-choice (guess fixed at chance)" if doc["kind"] == "afc" else "yes/no (guess fitted)"
+    task = "choice task" if doc["kind"] == "afc" else "yes/no task"
+    kind = f"{task}, guess {'fixed' if 'guess' in doc['fixed'] else 'fitted'}"
     lines = [f"subject {doc['subject']}: {doc['function']} psychometric function, {doc['n_trials']} trials, "
              f"{kind}; performance {doc['direction']} with the level",
              f"  {'parameter':<11}{'estimate':>10}   95% profile-likelihood interval"]

@@ -9,6 +9,7 @@ from __future__ import annotations
 import argparse
 
 from .args import Count, add_rules_file, add_session, add_store, open_store, rules_name
+from .executor_args import add_executor, executor_options
 
 
 def add_check(sub: argparse._SubParsersAction) -> None:
@@ -69,6 +70,7 @@ def add_simulate(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--animals-from", default=None, metavar="FIT_JSON",
                    help="simulate the fitted models in this `rigloop fit --json` file instead of presets "
                         "(--subjects animals per fitted subject; default: none)")
+    add_executor(p)
     p.set_defaults(func=_run_simulate)
 
 
@@ -76,15 +78,19 @@ def _run_simulate(args: argparse.Namespace) -> int:
     from ..core.names import check_name
     from ..offline.simulate import PRESETS
     from ..offline.sweep import print_simulation
+    from ..offline.two_step_sim import TWO_STEP_PRESETS
     from ..rules.load import load_any
 
-    check_name("--animal", "a simulated animal preset", args.animal, PRESETS)
+    check_name("--animal", "a simulated animal preset", args.animal, {**PRESETS, **TWO_STEP_PRESETS})
     if args.animals_from:
         from ..offline.fitted_animals import read_fit_json, simulate_fitted
 
         rules = load_any(rules_name(args.rules))
         return simulate_fitted(rules, read_fit_json(args.animals_from, rules), subjects=args.subjects,
                                sessions=args.sessions, max_trials=args.max_trials, seed=args.seed, db=args.db)
-    return print_simulation(load_any(rules_name(args.rules)), subjects=args.subjects, sessions=args.sessions,
-                            max_trials=args.max_trials, task=args.task, seed=args.seed, db=args.db,
-                            animal=args.animal, mix=args.mix)
+    from .progress import Progress
+
+    with Progress(0, "simulating", unit="animals") as bar:
+        return print_simulation(load_any(rules_name(args.rules)), subjects=args.subjects, sessions=args.sessions,
+                                max_trials=args.max_trials, task=args.task, seed=args.seed, db=args.db,
+                                animal=args.animal, mix=args.mix, progress=bar, **executor_options(args))

@@ -323,7 +323,12 @@ PRESETS: dict[str, dict] = {
 def preset_parameters(preset: str, argument: str = "preset") -> dict:
     """The parameters of a named preset; an unknown name is an error (naming ``argument``) listing the presets."""
     if preset not in PRESETS:
-        raise BadArgument(argument, f"one of the presets {', '.join(PRESETS)}", preset)
+        from .two_step_sim import TWO_STEP_PRESETS
+
+        if preset in TWO_STEP_PRESETS:  # an agent of the two-stage task: preset_animal checks the rule file
+            return {"two_step_only": True}
+        raise BadArgument(argument, f"one of the presets {', '.join(PRESETS)} (two-stage task also "
+                                    f"{', '.join(p for p in TWO_STEP_PRESETS if p not in PRESETS)})", preset)
     return dict(PRESETS[preset])
 
 
@@ -332,8 +337,16 @@ def preset_animal(preset: str, rules, subject: str, seed: int, **overrides) -> S
 
     Learning rate and (choice tasks) side bias vary with ``seed`` unless the preset sets
     them, so many subjects differ; ``overrides`` (any SimulatedAnimal field, ``task``
-    among them) win over both."""
+    among them) win over both. A rule file whose learner is ``two_step`` gets a
+    ``TwoStepAnimal`` instead (offline/two_step_sim.py: multi-step trials)."""
+    if rules.learner.name == "two_step":
+        from .two_step_sim import two_step_animal
+
+        return two_step_animal(preset, subject, seed, states=tuple(rules.spec.cues))
     params = preset_parameters(preset)
+    if params.pop("two_step_only", False):
+        raise BadArgument("preset", f"an animal for this rule file's task ({', '.join(PRESETS)}); {preset!r} plays "
+                                    "the two-stage task, whose rule files use the two_step learner", preset)
     roles = {name: spec.role for name, spec in rules.spec.cues.items()}
     sides = {c: r for c, r in roles.items() if r in ("left", "right")}
     kind = overrides.pop("task", None) or ("choice" if sides else "lick")
@@ -376,17 +389,17 @@ def simulate_session(
 
     The session ends when a decision says so or after ``max_trials``. With ``store``,
     every trial is stored as the daemon would store it: the session row carries the
-    first decision, each trial commits with its decision and quantities, and with
+    first decision, each trial is stored with its decision and quantities, and with
     ``snapshot_every`` = N > 0 the state after every N-th trial (and the last) is kept.
+    No rig waits for a reply here, so the session's trials are committed together, one
+    transaction for the animal-day (the stored rows are those of trial-by-trial commits).
     """
-    if state is None:
-        state = new_subject(animal.subject, rules)
-    seed = session_seed(animal.subject, session)
-    state, decision = begin_session(state, rules, session=session, rig=rig, wall_time=start_time, seed=seed)
+    state, decision, info = open_simulated_session(rules, animal.subject, session, state=state, rig=rig,
+                                                   start_time=start_time)
     if store is not None:
-        store.open_session(SessionInfo.new(animal.subject, session, rig, rules.name, rules.text, seed, start_time,
-                                           meta={"first_decision": decision.to_dict()}))
+        store.open_session(info)
     run = SessionRun(state=state, first=decision)
+    items = []
     t = start_time
     while not decision.end_session and len(run.events) < max_trials:
         event = animal.trial(decision, rig, t)
@@ -394,13 +407,37 @@ def simulate_session(
         if store is not None:
             last = decision.end_session or len(run.events) + 1 >= max_trials
             snap = state.to_bytes() if snapshot_every and (event.trial % snapshot_every == 0 or last) else None
-            store.commit_trial(event, decision, update.quantities, snap)
+            items.append((event, decision, update.quantities, snap))
         run.events.append(event)
         run.decisions.append(decision)
         run.updates.append(update)
         t += trial_s
+    if items:
+        commit_day(store, items)
     run.state = state
     return run
+
+
+def open_simulated_session(rules, subject: str, session: str, *, state: SubjectState | None = None,
+                           rig: str = "sim-rig", start_time: float = 1.8e9):
+    """``begin_session`` for a simulated session: (state, first decision, the SessionInfo to store).
+
+    One place builds the session row, so a caller may store it ahead of the run (to fix
+    the order subjects are listed in) and the run's own ``open_session`` finds it as is."""
+    if state is None:
+        state = new_subject(subject, rules)
+    seed = session_seed(subject, session)
+    state, decision = begin_session(state, rules, session=session, rig=rig, wall_time=start_time, seed=seed)
+    info = SessionInfo.new(subject, session, rig, rules.name, rules.text, seed, start_time,
+                           meta={"first_decision": decision.to_dict()})
+    return state, decision, info
+
+
+def commit_day(store, items) -> None:
+    """One transaction for a simulated animal-day's trials; the first trial refused is an error."""
+    for result in store.commit_batch(items):
+        if result.error is not None:
+            raise result.error
 
 
 def record_session(store, rules, animal: SimulatedAnimal, **kwargs) -> SessionRun:

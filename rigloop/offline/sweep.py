@@ -14,13 +14,15 @@ from __future__ import annotations
 import re
 import sys
 from collections import Counter
-from collections.abc import Sequence
-from concurrent.futures import Executor, ProcessPoolExecutor
+from collections.abc import Callable, Sequence
+from concurrent.futures import Executor
 from dataclasses import dataclass, field
 
 from ..errors import BadArgument
 from . import truth
-from .simulate import PRESETS, SimulatedAnimal, preset_animal, preset_parameters, simulate_session
+from .executors import run_ordered
+from .simulate import (PRESETS, SimulatedAnimal, open_simulated_session, preset_animal, preset_parameters,
+                       simulate_session)
 
 
 def animal_for(rules, subject: str, seed: int, task: str | None = None) -> SimulatedAnimal:
@@ -48,16 +50,20 @@ class SubjectSummary:
 def simulate_subject(rules_text: str, rules_source: str, subject: str, seed: int, sessions: int,
                      max_trials: int, task: str | None = None, db: str | None = None,
                      animal: str = "typical") -> SubjectSummary:
-    """All sessions of one simulated ``animal`` (a preset); a top-level function so it pickles."""
+    """All sessions of one simulated ``animal`` (a preset); a top-level function so it pickles.
+
+    Each session's trials are summarised (and with ``db`` stored, one transaction per
+    session) as soon as it ends and then dropped, so memory stays flat in the number of
+    sessions."""
     from ..rules import load_rules
 
-    rules = load_rules(rules_text, source=rules_source)
+    rules = _rules_for(rules_text, rules_source, load_rules)
     sim = preset_animal(animal, rules, subject, seed, task=task)
     out = SubjectSummary(subject, animal=animal)
     state = None
     total = 0
     store = None
-    runs = []
+    judged = []
     if db is not None:
         from ..store import Store
 
@@ -66,10 +72,10 @@ def simulate_subject(rules_text: str, rules_source: str, subject: str, seed: int
         for k in range(sessions):
             kw = dict(session=f"sim{k + 1:02d}", state=state, start_time=1.8e9 + 86400 * k, max_trials=max_trials)
             run = simulate_session(rules, sim, store=store, **kw)
-            runs.append(run)
+            judged.extend(truth.truth_trials([run], start=total + 1))
             state = run.state
             prev = run.first
-            for event, d in zip(run.events, run.decisions, strict=True):
+            for d in run.decisions:
                 total += 1
                 if d.block != prev.block:
                     out.blocks.append(f"{total}: {prev.block} -> {d.block}")
@@ -82,11 +88,29 @@ def simulate_subject(rules_text: str, rules_source: str, subject: str, seed: int
             out.ul.append(sum(e.outcome.reward_ul for e in run.events))
             last = run.decisions[-1] if run.decisions else run.first
             out.end_reasons.append(last.reasons[0] if last.end_session and last.reasons else f"{max_trials} trials")
+            del run
     finally:
         if store is not None:
             store.close()
-    _judge(out, truth.truth_trials(runs), rules.spec)
+    _judge(out, judged, rules.spec)
     return out
+
+
+_PARSED: dict = {}  # rule-file text -> parsed rules, once per worker process
+
+
+def _rules_for(text: str, source: str, load):
+    """The parsed rule file, parsed once per process (a worker runs many subjects)."""
+    key = (text, source)
+    if key not in _PARSED:
+        _PARSED.clear()  # one rule file at a time is the common case; keep memory bounded
+        _PARSED[key] = load(text, source=source)
+    return _PARSED[key]
+
+
+def simulate_item(args: tuple) -> SubjectSummary:
+    """``simulate_subject(*args)``: one item of ``run_ordered`` (a top-level function so it pickles)."""
+    return simulate_subject(*args)
 
 
 def _judge(out: SubjectSummary, trials: list, spec) -> None:
@@ -104,11 +128,18 @@ def _kind(message: str) -> str:
 
 
 def simulate_many(rules, subjects: Sequence[str], *, seed: int = 1, sessions: int = 3, max_trials: int = 500,
-                  task: str | None = None, executor: Executor | None = None, db: str | None = None,
-                  animals: str | Sequence[str] = "typical"):
-    """Summaries for every subject, in order. With ``db`` all trials go to one store
-    (then subjects run one after another: SQLite has one writer). ``animals`` is one
-    preset for all subjects or one per subject."""
+                  task: str | None = None, executor: str | Executor | None = None, db: str | None = None,
+                  animals: str | Sequence[str] = "typical", scheduler: str | None = None,
+                  workers: int | None = None, progress: Callable[[int, int], None] | None = None):
+    """Summaries for every subject, in order, computed through ``executors.run_ordered``
+    (``executor`` "local" by default, "serial", "dask" or a ``scheduler`` address; each
+    subject's seed is fixed by its position, so every executor gives the same summaries).
+
+    With ``db`` all trials go to one store: each worker writes its subjects' sessions,
+    one transaction per animal-day (SQLite lets one writer in at a time and the others
+    wait). The subjects' first sessions are stored first, in order, so the store lists
+    subjects in the order given whichever finishes first. ``animals`` is one preset for
+    all subjects or one per subject. ``progress(done, total)`` counts finished subjects."""
     presets = [animals] * len(subjects) if isinstance(animals, str) else list(animals)
     if len(presets) != len(subjects):
         raise BadArgument("animals", f"one preset or one per subject ({len(subjects)})", len(presets))
@@ -116,16 +147,27 @@ def simulate_many(rules, subjects: Sequence[str], *, seed: int = 1, sessions: in
         preset_parameters(p, "animals")  # an unknown name fails here, before any work
     args = [(rules.text, rules.source, s, seed * 1000 + i, sessions, max_trials, task, db, presets[i])
             for i, s in enumerate(subjects)]
-    if db is not None or len(subjects) == 1:
-        return [simulate_subject(*a) for a in args]
-    own = executor is None
-    executor = executor or ProcessPoolExecutor()
-    try:
-        futures = [executor.submit(simulate_subject, *a) for a in args]
-        return [f.result() for f in futures]
-    finally:
-        if own:
-            executor.shutdown()
+    if db is not None:
+        _store_first_sessions(db, rules, subjects)
+    if executor is None:
+        executor = "serial" if len(subjects) == 1 and scheduler is None else "local"
+    return run_ordered(simulate_item, args, executor=executor, scheduler=scheduler, workers=workers,
+                       progress=progress)
+
+
+def _store_first_sessions(db: str, rules, subjects: Sequence[str]) -> None:
+    """Open every subject's first simulated session in one transaction, in order (a store
+    that already holds them is left as it is: its runs find their sessions and go on)."""
+    from ..errors import StoreError
+    from ..store import Store
+
+    infos = [open_simulated_session(rules, s, "sim01", start_time=1.8e9)[2] for s in subjects]
+    with Store(db) as store:
+        try:
+            store.import_sessions([(info, []) for info in infos])
+        except StoreError:
+            for info in infos:  # some are stored already (a second run into the same file)
+                store.open_session(info)
 
 
 def parse_mix(text: str) -> list[tuple[str, float]]:
@@ -161,7 +203,9 @@ def mix_presets(mix: Sequence[tuple[str, float]], n: int) -> list[str]:
 
 
 def print_simulation(rules, *, subjects: int, sessions: int, max_trials: int, task: str | None,
-                     seed: int, db: str | None, out=None, animal: str = "typical", mix: str | None = None) -> int:
+                     seed: int, db: str | None, out=None, animal: str = "typical", mix: str | None = None,
+                     executor: str | None = None, scheduler: str | None = None, workers: int | None = None,
+                     progress: Callable[[int, int], None] | None = None) -> int:
     """``rigloop simulate``: run, then print one line per subject and a summary, then the
     same subjects against their truth (stages left, block lag behind discrimination)."""
     out = out or sys.stdout
@@ -171,7 +215,8 @@ def print_simulation(rules, *, subjects: int, sessions: int, max_trials: int, ta
     print(f"rule file '{rules.name}': {subjects} simulated subjects x {sessions} sessions "
           f"(at most {max_trials} trials each)", file=out)
     results = simulate_many(rules, names, seed=seed, sessions=sessions, max_trials=max_trials, task=task, db=db,
-                            animals=animals)
+                            animals=animals, executor=executor, scheduler=scheduler, workers=workers,
+                            progress=progress)
     print(f"{'subject':<9}{'trials/session':<22}{'µL/session':<26}{'block changes':>14}{'stages':>8}", file=out)
     for r in results:
         trials = " ".join(f"{t}" for t in r.trials)

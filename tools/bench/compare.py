@@ -1,0 +1,137 @@
+"""Speed and memory of ``rigloop compare``: animal-days per second, the target run, memory vs days.
+
+The target: 2 rule files × 200 animals × 20 days of ~300 trials each (2.4 million
+simulated trials) in ≤ 60 s on 2 cores. By default a smaller run of the same shape is
+timed on the local process pool and the target run's time is projected from its rate
+(animal-days per second); ``--full`` times the target run itself. Also printed:
+
+- CPU seconds per animal-day, from a serial run in this process (``time.process_time``),
+  so a busy machine (other work on the same cores) does not hide the engine's own cost;
+  the CPU projection is that × the target's animal-days / the cores.
+- where one animal-day's time goes: the top functions of a cProfile of the serial run.
+- peak Python memory (``tracemalloc``) of one animal run for more and more days: flat
+  when nothing grows with the days.
+
+    python tools/bench/compare.py [--animals 12] [--days 3] [--workers 2] [--full] [--profile]
+
+Rule files: the shipped ``tone_reversal`` and ``gonogo_shaping`` (both lick tasks); the
+animals: the shipped ``spring_cohort`` population.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+import time
+import tracemalloc
+
+from rigloop.offline.comparison import run_comparison
+from rigloop.offline.compare import AnimalTask, run_animal
+from rigloop.offline.executors import cores
+from rigloop.offline.population import draw_animals, load_population
+from rigloop.rules.load import load_any
+
+TARGET_S = 60.0
+TARGET = dict(rule_files=2, animals=200, days=20)
+RULES = ("tone_reversal", "gonogo_shaping")
+
+
+def _entries():
+    return [(name, load_any(name)) for name in RULES]
+
+
+def timed_run(animals: int, days: int, executor: str, workers: int | None) -> tuple[float, int, float]:
+    """(wall seconds, animal-days, trials) of a comparison run."""
+    pop = load_population("spring_cohort")
+    t0 = time.perf_counter()
+    c = run_comparison(_entries(), pop, animals=animals, days=days, seed=7, executor=executor, workers=workers)
+    wall = time.perf_counter() - t0
+    trials = sum(r.trials for rs in c.results.values() for r in rs)
+    return wall, len(RULES) * animals * days, trials
+
+
+def cpu_per_day(days: int) -> tuple[float, float]:
+    """(CPU seconds per animal-day, trials per animal-day) of serial runs in this process."""
+    pop = load_population("spring_cohort")
+    draws = draw_animals(pop, 2, 3)
+    t0 = time.process_time()
+    trials = 0
+    for name, rules in _entries():
+        for d in draws:
+            trials += run_animal(AnimalTask(name, rules.text, rules.source, d, days)).trials
+    n = len(RULES) * len(draws) * days
+    return (time.process_time() - t0) / n, trials / n
+
+
+def profile_top(days: int, limit: int = 12) -> None:
+    import cProfile
+    import pstats
+
+    pop = load_population("spring_cohort")
+    d = draw_animals(pop, 1, 3)[0]
+    rules = load_any(RULES[0])
+    prof = cProfile.Profile()
+    prof.enable()
+    run_animal(AnimalTask(RULES[0], rules.text, rules.source, d, days))
+    prof.disable()
+    print(f"\nwhere the time goes (cProfile, one animal x {days} days under {RULES[0]}, by own time):")
+    pstats.Stats(prof, stream=sys.stdout).strip_dirs().sort_stats("tottime").print_stats(limit)
+
+
+def peak_memory(days_list) -> list[tuple[int, float]]:
+    """Peak traced MB of one animal's run for each number of days."""
+    pop = load_population("spring_cohort")
+    d = draw_animals(pop, 1, 5)[0]
+    rules = load_any(RULES[0])
+    run_animal(AnimalTask(RULES[0], rules.text, rules.source, d, 1))  # warm caches outside the measurement
+    out = []
+    for days in days_list:
+        tracemalloc.start()
+        run_animal(AnimalTask(RULES[0], rules.text, rules.source, d, days))
+        out.append((days, tracemalloc.get_traced_memory()[1] / 1e6))
+        tracemalloc.stop()
+    return out
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    ap.add_argument("--animals", type=int, default=12, help="animals per rule file of the timed run (default 12)")
+    ap.add_argument("--days", type=int, default=3, help="days of the timed run (default 3)")
+    ap.add_argument("--workers", type=int, default=2, help="local pool processes (default 2)")
+    ap.add_argument("--full", action="store_true", help="time the whole target run (several minutes)")
+    ap.add_argument("--profile", action="store_true", help="also print a cProfile of one animal")
+    args = ap.parse_args(argv)
+    if args.full:
+        args.animals, args.days = TARGET["animals"], TARGET["days"]
+    target_days = TARGET["rule_files"] * TARGET["animals"] * TARGET["days"]
+    print(f"machine: {cores()} cores usable, load average {os.getloadavg()[0]:.1f} (other work slows the wall clock)")
+
+    cpu, per_day = cpu_per_day(days=2)
+    print(f"serial, this process: {cpu * 1000:.0f} ms CPU per animal-day ({per_day:.0f} trials; "
+          f"{cpu / per_day * 1e6:.0f} µs per trial)")
+    cpu_proj = cpu * target_days / args.workers
+    print(f"  target run projected from CPU time on {args.workers} cores: {cpu_proj:.0f} s")
+
+    wall, n_days, trials = timed_run(args.animals, args.days, "local", args.workers)
+    rate = n_days / wall
+    print(f"local pool, {args.workers} workers: {len(RULES)} rule files x {args.animals} animals x {args.days} days "
+          f"= {n_days} animal-days, {trials:,} trials in {wall:.1f} s: {rate:.1f} animal-days/s "
+          f"({trials / wall:,.0f} trials/s)")
+    target_s = wall if args.full else target_days / rate
+    how = "measured" if args.full else "projected from this rate"
+    print(f"target: 2 rule files x 200 animals x 20 days ({target_days} animal-days): {target_s:.0f} s ({how}); "
+          f"goal <= {TARGET_S:.0f} s: {'PASS' if target_s <= TARGET_S else 'FAIL'} "
+          f"({target_s / TARGET_S:.1f}x the goal)")
+
+    mem = peak_memory([1, 2, 4, 8])
+    print("peak traced memory of one animal vs days: " + ", ".join(f"{d} d {mb:.1f} MB" for d, mb in mem))
+    growth = mem[-1][1] / max(mem[1][1], 1e-9)
+    print(f"  8 days / 2 days: {growth:.2f}x -> {'PASS (flat)' if growth < 1.5 else 'FAIL (grows with days)'}")
+    if args.profile:
+        profile_top(days=2)
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -89,3 +89,14 @@ def test_set_quiet_round_trip():
     finally:
         progress.set_quiet(False)
     assert not progress.is_quiet()
+
+
+SIMULATE = ["-m", "rigloop", "simulate", "tone_reversal", "--subjects", "2", "--sessions", "1", "--max-trials", "20",
+            "--executor", "serial"]
+
+
+def test_simulate_shows_a_bar_on_a_terminal_and_none_with_quiet():
+    shown = _on_pty([sys.executable, *SIMULATE])
+    assert "simulating" in shown and "2/2" in shown and "animals/s" in shown
+    quiet = _on_pty([sys.executable, *SIMULATE, "--quiet"])
+    assert "simulating" not in quiet and "sim002" in quiet  # the report itself still prints

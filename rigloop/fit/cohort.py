@@ -28,7 +28,8 @@ parameter z = (û_i − μ₋ᵢ) / √(σ²₋ᵢ + c_i + Var μ̂₋ᵢ), and 
 some |z| exceeds the two-sided Bonferroni bound for a 5% family-wise rate over every
 animal and parameter (common practice). An estimate on a bound (no standard error) is
 judged where it sits (1% of the range inside a bound on the logit scale) against the
-others' spread. The reason says which parameter, how far and which way.
+others' spread, unless another animal sits on the same bound. A parameter is judged only
+where at least three (and half) of the other animals have a standard error for it. The reason says which parameter, how far and which way.
 """
 
 from __future__ import annotations
@@ -168,7 +169,9 @@ class CohortFit:
                                "scale": self.scales[n].kind, "mean_u": self.mean[n],
                                "range68": list(self.band(n))} for n in self.names},
             "animals": {a.name: {"params": a.params, "shrunken": a.shrunken, "outlier": a.outlier,
-                                 "reasons": list(a.reasons), "z": a.z} for a in self.animals},
+                                 "reasons": list(a.reasons),
+                                 "z": {n: (None if math.isnan(v) else v) for n, v in a.z.items()}}
+                           for a in self.animals},
             "fits": [f.to_dict() for f in self.fits],
             "outlier_z": self.z_crit,
             "warnings": list(self.warnings),
@@ -233,6 +236,14 @@ def population_from_fits(fits: Sequence[tuple[str, FitResult]]) -> CohortFit:
                 C[i, j] = min((se * s.slope(theta)) ** 2, UNINFORMATIVE_VAR)
     mu, var, m, v, iters = population_em(U, C)
     z_crit = NormalDist().inv_cdf(1 - FAMILY_ALPHA / (2 * N * k))
+    informative = np.sum(C < UNINFORMATIVE_VAR, axis=0)
+    at_bound = np.array([[_on_bound(f, n) for n in names] for _, f in fits], dtype=bool)
+    for j, n in enumerate(names):
+        if informative[j] < MIN_ANIMALS + 1:
+            warnings.append(f"{n}: only {int(informative[j])} of {N} animals have a standard error for it "
+                            "(the others sit on a bound or are not identified): its population rests on "
+                            "few animals, and no animal is judged an outlier on it unless at least "
+                            f"{MIN_ANIMALS} (and half) of the others pin it down; consider fixing it (--fix)")
     animals = []
     for i, (animal, f) in enumerate(fits):
         others = np.arange(N) != i
@@ -246,15 +257,26 @@ def population_from_fits(fits: Sequence[tuple[str, FitResult]]) -> CohortFit:
         u_i = np.array([scales[n].to_u_near(f.params[n]) if on_bound[j] else U[i, j]
                         for j, n in enumerate(names)])
         z = (u_i - mu_o) / np.sqrt(var_o + var_mu + np.where(on_bound, 0.0, C[i]))
+        # a population that too few other animals pin down judges no one; an animal on a
+        # bound that another animal shares is not unusual there
+        others_informative = informative - (C[i] < UNINFORMATIVE_VAR)
+        z[others_informative < max(MIN_ANIMALS, math.ceil((N - 1) / 2))] = math.nan
+        z[on_bound & (at_bound[i] & (at_bound.sum(axis=0) > 1))] = math.nan
+        bound_names = [n for j, n in enumerate(names) if at_bound[i, j]]
         reasons = []
         for j, n in enumerate(names):
             if abs(z[j]) > z_crit:
                 s = scales[n]
                 where = f"{n} = {f.params[n]:.3g}" + (" (on its search bound)" if on_bound[j] else "")
+                note = ""
+                others_on_bound = [b for b in bound_names if b != n]
+                if others_on_bound:
+                    note = (f"; its {', '.join(others_on_bound)} sits on a search bound, so this fit may "
+                            "be degenerate: look at its trials")
                 reasons.append(
                     f"{where} lies {abs(z[j]):.1f} sd {'above' if z[j] > 0 else 'below'} "
                     f"the other animals (population {s.from_u(mu_o[j]):.3g}, sd {math.sqrt(var_o[j]):.2g} "
-                    f"on its {s.kind} scale)")
+                    f"on its {s.kind} scale){note}")
         animals.append(Animal(
             animal, {n: float(f.params[n]) for n in f.params},
             {n: scales[n].from_u(m[i, j]) for j, n in enumerate(names)},
@@ -266,6 +288,11 @@ def population_from_fits(fits: Sequence[tuple[str, FitResult]]) -> CohortFit:
     return CohortFit(fits[0][1].learner, names, scales, dict(zip(names, map(float, mu))),
                      dict(zip(names, (math.sqrt(x) for x in var))), tuple(animals),
                      tuple(f for _, f in fits), z_crit, iters, tuple(warnings))
+
+
+def _on_bound(f: FitResult, name: str) -> bool:
+    lo, hi = _bounds_of(f, name)
+    return not lo < f.params[name] < hi
 
 
 def _bounds_of(f: FitResult, name: str) -> tuple[float, float]:

@@ -17,17 +17,20 @@ from ..core.names import closest
 from ..errors import RigloopError
 from ..version import __version__
 from .args import HelpFormatter
+from .compare_cmd import add_compare
 from .data_cmd import add_export, add_import, add_report
 from .demo_cmd import add_demo
 from .fit_cmd import add_fit
 from .offline_cmd import add_check, add_replay, add_simulate
+from .predictive_cmd import add_predictive
 from .psychometric_cmd import add_psychometric
 from .serve_cmd import add_keys, add_serve, add_status, add_watch, add_web
+from .two_step_cmd import add_two_step
 from .water_cmd import add_water
 
-COMMANDS = [add_demo, add_check, add_import, add_replay, add_export, add_simulate, add_report, add_fit,
-            add_psychometric,
-            add_serve, add_watch, add_web, add_status, add_keys, add_water]
+COMMANDS = [add_demo, add_check, add_import, add_replay, add_export, add_simulate, add_compare, add_report, add_fit,
+            add_psychometric, add_predictive,
+            add_serve, add_watch, add_web, add_status, add_keys, add_water, add_two_step]
 
 
 class Parser(argparse.ArgumentParser):

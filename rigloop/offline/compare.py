@@ -1,0 +1,239 @@
+"""One animal's days under one rule file, reduced to the measures ``rigloop compare`` reports.
+
+``run_animal(task)`` is a top-level function (it pickles to any executor): it rebuilds
+the rule file from its text, builds the drawn animal and runs ``days`` simulated days of
+``sessions_per_day`` sessions each. A session ends when a decision says so (the rule
+file's session ends and welfare limits) or, as a safety cap, after the trials its
+welfare ``max_session_min`` allows at ``TRIAL_S`` seconds a trial.
+
+Common random numbers: the animal's own random stream comes from its drawn seed and
+the schedule's from ``session_seed(animal, session)``, never from the rule file, so
+two identical rule files give identical results, and two different ones differ only
+by what the rules did.
+
+Memory stays flat in the number of days: a session's trials are reduced as they come
+(``RunningTruth`` judges blocks against the truth on the fly, as ``truth.block_timing``
+does over a whole history) and only per-day numbers are kept. With ``db``, each
+animal-day's sessions are stored in one transaction.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+from ..core.step import begin_session, session_seed, step
+from ..core.subject import new_subject
+from . import truth
+
+TRIAL_S = 8.0  # seconds from one trial's start to the next (the simulate default)
+DAY_S = 86400.0
+START = 1.8e9  # the first day's first session, 08:00 UTC
+SESSION_GAP_S = 4 * 3600.0  # between sessions of one day
+
+
+@dataclass(frozen=True)
+class AnimalTask:
+    """Everything a worker needs for one animal under one rule file (picklable)."""
+
+    label: str
+    rules_text: str
+    rules_source: str
+    draw: object  # population.AnimalDraw
+    days: int
+    sessions_per_day: int = 1
+    db: str | None = None
+    subject: str | None = None  # the name in a store (default: the drawn animal's); never its seeds
+
+
+@dataclass
+class AnimalResult:
+    """One animal under one rule file: the numbers the comparison is made of."""
+
+    label: str
+    subject: str
+    group: str
+    preset: str
+    days: int
+    trials: int = 0
+    stage_trial: dict[str, int] = field(default_factory=dict)  # stage -> trial n it was first left
+    stage_day: dict[str, float] = field(default_factory=dict)  # stage -> training days until it was first left
+    water_ul: list[float] = field(default_factory=list)  # per day
+    daily_min_ul: float = 1000.0
+    interventions: int = 0  # decisions a welfare limit changed
+    sessions: int = 0
+    disengaged: int = 0  # sessions ended by a criterion on missed trials
+    lags: list[int] = field(default_factory=list)  # block end - first trial the animal discriminated
+    early: int = 0  # blocks ended before the animal discriminated
+    judged: int = 0
+
+    @property
+    def days_below_min(self) -> int:
+        return sum(1 for w in self.water_ul if w < self.daily_min_ul)
+
+    @property
+    def median_lag(self) -> float | None:
+        return float(sorted(self.lags)[len(self.lags) // 2]) if self.lags else None
+
+
+class RunningTruth:
+    """``truth.block_timing``'s lags and early ends, one trial at a time (memory flat in trials).
+
+    Pending blocks share the direction of the current block (a change of direction
+    settles them all: a block never discriminated by then ended early); each counts its
+    own run of discriminating trials from its own first trial."""
+
+    def __init__(self, spec, margin: float = truth.MARGIN, hold: int = truth.HOLD):
+        self.spec, self.margin, self.hold = spec, margin, hold
+        self.key = None
+        self.direction = None
+        self.pending: list[dict] = []  # {"run", "d", "last"} of blocks in the current direction
+        self.lags: list[int] = []
+        self.early = 0
+        self.judged = 0
+        self.kind = None
+
+    def add(self, n: int, stage: str, block: str, extra) -> None:
+        kind, p = truth.truth_of(extra)
+        if self.kind is None and kind:
+            self.kind = kind
+        if (stage, block) != self.key:
+            if self.pending:
+                self.pending[-1]["last"] = n - 1  # the running block ended
+            direction = truth.block_direction(self.spec, stage, block, self.kind or "lick")
+            if direction != self.direction:
+                self._settle()
+            self.key, self.direction = (stage, block), direction
+            if direction is not None:
+                self.pending.append({"run": 0, "d": None, "last": None})
+        if self.direction is None:
+            return
+        v = truth.discrimination(p, self.direction)
+        for b in self.pending:
+            if b["d"] is None:
+                b["run"] = b["run"] + 1 if v is not None and v >= self.margin else 0
+                if b["run"] == self.hold:
+                    b["d"] = n - self.hold + 1
+        done = [b for b in self.pending if b["d"] is not None and b["last"] is not None]
+        for b in done:
+            self._close(b)
+        self.pending = [b for b in self.pending if not (b["d"] is not None and b["last"] is not None)]
+
+    def _close(self, b: dict) -> None:
+        self.judged += 1
+        if b["d"] is None:
+            self.early += 1
+            return
+        lag = b["last"] - b["d"]
+        self.lags.append(lag)
+        self.early += lag < 0
+
+    def _settle(self) -> None:
+        for b in self.pending:
+            if b["last"] is not None:  # ended blocks only; a running one is not judged
+                self._close(b)
+        self.pending = []
+
+    def finish(self) -> None:
+        """The trials ran out: blocks that ended are settled; the running one is not judged."""
+        self._settle()
+
+
+def max_trials(rules) -> int:
+    """The safety cap on a session's trials: what welfare's max_session_min allows, plus a margin."""
+    return int(math.ceil(rules.spec.welfare.max_session_min * 60.0 / TRIAL_S)) + 10
+
+
+def disengagement_ends(rules) -> frozenset[str]:
+    """Names of the rule file's session ends that read missed trials (``misses_in_row``)."""
+    return frozenset(e.name for e in rules.spec.session_end if any("miss" in n for n in e.when.names_used()))
+
+
+def run_animal(task: AnimalTask) -> AnimalResult:
+    """All days of one drawn animal under one rule file (see the module docstring)."""
+    from ..rules import load_rules
+
+    rules = load_rules(task.rules_text, source=task.rules_source)
+    draw = task.draw
+    name = task.subject or draw.subject
+    animal = draw.build(rules, name)
+    res = AnimalResult(task.label, draw.subject, draw.group, draw.preset, task.days,
+                       daily_min_ul=rules.spec.welfare.daily_min_ml * 1000.0)
+    judge = RunningTruth(rules.spec)
+    disengage = disengagement_ends(rules)
+    cap = max_trials(rules)
+    store = None
+    if task.db is not None:
+        from ..store import Store
+
+        store = Store(task.db)
+    state = new_subject(name, rules)
+    n = 0
+    stage_now = None
+    try:
+        for day in range(1, task.days + 1):
+            water = 0.0
+            stored = []
+            day_start, left_today = n, []
+            for k in range(task.sessions_per_day):
+                session = f"d{day:03d}" + (f"s{k + 1}" if task.sessions_per_day > 1 else "")
+                t = t0 = START + DAY_S * (day - 1) + SESSION_GAP_S * k
+                seed = session_seed(draw.subject, session)
+                state, decision = begin_session(state, rules, session=session, rig="sim-rig", wall_time=t, seed=seed)
+                first = decision
+                items = []
+                trials = 0
+                while not decision.end_session and trials < cap:
+                    event = animal.trial(decision, "sim-rig", t)
+                    under = decision
+                    state, decision, update = step(state, event, rules)
+                    trials += 1
+                    n += 1
+                    if stage_now is not None and under.stage != stage_now and stage_now not in res.stage_trial:
+                        res.stage_trial[stage_now] = n - 1
+                        left_today.append((stage_now, n - 1 - day_start))
+                    stage_now = under.stage
+                    judge.add(n, under.stage, under.block, event.extra)
+                    water += event.outcome.reward_ul
+                    res.interventions += bool(decision.overrides)
+                    if store is not None:
+                        items.append((event, decision, update.quantities, None))
+                    t += TRIAL_S
+                if decision.stage != stage_now and stage_now is not None and stage_now not in res.stage_trial:
+                    # the decision after the last trial moved on: the stage was left at trial n
+                    res.stage_trial[stage_now] = n
+                    left_today.append((stage_now, n - day_start))
+                    stage_now = decision.stage
+                res.sessions += 1
+                res.disengaged += bool(decision.end_session and decision.reasons
+                                       and _ended_by(decision.reasons[0]) in disengage)
+                if store is not None:
+                    stored.append((_session_info(name, session, rules, seed, first, t0), items))
+                    if items:
+                        last_event, last_decision, q, _ = items[-1]
+                        items[-1] = (last_event, last_decision, q, state.to_bytes())
+            res.water_ul.append(water)
+            for stage, k in left_today:  # days of training: whole days before, and the share of this one
+                res.stage_day[stage] = (day - 1) + k / max(n - day_start, 1)
+            if store is not None:
+                store.import_sessions(stored)  # one transaction per animal-day
+    finally:
+        if store is not None:
+            store.close()
+    judge.finish()
+    res.trials = n
+    res.lags, res.early, res.judged = judge.lags, judge.early, judge.judged
+    return res
+
+
+def _ended_by(reason: str) -> str:
+    """The session-end name in ``"session ends (NAME): ..."``, else ''."""
+    head = "session ends ("
+    return reason[len(head):reason.find(")")] if reason.startswith(head) else ""
+
+
+def _session_info(subject, session, rules, seed, first, start):
+    from ..store import SessionInfo
+
+    return SessionInfo.new(subject, session, "sim-rig", rules.name, rules.text, seed, start,
+                           meta={"first_decision": first.to_dict()})

@@ -5,6 +5,7 @@ reversal. Part 2 runs the daemon on a fresh data directory with virtual rigs (Ze
 and serial) and shows what it decided and why; then replays, exports and plots.
 Part 3 fits a simulated mouse and checks the fit against it, and fits a psychometric
 function to a simulated rat's staircase trials (figures in the data directory).
+Part 4 tries a change to a rule file on a simulated cohort before any animal sees it.
 """
 
 from __future__ import annotations
@@ -49,6 +50,11 @@ def main(args) -> int:
 
     _banner("rigloop demo, part 3: does the fitted model reproduce the animal? and a psychometric fit")
     status |= demo_fit.run(data)
+    print("")
+    from . import compare_tour as demo_compare
+
+    _banner("rigloop demo, part 4: before you change a rule, compare on a simulated cohort")
+    status |= demo_compare.run(data)
     print("")
     print("demo finished" + ("" if status == 0 else " WITH PROBLEMS (see above)"))
     return status

@@ -125,7 +125,8 @@ def format_text(doc: dict) -> str:
         lines.append(f"  welfare interventions: {s['interventions_per_100_days']['total']} "
                      f"({_mid(s['interventions_per_100_days'])} per 100 animal-days)")
         lines.append(f"  sessions ended by disengagement: {s['disengaged_sessions_per_100']['total']}")
-        lines.append(f"  reversal lag behind the animal (trials): {_mid(s['reversal_lag_trials'])}")
+        lag = _mid(s["reversal_lag_trials"])
+        lines.append(f"  block ends (reversals among them) behind the animal's learning, trials: {lag}")
         lines.append(f"  blocks ended before the animal had learned them, per animal: {_mid(s['early_block_ends'])}")
     if doc["pairs"]:
         lines.append("")

@@ -156,3 +156,14 @@ def test_compare_refuses_wrong_input(capsys):
     assert main(["compare", "tone_reversal", "tone_reversal", "--population", "spring_cohrt"]) == 2
     assert "did you mean 'spring_cohort'" in capsys.readouterr().err
     assert main(["compare", "tone_reversal", "tone_reversal", "--out", "fig.jpg"]) == 2
+
+
+def test_animals_that_learned_nothing_never_leave_a_learning_stage():
+    from rigloop.offline.population import parse_population
+
+    pop = parse_population('[population]\n[population.groups.n]\npreset = "non_discriminator"\nfraction = 0.5\n'
+                           '[population.groups.c]\npreset = "cue_blind"\nfraction = 0.5\n')
+    r = load_example("tone_reversal")
+    c = run_comparison([("A", r), ("B", r)], pop, animals=4, days=2, seed=2, executor="serial")
+    doc = c.document()
+    assert doc["rules"]["A"]["days_to_leave:acquisition"]["never"] == 1.0

@@ -91,3 +91,18 @@ def test_a_copy_of_a_resting_learner_leaves_it_resting():
     assert np.array_equal(twin._A, want)
     new, _, _ = learner._learned(*_trial(rng, 6))
     assert learner._packed is not None and new._packed is None
+
+
+def test_the_onset_reader_of_a_resting_learner_reads_the_same_without_waking():
+    rng = np.random.default_rng(9)
+    learner = KalmanTD(5)
+    learner._learn(*_trial(rng, 5))
+    learner._w[2] = 0.0  # a zero mean: that read takes the products (and wakes the learner)
+    eye = np.eye(5)
+    want = [learner._onset_reader(True)(eye[i], i) for i in range(5)]
+    learner._rest()
+    read = learner._onset_reader(True)
+    got = [read(eye[i], i) for i in (0, 1, 3, 4)]
+    assert learner._packed is not None  # the nonzero entries were read from the compact form
+    assert got == [want[i] for i in (0, 1, 3, 4)]
+    assert read(eye[2], 2) == want[2]

@@ -15,6 +15,7 @@ machinery for this learner and for Kalman TD (which observes h = x − γx' inst
 
 from __future__ import annotations
 
+import functools
 import math
 from typing import Any
 
@@ -199,6 +200,8 @@ class _Gaussian(Learner):
         nonzero: every other product is ±0, and adding ±0 to a nonzero number leaves it
         as it is, in whatever order the sum runs. A zero (whose sign that order decides)
         takes the products."""
+        if finite is True and self._packed is not None:
+            return self._resting_reader()
         if not (self._finite() if finite is None else finite):
             return super()._onset_reader()
         w, diag, predict = self._w, self._diag, self._predict
@@ -206,6 +209,23 @@ class _Gaussian(Learner):
         def read(x: np.ndarray, i: int) -> tuple[float, float]:
             # (xᵀŵ, xᵀΣx) = (ŵ_i, Σ_ii) for x = e_i
             mean, var = w.item(i), diag.item(i)
+            if mean != 0.0 and var != 0.0:
+                return mean, var
+            return predict(x)
+
+        return read
+
+    def _resting_reader(self):
+        """:meth:`_onset_reader` of a finite resting learner: ŵ_i and Σ_ii read from the
+        compact form (the same numbers), so ``step`` reading the animal's learner before the
+        trial does not rebuild its buffers; a zero entry takes the products (and rebuilds)."""
+        packed, n = self._packed, self._n
+        m = n * (n + 1) // 2
+        at = _diagonal_at(n)
+        predict = self._predict
+
+        def read(x: np.ndarray, i: int) -> tuple[float, float]:
+            mean, var = packed.item(m + i), packed.item(at[i])
             if mean != 0.0 and var != 0.0:
                 return mean, var
             return predict(x)
@@ -281,6 +301,13 @@ def _upper(n: int) -> tuple[np.ndarray, np.ndarray]:
         cols.setflags(write=False)
         got = _UPPER[n] = (rows, cols)
     return got
+
+
+@functools.lru_cache(maxsize=64)
+def _diagonal_at(n: int) -> tuple[int, ...]:
+    """Where Σ_ii sits in the upper triangle laid out row by row (:func:`_upper`)."""
+    rows, cols = _upper(n)
+    return tuple(int(k) for k in np.flatnonzero(rows == cols))
 
 
 # The read-only ones vector each Gaussian learner sums its state with, one per size for

@@ -158,3 +158,26 @@ def test_figure(cohort, tmp_path):
     _, c = cohort
     path = draw_cohort_fit(c, str(tmp_path / "cohort.png"))
     assert (tmp_path / "cohort.png").stat().st_size > 10_000 and path.endswith(".png")
+
+
+def test_cli_cohort_fit_of_a_simulated_room(tmp_path, capsys):
+    """``rigloop fit --subjects all`` on simulated animals: the JSON, the figure, and the
+    refusals of a cohort too small or a name not stored."""
+    from rigloop.cli import main
+
+    db = str(tmp_path / "room.sqlite")
+    assert main(["simulate", "gonogo_shaping", "--subjects", "5", "--sessions", "1",
+                 "--max-trials", "200", "--db", db, "--mix", "typical=0.8,lapsing=0.2",
+                 "--quiet"]) == 0
+    capsys.readouterr()
+    fig = str(tmp_path / "cohort.png")
+    assert main(["fit", "--db", db, "--subjects", "all", "--learner", "rescorla_wagner",
+                 "--fix", "lapse=0.05", "--starts", "1", "--out", fig, "--json"]) == 0
+    doc = json.loads(capsys.readouterr().out)
+    assert len(doc["subjects"]) == 5 and "lapse" not in doc["population"]
+    assert all(f["params"]["lapse"] == 0.05 for f in doc["fits"])
+    assert (tmp_path / "cohort.png").stat().st_size > 10_000
+    assert main(["fit", "--db", db, "--subjects", "sim001,sim002"]) == 2
+    assert "at least 3 animals" in capsys.readouterr().err
+    assert main(["fit", "--db", db, "--subjects", "sim001,nobody,sim003"]) == 2
+    assert "(got 'nobody')" in capsys.readouterr().err

@@ -46,10 +46,10 @@ def run_cohort(args: argparse.Namespace, out=None) -> int:
 
     out = out or sys.stdout
     if getattr(args, "subject", None):
-        raise BadArgument("--subject", "no --subject together with --subjects (name the cohort "
-                          "with --subjects, one animal with --subject)", args.subject)
+        raise BadArgument("--subject", "left out when --subjects names a cohort (one animal: "
+                          "--subject S alone)", args.subject)
     if getattr(args, "session", None):
-        raise BadArgument("--session", "no --session with --subjects (a cohort fits every session "
+        raise BadArgument("--session", "left out with --subjects (a cohort fits every session "
                           "of each animal)", args.session)
     learners = list(getattr(args, "learner", None) or [])
     if len(learners) > 1:

@@ -267,7 +267,9 @@ def population_from_fits(fits: Sequence[tuple[str, FitResult]]) -> CohortFit:
         for j, n in enumerate(names):
             if abs(z[j]) > z_crit:
                 s = scales[n]
-                where = f"{n} = {f.params[n]:.3g}" + (" (on its search bound)" if on_bound[j] else "")
+                where = f"{n} = {f.params[n]:.3g}" + (
+                    " (on its search bound)" if at_bound[i, j] else
+                    " (no standard error: judged where it sits)" if on_bound[j] else "")
                 note = ""
                 others_on_bound = [b for b in bound_names if b != n]
                 if others_on_bound:

@@ -24,6 +24,10 @@ KINDS = {
 }
 
 
+# learners over cue feature rows of any width (two_step reads the fixed rows of multi-step
+# trials; its copy, state and fast paths are tested in tests/test_two_step_example.py)
+CUE_LEARNERS = sorted(n for n in LEARNERS if n != "two_step")
+
 def feed(learner, X, r):
     """Per-row updates in the trial method's order (the terminal row after the last)."""
     if learner.kind == "reward":
@@ -147,7 +151,7 @@ def test_nan_row_message_and_state_untouched():
 
 def test_unknown_learner_name_message():
     with pytest.raises(BadArgument, match=r"^'name' must be one of 'rescorla_wagner', "
-                                          r"'kalman_filter', 'td', 'kalman_td' \(got 'rw'\)$"):
+                                          r"'kalman_filter', 'td', 'kalman_td', 'two_step' \(got 'rw'\)$"):
         make_learner("rw", 2)
 
 
@@ -196,7 +200,7 @@ def test_bad_parameters_name_the_argument(make, argument):
     assert info.value.argument == argument
 
 
-@pytest.mark.parametrize("name", sorted(LEARNERS))
+@pytest.mark.parametrize("name", CUE_LEARNERS)
 def test_copy_equals_state_round_trip(name):
     """copy() is the fast path of from_state(state()): same arrays, independent buffers."""
     rng = np.random.default_rng(2)
@@ -211,7 +215,7 @@ def test_copy_equals_state_round_trip(name):
     assert learner.w[0] != a.w[0]
 
 
-@pytest.mark.parametrize("name", sorted(LEARNERS))
+@pytest.mark.parametrize("name", CUE_LEARNERS)
 def test_copy_shares_no_array_and_learns_identically(name):
     """copy() re-checks no parameter and owns every array it can change (it may share
     read-only constants); it then learns bit for bit as the original (and as a learner
@@ -239,7 +243,7 @@ def test_copy_shares_no_array_and_learns_identically(name):
         assert a.values.tobytes() == b.values.tobytes() and a.errors.tobytes() == b.errors.tobytes()
 
 
-@pytest.mark.parametrize("name", sorted(LEARNERS))
+@pytest.mark.parametrize("name", CUE_LEARNERS)
 def test_unchecked_paths_equal_the_checked_ones(name):
     """_predict and _learn (step's paths for rows it built itself) give what predict and
     learn_trial give, bit for bit."""
@@ -257,7 +261,7 @@ def test_unchecked_paths_equal_the_checked_ones(name):
         assert a.predict(x) == b._predict(x)
 
 
-@pytest.mark.parametrize("name", sorted(LEARNERS))
+@pytest.mark.parametrize("name", CUE_LEARNERS)
 def test_learned_copy_equals_learning_in_place_and_leaves_the_original(name):
     """_learned (step's learning call) returns a learner and result bit for bit equal to
     copy() then _learn, with read-only rows (kept by identity) or writable ones, and the
@@ -288,7 +292,7 @@ def test_learned_copy_equals_learning_in_place_and_leaves_the_original(name):
 
 
 @pytest.mark.filterwarnings("ignore::RuntimeWarning")  # products of inf and NaN states
-@pytest.mark.parametrize("name", sorted(LEARNERS))
+@pytest.mark.parametrize("name", CUE_LEARNERS)
 def test_onset_reader_equals_predict_bit_for_bit(name):
     """_onset_reader()(e_i, i) gives what _predict(e_i) gives, for states with zeros,
     negative zeros, huge, infinite and NaN entries (the reader's shortcut must not show)."""

@@ -40,7 +40,7 @@ def test_unknown_function_message_is_pinned():
         "      ^^^^^\n"
         "    allowed functions: value, sd, p_value_above, p_correct, p_lower, p_upper, p_above_chance, "
         "p_respond, p_respond_lower, p_respond_upper, p_right, p_right_lower, p_right_upper, p_discriminates, "
-        "dprime_of, dprime_lower, dprime_upper, min, max, abs"
+        "dprime_of, dprime_lower, dprime_upper, p_model_based, min, max, abs"
     ]
 
 

@@ -52,8 +52,9 @@ def problems(text):
 
 
 def test_examples_all_validate_and_are_named():
-    """Every shipped example loads; names are the three scenarios."""
-    assert example_names() == ["gonogo_shaping", "tone_reversal", "two_choice_staircase"]
+    """Every shipped example loads; names are the scenarios."""
+    assert example_names() == ["gonogo_shaping", "tone_reversal", "two_choice_staircase", "two_step",
+                             "two_step_devaluation"]
     for name in example_names():
         rules = load_example(name)
         assert rules.name == name
@@ -164,7 +165,7 @@ def test_all_problems_reported_at_once():
         "      ^^^^^\n"
         "    allowed functions: value, sd, p_value_above, p_correct, p_lower, p_upper, p_above_chance, p_respond, p_respond_lower, "
         "p_respond_upper, p_right, p_right_lower, p_right_upper, p_discriminates, dprime_of, dprime_lower, "
-        "dprime_upper, min, max, abs"
+        "dprime_upper, p_model_based, min, max, abs"
     )
     assert got[2] == "stages.s1.blocks.b2.contingency.tone_mid: unknown cue 'tone_mid' (declared cues: tone_hi, tone_lo)"
     assert len(got) == 3

@@ -15,6 +15,12 @@ def representation_for(rules):
     hit = _REP_BY_RULES.get(id(rules))
     if hit is not None and hit[0] is rules:
         return hit[1]
+    if rules.learner.name == "two_step":  # multi-step trials: the rows of core/step_rows
+        from .step_rows import StepRows
+
+        rep = StepRows(tuple(rules.cues)[:3])
+        _REP_BY_RULES[id(rules)] = (rules, rep)
+        return rep
     rep = _representation(rules.features.kind, feature_cues(rules), rules.features.dt,
                           rules.features.n_bins, rules.features.decay)
     if len(_REP_BY_RULES) > 64:

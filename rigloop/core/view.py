@@ -145,6 +145,12 @@ class ModelView:
     def dprime_between(self, a: str, b: str, level: float) -> tuple[float, float, float]:
         return dprime_estimate(*self.behaviour_state(a), *self.behaviour_state(b), level)
 
+    def p_model_based(self, x: float) -> float:
+        """P(w > x): the posterior, from the animal's own first-stage choices, that it weighs
+        the task's model by more than x (two_step learner; NaN for any other)."""
+        read = getattr(self._learner, "p_model_based", None)
+        return float("nan") if read is None else float(read(x))
+
     def side_bias(self) -> float:
         """Mean of P(right | cue) over the two-choice cues, minus 1/2 (0 without such cues)."""
         if not self._choice:

@@ -147,6 +147,9 @@ class ScheduleEnv(Env):
             return float(v.p_correct(cue))
         if func == "p_above_chance":
             return float(v.prob_above_chance(cue))
+        if func == "p_model_based":
+            x = float(args[0])
+            return float(v.p_model_based(x)) if 0.0 <= x < 1.0 else math.nan
         if func in ("p_lower", "p_upper"):
             level = float(args[1]) if len(args) > 1 else 0.95
             if not 0.0 < level < 1.0:

@@ -18,7 +18,7 @@ BEHAVIOUR_QUANTITIES = frozenset({
     "p_discriminates()", "dprime_of()", "dprime_lower()", "dprime_upper()", "p_correct()", "p_lower()",
     "p_upper()", "p_above_chance()", "side_bias", "dprime", "bias_c", "sprt_accept", "sprt_reject", "sprt_llr",
     "hits", "misses", "false_alarms", "correct_rejections", "correct_in_block", "right_bias", "difficulty",
-    "reversals",
+    "reversals", "p_model_based()",
 })
 
 

@@ -13,8 +13,8 @@ from typing import Any
 from ..core.performance import SEQUENTIAL_TESTS  # noqa: F401  (the loader reads the test names here)
 from .expr import Expr
 
-LEARNERS = ("rescorla_wagner", "kalman_filter", "td", "kalman_td")
-REWARD_LEARNERS = ("rescorla_wagner", "kalman_filter")
+LEARNERS = ("rescorla_wagner", "kalman_filter", "td", "kalman_td", "two_step")
+REWARD_LEARNERS = ("rescorla_wagner", "kalman_filter", "two_step")
 FEATURE_KINDS = ("identity", "presence", "serial_compound", "trace")
 CUE_ROLES = ("go_nogo", "go", "nogo", "left", "right", "plain")
 SIDES = ("left", "right")

@@ -11,6 +11,7 @@ _LEARNER_NAMES = {
     "kalman_filter": "Kalman filter",
     "td": "TD(lambda)",
     "kalman_td": "Kalman TD",
+    "two_step": "two-step hybrid, model-based weight w with a posterior from the animal's own choices",
 }
 _PARAM_NAMES = {"prior_var": "prior variance", "lam": "lambda"}
 _FEATURES = {

@@ -39,6 +39,8 @@ LEARNER_PARAMS: dict[str, dict[str, tuple[float, float, float, bool]]] = {
         "noise": (1.0, 0.0, 100.0, True),
         "prior_var": (1.0, 0.0, 100.0, True),
     },
+    # the hybrid of multi-step trials (core/learners/two_step.py; Daw et al. 2011 names)
+    "two_step": {"alpha1": (0.5, 0.0, 1.0, True), "alpha2": (0.5, 0.0, 1.0, True), "lam": (0.6, 0.0, 1.0, False)},
 }
 
 

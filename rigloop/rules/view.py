@@ -45,6 +45,9 @@ class SubjectView(Protocol):
     def dprime_between(self, a: str, b: str, level: float) -> tuple[float, float, float]:
         """Behavioural d' of a against b from the estimates, and its credible interval."""
 
+    def p_model_based(self, x: float) -> float:
+        """P(w > x) of the two_step learner's posterior over its model-based weight w."""
+
     def side_bias(self) -> float:
         """Mean estimated P(right | cue) over the two-choice cues, minus 1/2."""
 
@@ -90,6 +93,9 @@ class StaticView:
 
     def dprime_between(self, a: str, b: str, level: float) -> tuple[float, float, float]:
         return B.dprime_estimate(*self._state(a), *self._state(b), level)
+
+    def p_model_based(self, x: float) -> float:
+        return 1.0 - float(x)  # the uniform prior over w: nothing known yet
 
     def side_bias(self) -> float:
         cues = sorted(self.choice_cues)

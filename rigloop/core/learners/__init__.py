@@ -20,9 +20,10 @@ from .kalman_filter import KalmanFilter, kalman_correct, kalman_predict
 from .kalman_td import KalmanTD
 from .rescorla_wagner import RescorlaWagner
 from .td import TD
+from .two_step import TwoStepLearner
 
 LEARNERS: dict[str, type[Learner]] = {
-    cls.name: cls for cls in (RescorlaWagner, KalmanFilter, TD, KalmanTD)
+    cls.name: cls for cls in (RescorlaWagner, KalmanFilter, TD, KalmanTD, TwoStepLearner)
 }
 
 

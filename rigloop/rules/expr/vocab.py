@@ -107,6 +107,10 @@ FUNCTIONS: dict[str, FuncSpec] = {
                              "lower end of the two-sided credible interval of dprime_of (level 0.95)"),
     "dprime_upper": FuncSpec(("bcue", "bcue", "level"), 1, NUM, -INF, INF,
                              "upper end of the two-sided credible interval of dprime_of (level 0.95)"),
+    "p_model_based": FuncSpec(("number",), 0, NUM, *_P,
+                              "posterior probability, from the animal's own first-stage choices, that its weight "
+                              "w on the task's model exceeds the number (two_step learner; w = 0: repeats what paid, "
+                              "w = 1: plans through the transitions)"),
     "min": FuncSpec(("number", "number"), 0, NUM, -INF, INF, "smallest of its numbers", variadic=True),
     "max": FuncSpec(("number", "number"), 0, NUM, -INF, INF, "largest of its numbers", variadic=True),
     "abs": FuncSpec(("number",), 0, NUM, 0, INF, "absolute value"),

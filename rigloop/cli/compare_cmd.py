@@ -20,7 +20,7 @@ def add_compare(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--vary", action="append", default=[], metavar="PATH=V1,V2,...",
                    help="variants of the first rule file: a dotted key path and values, e.g. "
                         "stages.reversal.blocks.reversed.end.min_trials=20,40; PATH[K] is the K-th number of an "
-                        "expression, e.g. stages.acquisition.advance.when[3]=0.9,0.95 (repeat for a grid)")
+                        "expression, e.g. stages.acquisition.advance.when[3]=0.9,0.95 (repeat for a grid; default: none)")
     p.add_argument("--db", default=None, help="store every simulated trial in this SQLite file (default: none)")
     p.add_argument("--csv", default=None, help="write one row per animal, rule file and stage here (default: none)")
     p.add_argument("--out", default=None, help="the cohort figure (.png, .pdf or .svg; default: none); with "
@@ -28,7 +28,8 @@ def add_compare(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--executor", choices=("serial", "local", "dask"), default="local",
                    help="where the animals run: this process, a local process pool, or a Dask cluster")
     p.add_argument("--scheduler", default=None, metavar="tcp://HOST:8786",
-                   help="a Dask scheduler address (implies --executor dask; default: a local cluster)")
+                   help="a Dask scheduler address (implies --executor dask; default: none, so --executor dask "
+                        "starts a local cluster)")
     p.add_argument("--workers", type=Count(1, 1024), default=None, help="worker processes (default: one per core)")
     add_json(p, "print the comparison as JSON (keys: rules, pairs; see README)")
     p.set_defaults(func=_run_compare)

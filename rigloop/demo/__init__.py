@@ -6,6 +6,8 @@ and serial) and shows what it decided and why; then replays, exports and plots.
 Part 3 fits a simulated mouse and checks the fit against it, and fits a psychometric
 function to a simulated rat's staircase trials (figures in the data directory).
 Part 4 tries a change to a rule file on a simulated cohort before any animal sees it.
+Part 5 runs the two-stage task on a mouse that plans and one that repeats what paid:
+the criterion on its model-based weight w, the stay regression and figure.
 """
 
 from __future__ import annotations
@@ -55,6 +57,11 @@ def main(args) -> int:
 
     _banner("rigloop demo, part 4: before you change a rule, compare on a simulated cohort")
     status |= demo_compare.run(data)
+    print("")
+    from . import two_step_tour as demo_two_step
+
+    _banner("rigloop demo, part 5: does the animal plan? the two-stage task")
+    status |= demo_two_step.run(data)
     print("")
     print("demo finished" + ("" if status == 0 else " WITH PROBLEMS (see above)"))
     return status

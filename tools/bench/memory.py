@@ -149,6 +149,8 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--subjects", type=int, default=10_000, help="resident subjects (default 10000)")
     parser.add_argument("--sample", type=int, default=500, help="subjects traced by tracemalloc (default 500)")
     args = parser.parse_args(argv)
+    if args.subjects < 1 or args.sample < 1:
+        parser.error(f"--subjects and --sample must be at least 1 (got {args.subjects} and {args.sample})")
     result = measure(args.subjects, args.sample)
     if args.json:
         print(json.dumps(result))

@@ -34,7 +34,7 @@ def test_identical_rule_files_differ_by_exactly_zero():
     doc = c.document()
     for d in doc["pairs"][0]["differences"].values():
         assert d["estimate"] in (0.0, None) and d["lo95"] in (0.0, None) and d["hi95"] in (0.0, None)
-    assert "about the same time" in doc["pairs"][0]["verdict"] and "same water" in doc["pairs"][0]["verdict"]
+    assert "at the same point" in doc["pairs"][0]["verdict"] and "same water" in doc["pairs"][0]["verdict"]
 
 
 def test_running_judge_equals_block_timing_over_whole_histories():

@@ -127,14 +127,20 @@ def verdict(a_name: str, b_name: str, diffs: dict[str, dict], targets: dict[str,
             continue
         na, nb = summary_a[f"days_to_leave:{stage}"]["never"], summary_b[f"days_to_leave:{stage}"]["never"]
         t = diffs.get(f"trials_to_leave:{stage}")
-        if _excludes_zero(d) and abs(d["estimate"]) >= 0.05:
+        if _excludes_zero(d) and abs(d["estimate"]) >= 0.5:  # half a day or more: say it in days
             word = "sooner" if d["estimate"] < 0 else "later"
             text = f"reaches `{to}` {abs(d['estimate']):.1f} days {word} {_interval(d)}"
         elif t and _excludes_zero(t):
             word = "sooner" if t["estimate"] < 0 else "later"
             text = f"reaches `{to}` {abs(t['estimate']):.0f} trials {word} {_interval(t, 0)}"
+        elif _excludes_zero(d):
+            word = "sooner" if d["estimate"] < 0 else "later"
+            text = f"reaches `{to}` {abs(d['estimate']):.2f} days {word} {_interval(d, 2)}"
+        elif max(abs(d["lo95"]), abs(d["hi95"])) < 0.005:  # within a few trials of each other
+            text = f"reaches `{to}` at the same point"
         else:
-            text = f"reaches `{to}` at about the same time (difference {_interval(d)[1:-1]} days)"
+            digits = 2 if max(abs(d["lo95"]), abs(d["hi95"])) < 0.1 else 1
+            text = f"reaches `{to}` at about the same time (difference {_interval(d, digits)[1:-1]} days)"
         if na is not None and nb is not None and abs(nb - na) >= 0.05:
             text += f" ({100 * nb:.0f}% never do, against {100 * na:.0f}%)"
         parts.append(text)

@@ -6,7 +6,8 @@ the share that never did); (2) water earned per animal-day, per rule file, again
 daily minimum; (3) welfare events per 100 animal-days (interventions, days below the
 minimum, sessions ended by disengagement). Trade-off plot (a grid of variants): days to
 leave the first stage against the blocks ended before the animal had learned them, each
-variant a point sized by its water per day. Drawn through ``report.pyplot()``.
+variant a point sized by its water per day.
+(The trade-off plot's speed is the days to leave the last stage that advances.) Drawn through ``report.pyplot()``.
 """
 
 from __future__ import annotations
@@ -91,11 +92,11 @@ def _short(names: Sequence[str], width: int = 22) -> list[str]:
 
 
 def tradeoff_figure(path: str, comparison, doc: Mapping) -> str:
-    """Each variant: days to leave the first stage (median) against early block ends, sized by water."""
+    """Each variant: days to leave the last advancing stage (mean) against early block ends, sized by water."""
     plt = report.pyplot()
     names = comparison.names
     colour = _colours(names)
-    stage = comparison.stages[0] if comparison.stages else None
+    stage = comparison.stages[-1] if comparison.stages else None  # leaving it: reaching the last stage
     fig, ax = plt.subplots(figsize=(7.5, 5.0), layout="constrained")
     rules = doc["rules"]
     water = np.array([rules[n]["water_per_day_ul"]["mean"] or 0.0 for n in names])
@@ -106,8 +107,10 @@ def tradeoff_figure(path: str, comparison, doc: Mapping) -> str:
         ax.scatter([x], [y], s=size, color=colour[name], alpha=0.8, edgecolor="black", lw=0.5)
         w = rules[name]["water_per_day_ul"]["mean"] or 0.0
         ax.annotate(f"{name}\n{w:.0f} µL/day", (x, y), textcoords="offset points", xytext=(8, 4), fontsize=7)
-    ax.set_xlabel(f"days to leave {stage} (mean; never counted as day {comparison.days + 1})" if stage
+    target = comparison.targets.get(stage, stage) if stage else ""
+    ax.set_xlabel(f"days to reach {target} (mean; never: the whole run, {comparison.days} days)" if stage
                   else "no stage to leave", fontsize=9)
+    ax.xaxis.set_major_formatter("{x:.2f}")
     ax.set_ylabel("blocks ended before the animal had learned them (mean per animal)", fontsize=9)
     ax.set_title("speed against premature advances (point size: water per day)", fontsize=10)
     ax.grid(alpha=0.3)

@@ -48,9 +48,10 @@ def stay_figure(cells: Sequence[StayCell], out: str, *, title: str,
     ax.set_xticks([0, 1], ["rewarded", "unrewarded"])
     ax.set_xlabel("previous trial")
     ax.set_ylabel("P(repeat first-stage choice)")
-    ax.set_ylim(0, 1)
+    ax.set_ylim(0, 1.12)
+    ax.set_yticks([0, 0.2, 0.4, 0.6, 0.8, 1.0])
     ax.axhline(0.5, color="0.6", lw=0.8, ls=":")
-    ax.legend(loc="upper right", fontsize=8, frameon=False)
+    ax.legend(loc="upper center", fontsize=8, frameon=False, ncol=2)
     ax.set_title("stay probability (bars: 95% intervals)", fontsize=9)
     if panels == 2:
         _profile_panel(axes[0][1], hybrid)
@@ -72,7 +73,7 @@ def _profile_panel(ax, fit: Any) -> None:
     ax.axvspan(low, high, color=COMMON, alpha=0.15, label=f"95% interval [{low:.2f}, {high:.2f}]")
     ax.axvline(fit.params["w"], color=COMMON, lw=1.5, label=f"ŵ = {fit.params['w']:.2f}")
     ax.set_xlim(-0.02, 1.02)
-    ax.set_ylim(0, max(8.0, min(max(dev), 30.0)))
+    ax.set_ylim(0, 1.45 * max(8.0, min(max(dev), 30.0)))  # headroom for the legend
     ax.set_xlabel("w\n(0: repeats what paid; 1: plans from the task's structure)", fontsize=8)
     ax.set_ylabel("2 × (log-lik. at ŵ − profile log-lik.)")
     ax.legend(fontsize=7, frameon=False, loc="upper center")

@@ -67,7 +67,7 @@ def _read_trials(path: str):
 
 
 def _run_two_step(args) -> int:
-    from ..fit.two_step import TwoStepData, compare_two_step, fit_two_step
+    from ..fit.two_step import TwoStepData, fit_two_step
     from ..outputs.two_step_figure import stay_figure
 
     if (args.trials is None) == (args.agent is None):

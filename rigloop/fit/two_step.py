@@ -28,7 +28,6 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..core.two_step.params import BOUNDS, KINDS, NAMES, TwoStepParams, check_kind
-from ..core.two_step.stay import _trials
 from ..errors import BadArgument
 
 CHI2_1_95 = 3.841458820694124  # the 95% point of χ² with 1 degree of freedom

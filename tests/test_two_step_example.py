@@ -151,3 +151,60 @@ def test_devaluation_moves_a_planner_at_once_and_a_habit_only_after_reexperience
 def test_devaluation_probe_example_loads():
     rules = load_example("two_step_devaluation")
     assert rules.learner.name == "two_step"
+
+
+# --------------------------------------------------------------------------- live
+
+
+def test_a_live_daemon_runs_the_two_stage_task_over_zeromq_and_serial(tmp_path):
+    """The virtual two-stage rig against a real daemon: steps arrive over ZeroMQ and over a
+    pty, are stored, and replay gives every decision the rigs got."""
+    import os
+    import time
+
+    from rigloop.replay import replay_subject
+    from rigloop.serve.daemon import Daemon, Settings
+    from rigloop.store import Store
+    from rigloop.testing import PtyPort, SerialRig, ZmqRig
+    from rigloop.testing.two_step_rig import run_two_step_session
+
+    port = PtyPort(tmp_path)
+    d = Daemon(Settings(data=str(tmp_path / "data"), rules=("two_step",), zmq="tcp://127.0.0.1:*",
+                        publish="tcp://127.0.0.1:*", log_trials=False, selftest_timeout_s=0.5,
+                        serial=((port.path, "box4"),))).start_thread()
+    zrig = ZmqRig(d.endpoints["zmq"], "box3", timeout_s=2.0, retries=3)
+    srig = SerialRig(port, "box4", timeout_s=0.5, retries=20)
+    try:
+        got_z = run_two_step_session(zrig, "model_based", "m1", "d1", trials=40, seed=3)
+        deadline = time.monotonic() + 10.0
+        while True:
+            try:
+                srig.ping()
+                break
+            except Exception:
+                if time.monotonic() > deadline:
+                    raise AssertionError("the daemon never answered on the serial port") from None
+                time.sleep(0.05)
+        got_s = run_two_step_session(srig, "model_free", "m2", "d1", trials=30, seed=4)
+    finally:
+        zrig.close()
+        d.stop()
+        d.join()
+        port.close()
+    with Store(os.path.join(d.settings.data, "rigloop.sqlite")) as store:
+        for subject, got in (("m1", got_z), ("m2", got_s)):
+            stored = list(store.trials(subject, "d1"))
+            assert [e.steps for e in stored] == [e.steps for e, _ in got]
+            assert all(len(e.steps) == 2 for e in stored)
+            result = replay_subject(store, subject)
+            assert result.differing == 0, result.summary()
+
+
+def test_check_warns_when_the_criterion_has_no_two_step_learner(rules):
+    text = rules.text.replace('model = "two_step"', 'model = "rescorla_wagner"')
+    text = "\n".join(line for line in text.splitlines() if not line.startswith(("alpha1", "alpha2", "lam")))
+    from rigloop.rules.lint import warnings
+
+    other = load_rules(text)
+    assert any("p_model_based() reads the two_step learner" in w for w in warnings(other.spec))
+    assert not any("p_model_based" in w for w in warnings(rules.spec))

@@ -39,6 +39,13 @@ def warnings(spec: Spec) -> list[str]:
         for b in st.blocks.values():
             if b.end is not None and b.end.when is not None and rests_on_learner_only(b.end.when):
                 out.append(_line(f"stages.{st.name}.blocks.{b.name}.end.when", b.end.when))
+    if spec.learner.name != "two_step":
+        for expr in _expressions(spec):
+            if "p_model_based()" in expr.names_used():
+                out.append(f"'{expr.text}': p_model_based() reads the two_step learner's posterior over w; with "
+                           f"learner '{spec.learner.name}' it is never known (NaN), so this is never true. "
+                           "Use [learner] model = \"two_step\" and report each trial's steps")
+                break
     return out
 
 

@@ -167,3 +167,11 @@ def test_animals_that_learned_nothing_never_leave_a_learning_stage():
     c = run_comparison([("A", r), ("B", r)], pop, animals=4, days=2, seed=2, executor="serial")
     doc = c.document()
     assert doc["rules"]["A"]["days_to_leave:acquisition"]["never"] == 1.0
+
+
+def test_verdict_when_no_animal_gets_there():
+    zero = {"estimate": 0.0, "lo95": 0.0, "hi95": 0.0, "n": 5}
+    summary = {"days_to_leave:acq": {"never": 1.0}, "water_per_day_ul": {"mean": 500.0}}
+    text = verdict("A", "B", {"days_to_leave:acq": zero, "water_per_day_ul": zero}, {"acq": "full_task"},
+                   summary, summary)
+    assert text.startswith("B gets no animal to `full_task`, as A does not, same water")

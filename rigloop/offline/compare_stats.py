@@ -127,6 +127,9 @@ def verdict(a_name: str, b_name: str, diffs: dict[str, dict], targets: dict[str,
             continue
         na, nb = summary_a[f"days_to_leave:{stage}"]["never"], summary_b[f"days_to_leave:{stage}"]["never"]
         t = diffs.get(f"trials_to_leave:{stage}")
+        if na == nb == 1.0:
+            parts.append(f"gets no animal to `{to}`, as {a_name} does not")
+            continue
         if _excludes_zero(d) and abs(d["estimate"]) >= 0.5:  # half a day or more: say it in days
             word = "sooner" if d["estimate"] < 0 else "later"
             text = f"reaches `{to}` {abs(d['estimate']):.1f} days {word} {_interval(d)}"

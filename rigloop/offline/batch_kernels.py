@@ -258,7 +258,7 @@ def behaviour_steps(x, var, n, held, cue, y, sigma2, newton_max, tol) -> None:
 
 
 @njit(cache=True, nogil=True)
-def _kalman_probes(A, X, r, bounds, probes, has, g, tau2, noise, skip_empty, V, var, h, u, nz):
+def _kalman_probes(A, X, r, bounds, probes, has, g, tau2, noise, skip_empty, V, var, h, u, nz, nzu):
     """One parameter set's Kalman (TD) trials, in place; returns the status.
 
     A: (n + 1, n) [Σ; ŵ], the starting state, left at the end state. X: (R, n) every
@@ -333,18 +333,24 @@ def _kalman_probes(A, X, r, bounds, probes, has, g, tau2, noise, skip_empty, V, 
             if not (0.0 < s and s < math.inf):
                 return 2
             rs = 1.0 / math.sqrt(s)
+            # u = Σ⁻h/√s, and its non-zero entries (Σ couples only features that have
+            # shared an observation, so u is often short)
+            q = 0
             for i in range(n):
                 u[i] *= rs
+                if u[i] != 0.0:
+                    nzu[q] = i
+                    q += 1
             c = delta * rs
-            # Σ ← Σ⁻ − u uᵀ (each entry one exact product: Σ stays exactly symmetric);
-            # ŵ ← ŵ + (δ/√s) u
-            for i in range(n):
+            # Σ ← Σ⁻ − u uᵀ (each entry one exact product: Σ stays exactly symmetric;
+            # a zero product changes nothing); ŵ ← ŵ + (δ/√s) u
+            for a in range(q):
+                i = nzu[a]
                 ui = u[i]
-                if ui != 0.0:
-                    for j in range(n):
-                        A[i, j] -= ui * u[j]
-            for j in range(n):
-                A[n, j] += c * u[j]
+                for b in range(q):
+                    j = nzu[b]
+                    A[i, j] -= ui * u[j]
+                A[n, i] += c * ui
     return 0
 
 
@@ -353,10 +359,11 @@ def kalman_probes(A, X, r, bounds, probes, has, g, tau2, noise, skip_empty, V, v
     """``_kalman_probes`` for P parameter sets: A (P, n + 1, n); g, tau2, noise (P,);
     V, var (P, N, Q); status (P,) int64 receives each set's status."""
     n = X.shape[1]
-    h, u, nz = np.empty(n), np.empty(n), np.empty(n, dtype=np.intp)
+    h, u = np.empty(n), np.empty(n)
+    nz, nzu = np.empty(n, dtype=np.intp), np.empty(n, dtype=np.intp)
     for p in range(A.shape[0]):
         status[p] = _kalman_probes(A[p], X, r, bounds, probes, has, g[p], tau2[p], noise[p],
-                                   skip_empty, V[p], var[p], h, u, nz)
+                                   skip_empty, V[p], var[p], h, u, nz, nzu)
 
 
 @njit(cache=True, nogil=True)

@@ -1,7 +1,7 @@
 """Demo part 5: the two-stage task. Two simulated mice of the invented Brackenfield room,
 one that plans through the transitions and one that repeats what paid, run one session
 each of the shipped ``two_step`` rule file through ``begin_session`` / ``step``. The
-demo prints where each stands on the criterion P(w > 0.5) >= 0.9 (read from its own
+demo prints where each stands on the criterion P(w > 0.5) >= 0.95 (read from its own
 first-stage choices), the stay-probability regression, and draws the stay figure.
 """
 
@@ -33,8 +33,8 @@ def choices(events) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
 
 def run(data: Path) -> int:
     rules = load_example("two_step")
-    print("rule file 'two_step': stage 'two_stage_training' advances when p_model_based(0.5) >= 0.9 "
-          "and trials_in_stage >= 150")
+    print("rule file 'two_step': stage 'two_stage_training' advances when p_model_based(0.5) >= 0.95 "
+          "and trials_in_stage >= 200")
     status = 0
     for subject, kind, seed in ANIMALS:
         run_ = simulate_session(rules, preset_animal(kind, rules, subject, seed), session="d1", max_trials=TRIALS)

@@ -115,6 +115,8 @@ def tradeoff_figure(path: str, comparison, doc: Mapping) -> str:
     ax.set_title("speed against premature advances (point size: water per day)", fontsize=10)
     ax.grid(alpha=0.3)
     ax.margins(0.25)
+    top = max([rules[n]["early_block_ends"]["mean"] or 0.0 for n in names] + [1.0])
+    ax.set_ylim(-0.05 * top, 1.25 * top)  # a count: no room below zero
     fig.savefig(path, dpi=120)
     plt.close(fig)
     return path

@@ -7,6 +7,7 @@ the non-zero terms in index order. On one-hot rows the two agree exactly; on row
 several features on (presence of two cues, traces) they differ in the last bits.
 """
 
+import functools
 import math
 
 import numpy as np
@@ -90,12 +91,11 @@ def test_one_hot_rows_agree_bit_for_bit(monkeypatch):
     events = [e for e in _events(200, seed=3) if len(e.cues) == 1]
     rep = REPS["serial_compound"]
     data = fit.prepare(events, rep, reward_unit_ul=UNIT)
-    for name in ("rescorla_wagner", "td"):
-        params = LEARNERS[name] if name != "td" else {"alpha": 0.2, "gamma": 0.9, "lam": 0.0}
-        mk = lambda: make_learner(name if name != "rescorla_wagner" else "td", rep.n_features,  # noqa: E731
-                                  **(params if name == "td" else {"alpha": 0.3, "gamma": 0.9}))
-        want = _reference(monkeypatch, lambda: fit.onset_values(data, mk()))
-        np.testing.assert_array_equal(fit.onset_values(data, mk()), want)
+    for name, params in (("td", {"alpha": 0.2, "gamma": 0.9, "lam": 0.0}),
+                         ("rescorla_wagner", {"alpha": 0.3})):
+        make = functools.partial(make_learner, name, rep.n_features, **params)
+        want = _reference(monkeypatch, lambda make=make: fit.onset_values(data, make()))
+        np.testing.assert_array_equal(fit.onset_values(data, make()), want)
 
 
 def test_fitted_trials_sd_agree(monkeypatch):

@@ -192,7 +192,7 @@ def population_em(U: np.ndarray, C: np.ndarray, *, max_iter: int = 2000, tol: fl
     mu = U.mean(axis=0)
     var = np.maximum(U.var(axis=0), 1e-6)
     it = 0
-    for it in range(1, max_iter + 1):
+    for it in range(1, max_iter + 1):  # noqa: B007 (the count is returned)
         v = 1.0 / (1.0 / C + 1.0 / var)
         m = v * (U / C + mu / var)
         mu_new = m.mean(axis=0)
@@ -287,8 +287,8 @@ def population_from_fits(fits: Sequence[tuple[str, FitResult]]) -> CohortFit:
             {n: float(C[i, j]) for j, n in enumerate(names)},
             {n: float(m[i, j]) for j, n in enumerate(names)},
             {n: float(v[i, j]) for j, n in enumerate(names)}))
-    return CohortFit(fits[0][1].learner, names, scales, dict(zip(names, map(float, mu))),
-                     dict(zip(names, (math.sqrt(x) for x in var))), tuple(animals),
+    return CohortFit(fits[0][1].learner, names, scales, dict(zip(names, map(float, mu), strict=True)),
+                     dict(zip(names, (math.sqrt(x) for x in var), strict=True)), tuple(animals),
                      tuple(f for _, f in fits), z_crit, iters, tuple(warnings))
 
 

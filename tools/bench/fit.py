@@ -27,20 +27,26 @@ from __future__ import annotations
 import argparse
 import json
 import math
+import os
 import statistics
 import sys
 import time
 
-import numpy as np
+# one BLAS thread: the optimiser's few small products gain nothing from threads, and on a
+# shared machine idle BLAS threads spinning for work slow every call (set before numpy)
+for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_var, "1")
 
-from rigloop import fit
-from rigloop.cli.progress import Progress
-from rigloop.core.features import CueList, make_representation
-from rigloop.core.learners import make_learner
-from rigloop.core.trial import CuePresentation, Outcome, Response, TrialEvent
-from rigloop.fit import likelihood
-from rigloop.fit.cohort import fit_cohort
-from rigloop.offline import batch as batch_module
+import numpy as np  # noqa: E402
+
+from rigloop import fit  # noqa: E402
+from rigloop.cli.progress import Progress  # noqa: E402
+from rigloop.core.features import CueList, make_representation  # noqa: E402
+from rigloop.core.learners import make_learner  # noqa: E402
+from rigloop.core.trial import CuePresentation, Outcome, Response, TrialEvent  # noqa: E402
+from rigloop.fit import likelihood  # noqa: E402
+from rigloop.fit.cohort import fit_cohort  # noqa: E402
+from rigloop.offline import batch as batch_module  # noqa: E402
 
 TONES = CueList(["tone_hi", "tone_lo"])
 REP = make_representation("serial_compound", TONES, dt=0.5, n_bins=4)
@@ -92,8 +98,6 @@ class Counter:
 
 def per_evaluation(data, reference: bool, reps: int) -> float:
     """Median seconds of one onset-value evaluation at the true parameters."""
-    import os
-
     old = os.environ.get("RIGLOOP_NO_NUMBA")
     if reference:
         os.environ["RIGLOOP_NO_NUMBA"] = "1"
@@ -165,6 +169,7 @@ def main(argv=None) -> int:
     report = {
         "trials": args.trials, "compile_s": compile_s,
         "fit_s": fit_s, "fit_evaluations": evals, "fit_with_intervals_s": full_s,
+        "fit_with_intervals_converged": full.converged,
         "eval_fast_s": fast_eval, "eval_reference_s": ref_eval, "speedup": speedup,
         "fit_reference_estimate_s": evals * ref_eval,
         "cohort_animals": args.animals, "cohort_trials_each": args.animal_trials,

@@ -13,6 +13,7 @@ def test_demo_runs_and_replays_identically(tmp_path, capsys):
     assert (tmp_path / "demo" / "quantities.csv").exists()
     assert (tmp_path / "demo" / "bk-m07.png").exists()
     assert "stage lever_shaping -> nogo_intro" in out
+    assert (tmp_path / "demo" / "compare.png").exists() and "reaches `full_task`" in out  # part 4
 
 
 def test_demo_refuses_a_directory_it_did_not_make(tmp_path, capsys):

@@ -132,3 +132,22 @@ def test_p_difference_above_kept_nodes_equal_the_plain_loop():
             got = B.p_difference_above(ma, va, mb, vb, margin)
             want = B._p_difference_above_reference(ma, va, mb, vb, margin)
             assert got.hex() == want.hex(), (ma, va, mb, vb, margin)
+
+
+def test_dprime_estimate_with_kept_cue_nodes_equals_computed_afresh():
+    # dprime_estimate reads each cue's probit nodes from the kept ones when that cue has not
+    # moved; computed afresh (the kept table emptied first) the result has the same bits
+    import random
+
+    from rigloop.core import behaviour as B
+
+    rng = random.Random(12)
+    for _ in range(400):
+        ma, va = rng.uniform(-5.0, 5.0), rng.uniform(0.01, 4.0)
+        for _ in range(3):
+            mb, vb = rng.uniform(-5.0, 5.0), rng.uniform(0.01, 4.0)
+            for args in ((ma, va, mb, vb), (mb, vb, ma, va)):
+                kept = B.dprime_estimate(*args)
+                B._G_NODES.clear()
+                fresh = B.dprime_estimate(*args)
+                assert [x.hex() for x in kept] == [x.hex() for x in fresh], args

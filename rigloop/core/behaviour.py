@@ -355,7 +355,7 @@ def dprime_estimate(mean_a: float, var_a: float, mean_b: float, var_b: float,
         _NORMAL.inv_cdf(min(max(logistic(mean_b), clip), 1 - clip))
     z, w = _hermite()
     sa, sb = math.sqrt(var_a), math.sqrt(var_b)
-    ga, gb = _probit_of_logit(mean_a + sa * z), _probit_of_logit(mean_b + sb * z)
+    (ga, ma, va), (gb, mb, vb) = _probit_nodes(mean_a, var_a), _probit_nodes(mean_b, var_b)
     # each returns (F(t), F'(t)); P = Phi(g + t) or Phi(g - t), and h = logit(P) has h' = +/- phi / (P (1 - P))
     if sb <= sa:
         def cdf(t: float) -> tuple[float, float]:
@@ -369,11 +369,38 @@ def dprime_estimate(mean_a: float, var_a: float, mean_b: float, var_b: float,
             return float(w @ (1.0 - _phi(u))), float(w @ (_density(u) * dh)) / sb
 
     # the normal approximation from D's moments (the same nodes) starts the search
-    ma, mb = float(w @ ga), float(w @ gb)
-    spread = math.sqrt(float(w @ (ga - ma) ** 2) + float(w @ (gb - mb) ** 2))
+    spread = math.sqrt(va + vb)
     alpha = (1.0 - level) / 2.0
     zq = _z_two_sided(level)
     return d, _solve(cdf, alpha, ma - mb - zq * spread), _solve(cdf, 1.0 - alpha, ma - mb + zq * spread)
+
+
+_G_NODES: dict[tuple[float, float], tuple[np.ndarray, float, float]] = {}  # (mean, var) -> _g_nodes(...)
+_G_NODES_MAX = 8
+
+
+def _probit_nodes(mean: float, var: float) -> tuple[np.ndarray, float, float]:
+    """:func:`_g_nodes` of one cue, kept for the last few states: between two decisions only
+    the trial's cue moves, so the other cue's 24 inverse normal CDFs are not redone (each
+    call of dprime_estimate then does half of them; same numbers, tests/test_fast_paths.py)."""
+    key = (mean, var)
+    got = _G_NODES.get(key)
+    if got is None:
+        got = _g_nodes(mean, var)
+        if len(_G_NODES) >= _G_NODES_MAX:
+            _G_NODES.clear()
+        _G_NODES[key] = got
+    return got
+
+
+def _g_nodes(mean: float, var: float) -> tuple[np.ndarray, float, float]:
+    """g = Phi^-1(logistic(state)) at the Gauss-Hermite nodes of N(mean, var), its mean and
+    its variance under the node weights (read-only; what dprime_estimate needs of one cue)."""
+    z, w = _hermite()
+    g = _probit_of_logit(mean + math.sqrt(var) * z)
+    g.setflags(write=False)
+    m = float(w @ g)
+    return g, m, float(w @ (g - m) ** 2)
 
 
 def _density(u: np.ndarray) -> np.ndarray:

@@ -226,7 +226,7 @@ def p_difference_above(mean_a: float, var_a: float, mean_b: float, var_b: float,
     What depends on cue a alone (each node's density weight and logit(logistic(a) - margin))
     is kept for the last few (mean_a, var_a, margin): between two decisions only the cue of
     the trial changes, so when that was b, only the 32 erfc terms are recomputed (such a call
-    costs ~0.1x of the plain loop, tools/bench/step.py). :func:`_p_difference_above_reference` is the plain
+    costs 0.1-0.25x of the plain loop, tools/bench/step.py). :func:`_p_difference_above_reference` is the plain
     loop; the tests hold the two to the same bits.
     """
     _two_states(mean_a, var_a, mean_b, var_b, ("margin", margin, _margin))
@@ -382,7 +382,8 @@ _G_NODES_MAX = 8
 def _probit_nodes(mean: float, var: float) -> tuple[np.ndarray, float, float]:
     """:func:`_g_nodes` of one cue, kept for the last few states: between two decisions only
     the trial's cue moves, so the other cue's 24 inverse normal CDFs are not redone (each
-    call of dprime_estimate then does half of them; same numbers, tests/test_fast_paths.py)."""
+    call of dprime_estimate then does half of them: ~1.1x the call, tools/bench/step.py; same
+    numbers, tests/test_fast_paths.py)."""
     key = (mean, var)
     got = _G_NODES.get(key)
     if got is None:

@@ -98,6 +98,10 @@ def tricks() -> dict[str, dict[str, float]]:
         "P(p_a - p_b > m), cue a kept vs plain loop": _pair(
             lambda: behaviour_module.p_difference_above(1.2, 0.4, next(b_means), 0.5, 0.2),
             lambda: behaviour_module._p_difference_above_reference(1.2, 0.4, next(b_means), 0.5, 0.2), 5000),
+        "d' interval, cue a kept vs afresh": _pair(
+            lambda: behaviour_module.dprime_estimate(1.2, 0.4, next(b_means), 0.5),
+            lambda: (behaviour_module._G_NODES.clear(), behaviour_module.dprime_estimate(1.2, 0.4, next(b_means), 0.5)),
+            500),
         "behaviour quantities vs reference": _pair(
             lambda: quantities._behaviour_quantities({}, rules.spec, behaviour),
             lambda: quantities._behaviour_quantities_reference({}, rules.spec, behaviour), 20000),

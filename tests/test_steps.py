@@ -12,6 +12,8 @@ import os
 import time
 
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from rigloop import wire
 from rigloop.core.trial import CuePresentation, Outcome, Response, TrialEvent, TrialStep
@@ -255,3 +257,32 @@ def test_csv_step_problems_name_the_column(tmp_path):
     with pytest.raises(MappingError) as err:
         load_mapping("[trial]\nsubject='a'\nsession='b'\ntrial='n'\nrig='r'\n[[step]]\naction='x'\n")
     assert "step[1].state is required" in str(err.value) and "step[1].time is required" in str(err.value)
+
+
+# --------------------------------------------------------------------------- property
+
+_names = st.text(st.characters(min_codepoint=33, max_codepoint=126), min_size=1, max_size=12)
+_times = st.floats(0.0, 100.0, allow_nan=False, allow_infinity=False)
+
+
+@st.composite
+def _step_lists(draw):
+    times = sorted(draw(st.lists(_times, min_size=1, max_size=6)))
+    steps = [TrialStep(draw(_names), draw(st.none() | _names), t) for t in times]
+    if draw(st.booleans()):  # a paid last step
+        last = steps[-1]
+        steps[-1] = TrialStep(last.state, last.action, last.time, draw(st.floats(0.5, 20.0)))
+    return steps
+
+
+@settings(max_examples=150, deadline=None)
+@given(_step_lists())
+def test_any_valid_steps_survive_both_encodings(steps):
+    """Names with ':', ',', '%', '@', '|', quotes and the like, any times in order: the
+    serial line (escaped parts) and the msgpack frame give the same event back."""
+    paid = steps[-1].reward_ul
+    ev = _two_step_event(steps=tuple(steps), outcome=Outcome(paid, steps[-1].time if paid else None),
+                         response=Response(), cues=())
+    report = wire.TrialReport("5", ev)
+    assert wire.parse_request_line(wire.format_request_line(report)).event == ev
+    assert wire.decode_request(wire.encode_request(report)).event == ev

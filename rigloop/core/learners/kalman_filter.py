@@ -112,7 +112,7 @@ class _Gaussian(Learner):
 
     # The working buffers are dropped and only Σ's upper triangle and ŵ are kept, n(n+1)/2 + n
     # floats instead of (n+1) n plus nine array headers: at n = 32, 4.5 kB instead of 9.9 kB,
-    # the difference between 188 MB and ~135 MB for 10,000 resident subjects (tools/bench/
+    # the difference between 188 MB and 138 MB for 10,000 resident subjects (tools/bench/
     # memory.py). Σ is exactly symmetric (every update adds the same products to Σ_ij and
     # Σ_ji), so its lower triangle is the upper one mirrored, bit for bit; a learner whose Σ
     # is not (a covariance assigned by hand) keeps its full buffer.

@@ -175,3 +175,12 @@ def test_verdict_when_no_animal_gets_there():
     text = verdict("A", "B", {"days_to_leave:acq": zero, "water_per_day_ul": zero}, {"acq": "full_task"},
                    summary, summary)
     assert text.startswith("B gets no animal to `full_task`, as A does not, same water")
+
+
+def test_process_pool_gives_the_serial_results():
+    r = load_example("tone_reversal")
+    pop = load_population("spring_cohort")
+    kw = dict(animals=2, days=1, seed=9)
+    serial = run_comparison([("A", r), ("B", r)], pop, executor="serial", **kw)
+    pooled = run_comparison([("A", r), ("B", r)], pop, executor="local", workers=2, **kw)
+    assert serial.results == pooled.results

@@ -286,3 +286,25 @@ def test_any_valid_steps_survive_both_encodings(steps):
     report = wire.TrialReport("5", ev)
     assert wire.parse_request_line(wire.format_request_line(report)).event == ev
     assert wire.decode_request(wire.encode_request(report)).event == ev
+
+
+def test_export_writes_steps_only_for_multi_step_trials(tmp_path):
+    """CSV gets step1_state ... columns and JSONL a steps list when trials have steps; a
+    store of one-step trials exports exactly the columns it always did."""
+    from rigloop.offline.export import export_text
+    from rigloop.offline.simulate import preset_animal, record_session
+    from rigloop.rules.load import load_example
+
+    for name, preset in (("two_step", "model_based"), (RULES, "typical")):
+        rules = load_example(name)
+        with Store(str(tmp_path / f"{name}.sqlite")) as store:
+            record_session(store, rules, preset_animal(preset, rules, "m1", 1), session="s1", max_trials=5)
+            csv_text = export_text(store, "trials", "csv")
+            jsonl = export_text(store, "trials", "jsonl")
+        header = csv_text.splitlines()[0]
+        if name == "two_step":
+            assert header.endswith("step1_state,step1_action,step1_time,step1_reward_ul,"
+                                   "step2_state,step2_action,step2_time,step2_reward_ul")
+            assert '"steps":[{' in jsonl
+        else:
+            assert "step1_" not in header and '"steps"' not in jsonl

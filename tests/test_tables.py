@@ -148,7 +148,7 @@ def test_mapping_problems_are_all_reported():
     err = info.value
     assert isinstance(err, RuleError)
     assert err.problems == [
-        "plots is not a known section (known: csv, cue, extra, outcome, response, trial)",
+        "plots is not a known section (known: csv, cue, extra, outcome, response, step, trial)",
         "trial.session is required (a column name or { value = ... })",
         "trial.trial needs exactly one of column or value",
         "trial.wall_time.format must be epoch or iso (got 'excel')",

@@ -69,10 +69,11 @@ def _write_wide_csv(out: TextIO, what: str, rows: Iterable[dict[str, Any]]) -> i
     """Trials or quantities as CSV, whose columns are known only after every row is read."""
     # Two passes need the same rows even while a daemon writes: spool the first pass.
     with tempfile.TemporaryFile("w+", encoding="utf-8") as spool:
-        max_cues, names = 0, set()
+        max_cues, max_steps, names = 0, 0, set()
         for row in rows:
             if what == "trials":
                 max_cues = max(max_cues, len(row["cues"]))
+                max_steps = max(max_steps, len(row.get("steps", ())))
                 names.update(row["extra"])
             else:
                 names.update(k for k in row if k not in ("subject", "session", "trial"))
@@ -82,7 +83,8 @@ def _write_wide_csv(out: TextIO, what: str, rows: Iterable[dict[str, Any]]) -> i
         if what == "trials":
             cue_cols = [c for i in range(1, max_cues + 1) for c in (f"cue{i}", f"cue{i}_onset", f"cue{i}_offset")]
             extra_cols = [f"extra_{n}" for n in sorted(names)]
-            columns = _TRIAL_HEAD + cue_cols + _TRIAL_TAIL + extra_cols
+            step_cols = [f"step{i}_{k}" for i in range(1, max_steps + 1) for k in _STEP_KEYS]
+            columns = _TRIAL_HEAD + cue_cols + _TRIAL_TAIL + extra_cols + step_cols
             return _write_csv(out, columns, (_trial_cells(r) for r in spooled))
         columns = ["subject", "session", "trial", *sorted(names)]
         return _write_csv(out, columns, spooled)
@@ -94,7 +96,13 @@ def _trial_cells(row: dict[str, Any]) -> dict[str, Any]:
         cells[f"cue{i}"], cells[f"cue{i}_onset"], cells[f"cue{i}_offset"] = cue, onset, offset
     for name, value in row["extra"].items():
         cells[f"extra_{name}"] = value
+    for i, s in enumerate(row.get("steps", ()), start=1):  # multi-step trials: step1_state, ...
+        for k in _STEP_KEYS:
+            cells[f"step{i}_{k}"] = s[k]
     return cells
+
+
+_STEP_KEYS = ("state", "action", "time", "reward_ul")
 
 
 def _decision_cells(row: dict[str, Any]) -> dict[str, Any]:

@@ -245,7 +245,7 @@ class Reader:
 def _flat_trial(e: dict[str, Any]) -> dict[str, Any]:
     """A stored event as one flat export row (outcome and response fields side by side)."""
     o, r = e["outcome"], e["response"]
-    return {
+    row = {
         "subject": e["subject"],
         "session": e["session"],
         "trial": e["trial"],
@@ -264,6 +264,9 @@ def _flat_trial(e: dict[str, Any]) -> dict[str, Any]:
         "response_latency": r["latency"],
         "extra": e["extra"],
     }
+    if e.get("steps"):  # multi-step trials only, so one-step exports stay as they were
+        row["steps"] = e["steps"]
+    return row
 
 
 def _flat_decision(subject: str, session: str, trial: int, d: dict[str, Any]) -> dict[str, Any]:

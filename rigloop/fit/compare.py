@@ -74,6 +74,10 @@ def spec_from_rules(rules, learner: str | None = None, link: str | None = None) 
         f = rules.features
         rep = make_representation(f.kind, CueList(rules.cues), dt=f.dt, n_bins=f.n_bins, decay=f.decay)
     name = learner or rules.learner.name
+    if name == "two_step":  # multi-step trials: fitted from (a1, s2, a2, reward), not cue rows
+        raise BadArgument("learner", "a learner of cue values; sessions of the two_step learner are fitted by "
+                                     "`rigloop two-step` from each trial's first action, second-stage state, second "
+                                     "action and reward", name)
     model_parameters(name)  # unknown name: a clear error now
     reward_learner = LEARNERS[name].kind == "reward"
     if reward_learner and rep.timed:

@@ -95,7 +95,8 @@ def profile_intervals(nll: Callable[[np.ndarray], float], s_hat: np.ndarray, nll
 
 
 class _Profile:
-    """The profile −log L of coordinate j, warm-started from the last point it solved."""
+    """The profile −log L of coordinate j: the others re-fitted from the estimate (and,
+    where that lands above the 1.92 line, also from the last point solved)."""
 
     def __init__(self, nll, s_hat, j, minimise, best):
         self.nll, self.j, self.minimise, self.best = nll, j, minimise, best
@@ -113,7 +114,13 @@ class _Profile:
                 full[self.others] = z
                 return float(self.nll(full))
 
-            z, value = self.minimise(inner, self.warm)
+            # from the estimate's other coordinates: a warm start carried from a far probe
+            # can sit in another basin and make the profile rise too soon
+            z, value = self.minimise(inner, self.s_hat[self.others])
+            if value > self.best[0] + DROP and not np.array_equal(self.warm, self.s_hat[self.others]):
+                z2, v2 = self.minimise(inner, self.warm)
+                if v2 < value:
+                    z, value = z2, v2
             self.warm = np.clip(z, 0.0, 1.0)
         self.best[0] = min(self.best[0], value)
         return value

@@ -66,9 +66,11 @@ DEFAULT_DECAY = 0.7  # the choice-history kernel's decay when it is pinned (core
 def model_parameters(learner_name: str, link: str = "respond") -> tuple[str, ...]:
     """Every parameter of the fitted model: the learner's, then the link's
     (``respond``: β, θ, lapse; ``choice``: β, bias, lapse, persev, decay)."""
-    cls = LEARNERS.get(learner_name) if isinstance(learner_name, str) else None
+    # the cue-value learners (two_step reads multi-step trials; `rigloop two-step` fits those)
+    fitted = {name: cls for name, cls in LEARNERS.items() if name != "two_step"}
+    cls = fitted.get(learner_name) if isinstance(learner_name, str) else None
     if cls is None:
-        raise BadArgument("learner", f"one of {', '.join(map(repr, LEARNERS))}", learner_name)
+        raise BadArgument("learner", f"one of {', '.join(map(repr, fitted))}", learner_name)
     return (*cls._param_names, *link_parameters(link))
 
 

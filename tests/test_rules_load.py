@@ -93,9 +93,9 @@ def test_contract_attributes():
 
 
 def test_profiles_all_validate():
-    """The three rig profiles load, and valve_ms inverts the least-squares line."""
+    """The shipped rig profiles load, and valve_ms inverts the least-squares line."""
     names = sorted(p.stem for p in (ROOT / "rig_profiles").glob("*.toml"))
-    assert names == ["lever_gonogo", "lickspout_hf", "nosepoke_2port"]
+    assert names == ["lever_gonogo", "lickspout_hf", "nosepoke_2port", "nosepoke_3port_twostage"]
     for name in names:
         prof = load_profile(ROOT / "rig_profiles" / f"{name}.toml")
         assert isinstance(prof, RigProfile)

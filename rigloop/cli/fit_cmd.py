@@ -18,7 +18,8 @@ from .fit_cohort_cmd import add_cohort_arguments, run_cohort
 def add_fit(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser("fit", help="fit learner parameters to a subject's responses (needs scipy: the 'fit' extra)")
     p.add_argument("--db", required=True, help="the SQLite store")
-    p.add_argument("--subject", default=None, help="the subject's name, as stored")
+    p.add_argument("--subject", default=None,
+                   help="the subject's name, as stored (default: none; give it or --subjects)")
     p.add_argument("--learner", action="append", metavar="NAME",
                    help="learner to fit (repeatable: the fits are ranked by AIC; default: the rule file's)")
     add_session(p, "fit only this session (default: every session, in order)")

@@ -17,7 +17,7 @@ def add_cohort_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--subjects", default=None, metavar="A,B,C|all",
                    help="fit a cohort: these stored subjects (comma-separated) or 'all', each on its own, "
                         "then a population over them (mean and sd per parameter, shrunken estimates, "
-                        "outliers); at least 3")
+                        "outliers); at least 3; default: none, one animal by --subject")
     p.add_argument("--out", default=None, metavar="FILE",
                    help="with --subjects: write the cohort figure here (.png, .pdf or .svg; default: none)")
 

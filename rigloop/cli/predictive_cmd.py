@@ -17,7 +17,7 @@ def add_predictive(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--runs", type=Count(20, 10_000), default=200, help="runs of the fitted model")
     p.add_argument("--window", type=Count(1, 1000), default=21,
                    help="trials of a cue in the moving average of the learning curves")
-    p.add_argument("--seed", type=Count(0), default=0, help="the runs' seed")
+    p.add_argument("--seed", type=Count(0), default=0, help="the runs' seed (default 0)")
     p.add_argument("--out", default=None, metavar="FIG", help="write the figure here (.png, .pdf or .svg; default: none)")
     add_json(p, "print the check as JSON")
     p.set_defaults(func=_run)

@@ -36,7 +36,7 @@ def add_two_step(sub: argparse._SubParsersAction) -> None:
                    help="--agent hybrid: its weight on model-based values (default: the preset's 0.5)")
     p.add_argument("--trials-count", dest="n_trials", type=Count(20, 100000), default=400,
                    help="--agent: number of trials")
-    p.add_argument("--seed", type=Count(0), default=0, help="--agent: the simulation's seed")
+    p.add_argument("--seed", type=Count(0), default=0, help="--agent: the simulation's seed (default 0)")
     p.add_argument("--fit", choices=("all", "hybrid", "none"), default="all",
                    help="all: MF, MB, hybrid and SR compared; hybrid: only the hybrid; none: no fits")
     p.add_argument("--figure", default="two_step_stay.png", metavar="OUT",

@@ -184,3 +184,17 @@ def test_process_pool_gives_the_serial_results():
     serial = run_comparison([("A", r), ("B", r)], pop, executor="serial", **kw)
     pooled = run_comparison([("A", r), ("B", r)], pop, executor="local", workers=2, **kw)
     assert serial.results == pooled.results
+
+
+def test_the_truth_the_animal_holds_is_the_truth_in_its_events():
+    """compare reads each trial's truth from the animal (no extra map built); it must be the event's."""
+    for name, preset in (("tone_reversal", "slow_reverser"), ("two_choice_staircase", "side_biased")):
+        rules = load_example(name)
+        animal = preset_animal(preset, rules, "s1", 4)
+        held = []
+        real = animal.trial
+        animal.trial = lambda *a, **k: (e := real(*a, **k), held.append(animal.last_truth))[0]
+        run = simulate_session(rules, animal, session="x1", max_trials=150)
+        assert len(held) == len(run.events) > 100
+        for event, got in zip(run.events, held, strict=True):
+            assert truth.truth_of(event.extra) == got, name

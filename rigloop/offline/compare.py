@@ -94,10 +94,17 @@ class RunningTruth:
         self.kind = None
 
     def add(self, n: int, stage: str, block: str, extra) -> None:
+        """Trial ``n`` ran in ``stage``/``block`` with the truth in its event's ``extra``."""
         kind, p = truth.truth_of(extra)
+        self.add_truth(n, stage, block, kind, p)
+
+    def add_truth(self, n: int, stage: str, block: str, kind: str | None, p) -> None:
+        """``add`` with the truth given as (kind, cue -> p), as the simulated animal holds it."""
         if self.kind is None and kind:
             self.kind = kind
+        closing = False
         if (stage, block) != self.key:
+            closing = True  # the block that ended may be judged already
             if self.pending:
                 self.pending[-1]["last"] = n - 1  # the running block ended
             direction = truth.block_direction(self.spec, stage, block, self.kind or "lick")
@@ -109,15 +116,18 @@ class RunningTruth:
         if self.direction is None:
             return
         v = truth.discrimination(p, self.direction)
+        up = v is not None and v >= self.margin
         for b in self.pending:
             if b["d"] is None:
-                b["run"] = b["run"] + 1 if v is not None and v >= self.margin else 0
+                b["run"] = b["run"] + 1 if up else 0
                 if b["run"] == self.hold:
                     b["d"] = n - self.hold + 1
-        done = [b for b in self.pending if b["d"] is not None and b["last"] is not None]
-        for b in done:
-            self._close(b)
-        self.pending = [b for b in self.pending if not (b["d"] is not None and b["last"] is not None)]
+                    closing = closing or b["last"] is not None
+        if closing:  # a block that ended earlier is discriminated now: judge it
+            for b in self.pending:
+                if b["d"] is not None and b["last"] is not None:
+                    self._close(b)
+            self.pending = [b for b in self.pending if not (b["d"] is not None and b["last"] is not None)]
 
     def _close(self, b: dict) -> None:
         self.judged += 1
@@ -149,14 +159,31 @@ def disengagement_ends(rules) -> frozenset[str]:
     return frozenset(e.name for e in rules.spec.session_end if any("miss" in n for n in e.when.names_used()))
 
 
+_PARSED: dict = {}  # (rule-file text, source) -> parsed rules: parsed once per worker process, a few kept
+
+
+def _rules_for(text: str, source: str):
+    """The parsed rule file (a worker runs many animals under each of a few rule files)."""
+    key = (text, source)
+    rules = _PARSED.get(key)
+    if rules is None:
+        from ..rules import load_rules
+
+        if len(_PARSED) >= 4:
+            _PARSED.clear()
+        rules = _PARSED[key] = load_rules(text, source=source)
+    return rules
+
+
 def run_animal(task: AnimalTask) -> AnimalResult:
     """All days of one drawn animal under one rule file (see the module docstring)."""
-    from ..rules import load_rules
-
-    rules = load_rules(task.rules_text, source=task.rules_source)
+    rules = _rules_for(task.rules_text, task.rules_source)
     draw = task.draw
     name = task.subject or draw.subject
     animal = draw.build(rules, name)
+    held = hasattr(animal, "last_truth")  # the animal holds each trial's truth: read it there
+    if held and task.db is None:
+        animal.record_truth = False  # nothing reads extra then (step does not), so it is not built
     res = AnimalResult(task.label, draw.subject, draw.group, draw.preset, task.days,
                        daily_min_ul=rules.spec.welfare.daily_min_ml * 1000.0)
     judge = RunningTruth(rules.spec)
@@ -193,7 +220,11 @@ def run_animal(task: AnimalTask) -> AnimalResult:
                         res.stage_trial[stage_now] = n - 1
                         left_today.append((stage_now, n - 1 - day_start))
                     stage_now = under.stage
-                    judge.add(n, under.stage, under.block, event.extra)
+                    if held:
+                        kind, p = animal.last_truth
+                        judge.add_truth(n, under.stage, under.block, kind, p)
+                    else:
+                        judge.add(n, under.stage, under.block, event.extra)
                     water += event.outcome.reward_ul
                     res.interventions += bool(decision.overrides)
                     if store is not None:

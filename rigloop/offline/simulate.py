@@ -115,6 +115,9 @@ class SimulatedAnimal:
         self._rng = np.random.default_rng(self.seed)
         self._n = 0  # trials in the current session
         self._session = None
+        self.last_truth: tuple[str, dict[str, float]] = ("", {})  # (kind, cue -> p) of the last trial run
+        self._parts: dict = {}  # cue -> its CuePresentation, (µL, s) -> Outcome: frozen values, reused
+        self._keys: dict = {}  # cue -> its truth key in extra
 
     def _check(self) -> None:
         """Refuse parameters the animal cannot use, naming the field."""
@@ -202,10 +205,28 @@ class SimulatedAnimal:
 
     def truth(self, decision: Decision) -> dict[str, float]:
         """The true response probability to every cue on the trial ``decision`` asks for."""
+        return self._extra_of(self.true_p(decision))
+
+    def true_p(self, decision: Decision) -> dict[str, float]:
+        """Cue -> its true p_respond (lick tasks) or p_right (choice tasks) on this trial."""
         cues = self.task_cues(decision.cue)
         if self.task == "choice":
-            return {TRUE_RIGHT.format(c): self.p_right(c, decision.difficulty) for c in cues}
-        return {TRUE_RESPOND.format(c): self.p_respond(c) for c in cues}
+            return {c: self.p_right(c, decision.difficulty) for c in cues}
+        return {c: self.p_respond(c) for c in cues}
+
+    def _extra_of(self, p: Mapping[str, float]) -> dict[str, float]:
+        """The truth as an event's extra keys (``true_p_respond[CUE]`` / ``true_p_right[CUE]``)."""
+        keys = self._keys
+        if len(keys) > 4 * _MAX_CUES:
+            keys.clear()  # bounded: cues come from the rule file, but a caller may pass any
+        form = TRUE_RIGHT if self.task == "choice" else TRUE_RESPOND
+        out = {}
+        for c, v in p.items():
+            k = keys.get(c)
+            if k is None:
+                k = keys[c] = form.format(c)
+            out[k] = v
+        return out
 
     # -- responding -----------------------------------------------------------
 
@@ -245,10 +266,10 @@ class SimulatedAnimal:
         """Run the trial ``decision`` asks for and report it, with the animal's truth in ``extra``."""
         self._new_trial(decision)
         cue = decision.cue
-        truth = self.truth(decision)  # before this trial's learning
+        p = self.true_p(decision)  # before this trial's learning
         onset, offset = self.onset_s, self.onset_s + self.cue_s
         engaged = self._engaged()
-        truth[TRUE_ENGAGED] = 1.0 if engaged else 0.0
+        self.last_truth = ("choice" if self.task == "choice" else "lick", p)
         reward_ul, reward_time = 0.0, None
         latency = None
         punished = False
@@ -269,7 +290,7 @@ class SimulatedAnimal:
                 punished = not ok and self.false_alarm_timeout_s is not None
                 r = 1.0 if reward_ul > 0 else (self.lick_cost if punished else 0.0)
                 self._learn((self._key(self._last_perceived), side), r)
-            cues = (CuePresentation(cue, onset, offset),)
+            cues = self._shown(cue, onset, offset)
         else:
             go = decision.reward_prob > 0
             licks = self._respond_lick(cue) if engaged else 0
@@ -287,8 +308,12 @@ class SimulatedAnimal:
             if licked:  # it learns from what its licks bring
                 r = 1.0 if reward_ul > 0 else self.lick_cost
                 self._learn(self._key(cue), r)
-            cues = (CuePresentation(cue, onset, offset),)
-        outcome = self._punish(latency) if punished else Outcome(reward_ul=reward_ul, reward_time=reward_time)
+            cues = self._shown(cue, onset, offset)
+        outcome = self._punish(latency) if punished else self._paid(reward_ul, reward_time)
+        extra = {}
+        if self.record_truth:
+            extra = self._extra_of(p)
+            extra[TRUE_ENGAGED] = 1.0 if engaged else 0.0
         times = [offset + 1.0] + ([latency] if latency else []) + ([reward_time] if reward_time else [])
         return TrialEvent(
             subject=self.subject,
@@ -300,8 +325,26 @@ class SimulatedAnimal:
             response=response,
             duration=max(times),
             wall_time=wall_time,
-            extra=truth if self.record_truth else {},
+            extra=extra,
         )
+
+    def _shown(self, cue: str, onset: float, offset: float) -> tuple[CuePresentation, ...]:
+        """The trial's one cue presentation (a frozen value, built once per cue and times)."""
+        key = (cue, onset, offset)
+        got = self._parts.get(key)
+        if got is None:
+            got = self._parts[key] = (CuePresentation(cue, onset, offset),)
+        return got
+
+    def _paid(self, reward_ul: float, reward_time: float | None) -> Outcome:
+        """The trial's outcome without punishment (a frozen value, built once per volume and time)."""
+        key = (reward_ul, reward_time)
+        got = self._parts.get(key)
+        if got is None:
+            if len(self._parts) > 256:
+                self._parts.clear()  # bounded: a staircase on the volume makes many
+            got = self._parts[key] = Outcome(reward_ul=reward_ul, reward_time=reward_time)
+        return got
 
 
 # --------------------------------------------------------------------------- presets

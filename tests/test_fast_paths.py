@@ -64,6 +64,32 @@ def test_curve_from_a_plain_state_equals_the_checked_path():
         assert fast.state() == checked.state() and _bits(fast.mu) == _bits(checked.mu)
 
 
+def _state_bits(d) -> list:
+    return [(k, _bits(v) if type(v) is float else v) for k, v in d.items()]
+
+
+def test_curve_state_updated_without_the_object_equals_the_object_path():
+    """curve._updated_state and _p_band (no LearningCurve in between) give the object path's
+    bits and key order; anything not plain is handed back (None) for the checked path."""
+    rng = np.random.default_rng(4)
+    for _ in range(400):
+        c = curve.LearningCurve(float(rng.uniform(0.05, 0.95)), float(rng.uniform(1e-4, 2)))
+        for y in rng.random(int(rng.integers(0, 40))) < float(rng.uniform(0.05, 0.99)):
+            d = c.state()
+            for correct in (True, False):
+                assert _state_bits(curve._updated_state(d, correct)) == \
+                    _state_bits(curve._updated_state_reference(d, correct))
+            z = float(rng.uniform(0.5, 3.0))
+            ref = curve.LearningCurve.from_state(d)
+            assert [_bits(v) for v in curve._p_band(d, z)] == [_bits(v) for v in (ref.p(), *ref._band(z))]
+            c.update(bool(y))
+    d = curve.LearningCurve(0.5, 0.1).state()
+    assert curve._updated_state(MappingProxyType(d), True) is None
+    assert curve._updated_state({**d, "n": 1.0}, True) is None
+    assert curve._updated_state({**d, "x": math.nan}, True) is None
+    assert curve._updated_state(d, 1) is None
+    assert curve._p_band({**d, "var": -1.0}, 1.96) is None
+
 def test_evolved_schedule_equals_replace():
     """ScheduleState._evolved (a copied instance dict) equals dataclasses.replace."""
     s = load_example("gonogo_shaping").start_subject()

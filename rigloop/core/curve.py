@@ -210,20 +210,67 @@ class LearningCurve:
         """:meth:`from_state` of a dict of the six keys (no others: the caller saw six
         entries) whose values are plain floats and an int that pass every check (what
         ``state`` gives), in one test; None for any other."""
-        try:
-            chance, sigma2, var0, x, var, n = d["chance"], d["sigma2"], d["var0"], d["x"], d["var"], d["n"]
-        except KeyError:
+        plain = _plain_values(d)
+        if plain is None:
             return None
-        if not (type(chance) is float and 0.0 < chance < 1.0 and type(sigma2) is float and 0.0 < sigma2 < _INF
-                and type(var0) is float and 0.0 < var0 < _INF and type(x) is float and -_INF < x < _INF
-                and type(var) is float and 0.0 < var < _INF and type(n) is int and n >= 0):
-            return None  # NaN fails every comparison above
+        chance, sigma2, var0, x, var, n = plain
         curve = object.__new__(cls)
         curve.chance, curve.sigma2, curve.var0 = chance, sigma2, var0
         # mu = logit(chance), as __init__ sets it
         curve.mu = _mu(chance)
         curve.x, curve.var, curve.n = x, var, n
         return curve
+
+
+def _plain_values(d: dict[str, Any]) -> tuple | None:
+    """(chance, sigma2, var0, x, var, n) of a curve state whose values are plain floats and
+    an int that pass every check of :meth:`LearningCurve.from_state`; None for any other."""
+    try:
+        chance, sigma2, var0, x, var, n = d["chance"], d["sigma2"], d["var0"], d["x"], d["var"], d["n"]
+    except KeyError:
+        return None
+    if not (type(chance) is float and 0.0 < chance < 1.0 and type(sigma2) is float and 0.0 < sigma2 < _INF
+            and type(var0) is float and 0.0 < var0 < _INF and type(x) is float and -_INF < x < _INF
+            and type(var) is float and 0.0 < var < _INF and type(n) is int and n >= 0):
+        return None  # NaN fails every comparison above
+    return chance, sigma2, var0, x, var, n
+
+
+def _updated_state(d: Any, correct: bool) -> dict[str, float | int] | None:
+    """``from_state(d)``, ``update(correct)``, ``state()`` without the curve object in between:
+    the same dict (keys in ``state``'s order), for a plain six-key dict and a bool; None for
+    anything else (the caller then takes the checked path). ``step`` updates two or three
+    curves a trial this way (tools/bench/step.py: the figure beside the object path;
+    tests/test_fast_paths.py: the same bits)."""
+    if type(d) is not dict or len(d) != 6 or type(correct) is not bool:
+        return None
+    plain = _plain_values(d)
+    if plain is None:
+        return None
+    chance, sigma2, var0, x, var, n = plain
+    x, var, _ = _filter_step(x, var, 1 if correct else 0, _mu(chance), sigma2)
+    return {"chance": chance, "sigma2": sigma2, "var0": var0, "x": x, "var": var, "n": n + 1}
+
+
+def _updated_state_reference(d: Mapping[str, Any], correct: bool) -> dict[str, float | int]:
+    """What :func:`_updated_state` gives, through the curve object."""
+    curve = LearningCurve.from_state(d)
+    curve.update(correct)
+    return curve.state()
+
+
+def _p_band(d: Any, z: float) -> tuple[float, float, float] | None:
+    """(p(), *_band(z)) of ``from_state(d)`` without the object, for a plain state (else None)."""
+    if type(d) is not dict or len(d) != 6:
+        return None
+    plain = _plain_values(d)
+    if plain is None:
+        return None
+    chance, _, _, x, var, _ = plain
+    mu = _mu(chance)
+    # logistic(mu + x) and logistic(mu + x -/+ z sd), as p() and _band() write them
+    sd = math.sqrt(var)
+    return _logistic(mu + x), _logistic(mu + x - z * sd), _logistic(mu + x + z * sd)
 
 
 # --------------------------------------------------------------------------- smoother

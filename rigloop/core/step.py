@@ -21,7 +21,7 @@ import numpy as np
 
 from ..errors import BadEvent
 from . import behaviour as B
-from .curve import LearningCurve
+from .curve import LearningCurve, _p_band, _updated_state
 from .experience import _action_cues, _actions_table, _is_go, _punishments, _scored
 from .learner_setup import action_cue, learner_key, new_learner, representation_for
 from .quantities import (
@@ -246,17 +246,21 @@ def step(state: SubjectState, event: TrialEvent, rules) -> tuple[SubjectState, D
         perf = spec.performance
         for cond in (ALL, *cue_ids):
             data = state.curves.get(cond)
-            curve = LearningCurve(perf.chance, perf.sigma2) if data is None else LearningCurve.from_state(data)
-            curve.update(scored)
-            curves[cond] = curve.state()
-            fresh[cond] = curve
-    all_curve = fresh.get(ALL)
-    if all_curve is None and curves.get(ALL) is not None:
-        all_curve = LearningCurve.from_state(curves[ALL])
-    if all_curve is not None:
-        lo, hi = all_curve._band(_Z95)  # interval(0.95)
-        quantities["p_correct"] = all_curve.p()
-        quantities["p_lo95"], quantities["p_hi95"] = lo, hi
+            # a plain state is updated without a curve object (the view makes one if a rule reads it)
+            new = None if data is None else _updated_state(data, scored)
+            if new is None:
+                curve = LearningCurve(perf.chance, perf.sigma2) if data is None else LearningCurve.from_state(data)
+                curve.update(scored)
+                new = curve.state()
+                fresh[cond] = curve
+            curves[cond] = new
+    all_data = curves.get(ALL)
+    if all_data is not None:
+        summary = _p_band(all_data, _Z95)
+        if summary is None:
+            all_curve = fresh.get(ALL) or LearningCurve.from_state(all_data)
+            summary = (all_curve.p(), *all_curve._band(_Z95))  # interval(0.95)
+        quantities["p_correct"], quantities["p_lo95"], quantities["p_hi95"] = summary
 
     behaviour = state.behaviour
     if did is not None:

@@ -102,6 +102,9 @@ def tricks() -> dict[str, dict[str, float]]:
             lambda: behaviour_module.dprime_estimate(1.2, 0.4, next(b_means), 0.5),
             lambda: (behaviour_module._G_NODES.clear(), behaviour_module.dprime_estimate(1.2, 0.4, next(b_means), 0.5)),
             500),
+        "curve state updated, no object vs object": _pair(
+            lambda: curve._updated_state(curve_state, True),
+            lambda: curve._updated_state_reference(curve_state, True), 20000),
         "behaviour quantities vs reference": _pair(
             lambda: quantities._behaviour_quantities({}, rules.spec, behaviour),
             lambda: quantities._behaviour_quantities_reference({}, rules.spec, behaviour), 20000),

@@ -198,3 +198,44 @@ def test_the_truth_the_animal_holds_is_the_truth_in_its_events():
         assert len(held) == len(run.events) > 100
         for event, got in zip(run.events, held, strict=True):
             assert truth.truth_of(event.extra) == got, name
+
+
+def _stored(path):
+    from rigloop.store import Store
+
+    with Store(str(path)) as store:
+        subjects = store.subjects()
+        rows = {s: [(i.session, i.meta, [e.to_dict() for e in store.trials(s, i.session)],
+                     [d.to_dict() for d in store.decisions(s, i.session)]) for i in store.sessions(s)]
+                for s in subjects}
+    return subjects, rows
+
+
+def test_db_written_by_parallel_workers_equals_the_serial_store_and_replays(tmp_path):
+    from rigloop.replay import replay_subject
+    from rigloop.store import Store
+
+    r, g = load_example("tone_reversal"), load_example("gonogo_shaping")
+    pop = load_population("spring_cohort")
+    kw = dict(animals=1, days=1, seed=4, sessions_per_day=2)
+    serial = run_comparison([("A", r), ("B", g)], pop, executor="serial", db=str(tmp_path / "s.sqlite"), **kw)
+    pooled = run_comparison([("A", r), ("B", g)], pop, executor="local", workers=2, db=str(tmp_path / "p.sqlite"),
+                            **kw)
+    plain = run_comparison([("A", r), ("B", g)], pop, executor="serial", **kw)
+    assert serial.results == pooled.results == plain.results  # storing changes nothing
+    subjects, rows = _stored(tmp_path / "s.sqlite")
+    assert _stored(tmp_path / "p.sqlite") == (subjects, rows)
+    assert len(subjects) == 2 and all(len(sessions) == 2 for sessions in rows.values())
+    assert sum(len(t) for sessions in rows.values() for _, _, t, _ in sessions) == sum(
+        x.trials for rs in plain.results.values() for x in rs)
+    with Store(str(tmp_path / "p.sqlite")) as store:
+        again = replay_subject(store, subjects[-1])  # the session's own rule file reproduces every decision
+    assert again.trials > 0 and not again.differences
+
+
+def test_db_that_holds_the_subjects_already_is_refused(tmp_path):
+    r = load_example("tone_reversal")
+    db = str(tmp_path / "s.sqlite")
+    _tiny([("A", r), ("B", r)], animals=1, days=1, db=db)
+    with pytest.raises(BadArgument, match="--db"):
+        _tiny([("A", r), ("B", r)], animals=1, days=1, db=db)

@@ -11,10 +11,16 @@ the schedule's from ``session_seed(animal, session)``, never from the rule file,
 two identical rule files give identical results, and two different ones differ only
 by what the rules did.
 
+The judge reads each trial's truth from the animal itself (``SimulatedAnimal.last_truth``);
+without a store the events carry no truth in ``extra`` (``step`` never reads it), so
+no map is built and checked per trial. With a store they carry it, as ``simulate``'s do.
+
 Memory stays flat in the number of days: a session's trials are reduced as they come
 (``RunningTruth`` judges blocks against the truth on the fly, as ``truth.block_timing``
 does over a whole history) and only per-day numbers are kept. With ``db``, each
-animal-day's sessions are stored in one transaction.
+animal-day's sessions are stored in one transaction; workers write in parallel (SQLite's
+busy timeout lets one writer in at a time), and ``first_session_info`` lets the caller
+store every animal's first session up front so the store lists subjects in cohort order.
 """
 
 from __future__ import annotations
@@ -44,6 +50,7 @@ class AnimalTask:
     sessions_per_day: int = 1
     db: str | None = None
     subject: str | None = None  # the name in a store (default: the drawn animal's); never its seeds
+    first_stored: bool = False  # the first session is in the store already (stored up front, in cohort order)
 
 
 @dataclass
@@ -247,7 +254,7 @@ def run_animal(task: AnimalTask) -> AnimalResult:
             for stage, k in left_today:  # days of training: whole days before, and the share of this one
                 res.stage_day[stage] = (day - 1) + k / max(n - day_start, 1)
             if store is not None:
-                store.import_sessions(stored)  # one transaction per animal-day
+                _store_day(store, stored, first=task.first_stored and day == 1)
     finally:
         if store is not None:
             store.close()
@@ -255,6 +262,32 @@ def run_animal(task: AnimalTask) -> AnimalResult:
     res.trials = n
     res.lags, res.early, res.judged = judge.lags, judge.early, judge.judged
     return res
+
+
+def _store_day(store, stored: list, *, first: bool) -> None:
+    """One animal-day's sessions and trials in one transaction. The day whose first
+    session was stored up front commits that session's trials into it (and, with more
+    sessions a day, imports the others in a second transaction)."""
+    if not first:
+        store.import_sessions(stored)
+        return
+    (_, items), rest = stored[0], stored[1:]
+    for result in store.commit_batch(items):
+        if result.error is not None:
+            raise result.error
+    if rest:
+        store.import_sessions(rest)
+
+
+def first_session_info(task: AnimalTask):
+    """The SessionInfo of the task's first session, as ``run_animal`` will open it (no trial run)."""
+    rules = _rules_for(task.rules_text, task.rules_source)
+    name = task.subject or task.draw.subject
+    session = "d001" + ("s1" if task.sessions_per_day > 1 else "")
+    seed = session_seed(task.draw.subject, session)
+    _, first = begin_session(new_subject(name, rules), rules, session=session, rig="sim-rig", wall_time=START,
+                             seed=seed)
+    return _session_info(name, session, rules, seed, first, START)
 
 
 def _ended_by(reason: str) -> str:

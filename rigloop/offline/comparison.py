@@ -17,7 +17,7 @@ from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 
 from ..errors import BadArgument
-from .compare import AnimalResult, AnimalTask, run_animal
+from .compare import AnimalResult, AnimalTask, first_session_info, run_animal
 from .compare_stats import pair_differences, stage_targets, summarise, verdict
 from .population import Population, draw_animals
 
@@ -74,13 +74,30 @@ def run_comparison(entries: Sequence[tuple[str, object]], population: Population
         # each rule file's animals are their own subjects in a store; without one the names stay plain
         for d in draws:
             tasks.append(AnimalTask(name, rules.text, rules.source, d, days, sessions_per_day, db,
-                                    subject=f"r{k + 1}-{d.subject}" if db is not None and k else None))
-    serial = executor if db is None else "serial"  # SQLite has one writer: a store is written from one process
-    got = run_ordered(run_animal, tasks, executor=serial, scheduler=scheduler if db is None else None,
-                      workers=workers, progress=progress)
+                                    subject=f"r{k + 1}-{d.subject}" if db is not None and k else None,
+                                    first_stored=db is not None))
+    if db is not None:
+        _store_first_sessions(db, tasks)
+    got = run_ordered(run_animal, tasks, executor=executor, scheduler=scheduler, workers=workers,
+                      progress=progress)
     results = {name: got[k * len(draws):(k + 1) * len(draws)] for k, (name, _) in enumerate(entries)}
     targets = stage_targets(first.spec)
     return Comparison([n for n, _ in entries], list(targets), targets, results, days, population.name)
+
+
+def _store_first_sessions(db: str, tasks: Sequence[AnimalTask]) -> None:
+    """Every task's first session in one transaction, in task order, before any worker
+    writes: the store then lists subjects in cohort order whichever animal finishes first.
+    A store that holds any of them already is refused (compare writes new subjects only)."""
+    from ..errors import StoreError
+    from ..store import Store
+
+    infos = [first_session_info(t) for t in tasks]
+    with Store(db) as store:
+        try:
+            store.import_sessions([(info, []) for info in infos])
+        except StoreError as exc:
+            raise BadArgument("--db", "a new store file or one without these simulated subjects", f"{db} ({exc})") from None
 
 
 def _task_kind(rules) -> str:

@@ -209,3 +209,12 @@ def test_cli_refuses_bad_parameter_options(choice_store, capsys):
     assert code == 2 and "expected NAME=LOW:HIGH" in capsys.readouterr().err
     code = main(["fit", "--db", str(choice_store), "--subject", "r07", "--bounds", "lapse=0.4:0.1"])
     assert code == 2 and "'bounds[lapse]' must be a pair (low, high)" in capsys.readouterr().err
+
+
+def test_cli_go_nogo_link_on_two_choice_trials_says_to_try_choice(choice_store, capsys):
+    """'0 of N trials' under --link respond on a two-choice store names the link to use."""
+    code = main(["fit", "--db", str(choice_store), "--subject", "r07", "--starts", "1",
+                 "--link", "respond"])
+    err = capsys.readouterr().err
+    assert code == 2 and "0 of 120 trials" in err
+    assert "try --link choice" in err

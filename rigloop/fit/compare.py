@@ -11,7 +11,7 @@ from typing import Any
 from ..core.features import Representation
 from ..core.learners import LEARNERS
 from ..errors import BadArgument
-from .data import FitData, link_for, prepare
+from .data import FitData, chose, link_for, prepare, responded
 from .params import PARAMETERS, default_fixed, model_parameters
 from .results import FitResult
 from .search import fit_subject
@@ -134,10 +134,31 @@ def compare_learners(
         if progress is not None:
             def each(done: int, total: int, i: int = i) -> None:
                 progress(i * total + done, len(specs) * total)
-        results.append(fit_subject(prepared[key], spec.learner, fixed=spec.fixed, start=spec.start,
-                                   bounds=spec.bounds, starts=starts, seed=seed, progress=each,
-                                   crossval=crossval, intervals=intervals, bootstrap=bootstrap))
+        try:
+            results.append(fit_subject(prepared[key], spec.learner, fixed=spec.fixed,
+                                       start=spec.start, bounds=spec.bounds, starts=starts,
+                                       seed=seed, progress=each, crossval=crossval,
+                                       intervals=intervals, bootstrap=bootstrap))
+        except BadArgument as err:
+            hint = _other_link_hint(err, events, link)
+            if hint is None:
+                raise
+            raise BadArgument(err.argument, err.expected + hint, err.value) from None
     return sorted(results, key=lambda r: r.aic)
+
+
+def _other_link_hint(err: BadArgument, events: Sequence, link: str) -> str | None:
+    """When too few trials are usable under ``link`` but the other link reads them: the
+    words that say which link to try (None otherwise)."""
+    if err.argument != "events":
+        return None
+    if link == "respond" and any(chose(e) is not None for e in events):
+        return ("; these trials record two-choice responses (a side): try --link choice "
+                "(link='choice' in Python)")
+    if link == "choice" and any(responded(e) is not None for e in events):
+        return ("; these trials record go/no-go responses (counts): try --link respond "
+                "(link='respond' in Python)")
+    return None
 
 
 def fit_from_store(

@@ -239,3 +239,20 @@ def test_db_that_holds_the_subjects_already_is_refused(tmp_path):
     _tiny([("A", r), ("B", r)], animals=1, days=1, db=db)
     with pytest.raises(BadArgument, match="--db"):
         _tiny([("A", r), ("B", r)], animals=1, days=1, db=db)
+
+
+def test_dask_cluster_gives_the_local_results():
+    """A real dask.distributed LocalCluster (two worker processes), reached by its address as a lab's would be."""
+    distributed = pytest.importorskip("dask.distributed")
+    r, g = load_example("tone_reversal"), load_example("gonogo_shaping")
+    pop = load_population("spring_cohort")
+    kw = dict(animals=2, days=1, seed=8)
+    local = run_comparison([("A", r), ("B", g)], pop, executor="local", workers=2, **kw)
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
+                                  dashboard_address=None) as cluster:
+        seen = []
+        remote = run_comparison([("A", r), ("B", g)], pop, scheduler=cluster.scheduler_address,
+                                progress=lambda d, t: seen.append((d, t)), **kw)
+    assert remote.results == local.results  # every number of every animal, in cohort order
+    assert json.dumps(remote.document(8)) == json.dumps(local.document(8))
+    assert seen[0] == (0, 4) and seen[-1] == (4, 4)

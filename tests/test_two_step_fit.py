@@ -4,6 +4,7 @@ the profile interval, parameter recovery of w, model comparison, and the command
 from __future__ import annotations
 
 import csv
+import os
 
 import numpy as np
 import pytest
@@ -11,8 +12,16 @@ import pytest
 from rigloop.cli.main import main
 from rigloop.core.two_step import hybrid_agent, simulate_agent
 from rigloop.errors import BadArgument
-from rigloop.fit.two_step import (CHI2_1_95, TwoStepData, TwoStepLikelihood, _profile_interval,
-                                  fit_two_step, value_paths)
+from rigloop.fit.two_step import (
+    CHI2_1_95,
+    TwoStepData,
+    TwoStepLikelihood,
+    _profile_interval,
+    fit_two_step,
+    linear_scan,
+    value_paths,
+    value_paths_reference,
+)
 
 pytest.importorskip("scipy")
 
@@ -51,17 +60,59 @@ def test_profile_interval_of_a_quadratic_profile():
 
 def test_w_is_recovered_in_order_with_covering_intervals():
     """Hybrid agents with w = 0, 0.25, 0.5, 0.75, 1 (400 trials, all seven parameters
-    free): the estimates rank in the true order and each 95% profile interval covers the
-    true w. (One repetition here; tools/bench/two_step_recovery.py runs many.)"""
+    free): the estimates rank in the true order and the 95% profile intervals cover the
+    true w in >= 90% of fits. By default one repetition (5 fits, a few seconds): it ranks
+    fully in order and at least 4 of 5 intervals cover; RIGLOOP_FULL=1 runs 8 repetitions
+    (40 fits): the mean estimates rank in order and coverage >= 90%, as
+    tools/bench/two_step_recovery.py reports. The target is the coverage a 95% interval
+    promises, less the slack of a few dozen fits (common practice)."""
     ws = (0.0, 0.25, 0.5, 0.75, 1.0)
-    fits = [fit_two_step(_data(hybrid_agent(w, 400, seed=j)), "hybrid", starts=2, seed=0)
-            for j, w in enumerate(ws)]
-    est = [f.params["w"] for f in fits]
-    assert np.all(np.diff(est) > 0), est
-    for w, f in zip(ws, fits):
-        low, high = f.w_interval
-        assert low - 1e-9 <= w <= high + 1e-9, (w, f.w_interval)
-        assert f.k == 7 and set(f.free) == {"alpha1", "alpha2", "lam", "beta1", "beta2", "p", "w"}
+    reps = 8 if os.environ.get("RIGLOOP_FULL") else 1
+    est = np.empty((reps, len(ws)))
+    covered = np.zeros((reps, len(ws)), dtype=bool)
+    for rep in range(reps):
+        for j, w in enumerate(ws):
+            seed = j if rep == 0 else 1000 * rep + j
+            f = fit_two_step(_data(hybrid_agent(w, 400, seed=seed)), "hybrid", starts=2, seed=rep)
+            assert f.k == 7
+            assert set(f.free) == {"alpha1", "alpha2", "lam", "beta1", "beta2", "p", "w"}
+            low, high = f.w_interval
+            est[rep, j] = f.params["w"]
+            covered[rep, j] = low - 1e-9 <= w <= high + 1e-9
+    if reps == 1:
+        assert np.all(np.diff(est[0]) > 0), est
+        assert covered.sum() >= 4, (est, covered)
+    else:
+        assert np.all(np.diff(est.mean(axis=0)) > 0), est.mean(axis=0)
+        assert covered.mean() >= 0.9, covered.mean()
+
+
+def test_value_paths_equal_the_trial_loop():
+    """The value paths solved as linear recurrences (``linear_scan``), one parameter set or
+    several at once, equal the plain loop over trials to rounding."""
+    run = simulate_agent("hybrid", 250, seed=8)
+    data = _data(run)
+    sets = [(0.5, 0.5, 0.6), (0.9, 0.1, 0.0), (1.0 - 1e-6, 1e-6, 1.0), (0.05, 0.95, 0.3)]
+    batch = value_paths(data, *(np.array(x) for x in zip(*sets, strict=True)))
+    for j, prm in enumerate(sets):
+        ref = value_paths_reference(data, *prm)
+        one = value_paths(data, *prm)
+        for key in ("mf", "mb", "sr", "q2"):
+            assert np.allclose(one[key], ref[key], rtol=0, atol=1e-12), (prm, key)
+            assert np.allclose(batch[key][:, j], ref[key], rtol=0, atol=1e-12), (prm, key)
+        assert np.array_equal(one["rep"], ref["rep"])
+
+
+def test_linear_scan_solves_the_recurrence():
+    """x[t] = a[t] x[t-1] + b[t] against the loop, for lengths around powers of two."""
+    rng = np.random.default_rng(0)
+    for n in (1, 2, 3, 7, 8, 9, 64, 100):
+        a, b = rng.uniform(0, 1, (n, 3)), rng.normal(size=(n, 3))
+        x, ref = np.zeros(3), []
+        for t in range(n):
+            x = a[t] * x + b[t]
+            ref.append(x)
+        assert np.allclose(linear_scan(a, b), np.array(ref), rtol=0, atol=1e-12)
 
 
 def test_model_comparison_tells_model_free_from_model_based():
@@ -88,7 +139,7 @@ def test_two_step_command_on_a_csv(tmp_path, capsys):
     with open(path, "w", newline="") as f:
         w = csv.writer(f)
         w.writerow(["a1", "s2", "a2", "reward"])
-        w.writerows(zip(run.a1, run.s2, run.a2, run.reward.astype(int)))
+        w.writerows(zip(run.a1, run.s2, run.a2, run.reward.astype(int), strict=True))
     fig = tmp_path / "stay.png"
     assert main(["two-step", str(path), "--fit", "none", "--figure", str(fig)]) == 0
     out = capsys.readouterr().out
@@ -100,4 +151,5 @@ def test_two_step_command_refuses_a_file_without_the_columns(tmp_path, capsys):
     path = tmp_path / "t.csv"
     path.write_text("a1,s2\n0,1\n")
     assert main(["two-step", str(path), "--fit", "none", "--figure", ""]) == 2
-    assert "a CSV with a header naming a1, s2, a2, reward (it has a1, s2)" in capsys.readouterr().err
+    err = capsys.readouterr().err
+    assert "a CSV with a header naming a1, s2, a2, reward (it has a1, s2)" in err

@@ -2,7 +2,8 @@
 
 Recovers subject m01 from the store (newest snapshot + replay), then steps and commits
 trials made by a deterministic stand-in animal, printing each trial number after its
-commit returns (the acknowledgement), until killed.
+commit returns (the acknowledgement), until killed. It prints ``ready`` once the session
+is open, before the first trial.
 
 Usage: python recovery_crash_child.py STORE_PATH
 """
@@ -58,6 +59,7 @@ def main() -> None:
             decision = Decision.from_dict(state.context.first_decision)
         else:
             decision = store.lookup(SUBJECT, SESSION, state.last_trial)[1]
+        print("ready", flush=True)  # the session is open: the test may start its kill timer
         while not decision.end_session:
             event = make_event(decision)
             state, decision, update = step(state, event, RULES)

@@ -192,7 +192,8 @@ class Daemon:
         s = self.settings
         self.data.mkdir(parents=True, exist_ok=True)
         self.ctx = zlink.new_context()
-        self.store = Store(self.data / STORE_FILE)
+        # checkpoints on their own thread and connection: no trial's commit waits for one
+        self.store = Store(self.data / STORE_FILE, background_checkpoint=True)
         self.subjects = Subjects(self.store)
         curve = self.curve.server_keys
         if curve is not None:

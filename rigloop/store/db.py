@@ -28,6 +28,7 @@ from typing import Any, TypeVar
 
 from ..errors import RigloopError, SchemaTooNew, StoreError
 from . import schema
+from .checkpoint import BACKSTOP_PAGES, Checkpointer
 
 T = TypeVar("T")
 _SQLITE_MAGIC = b"SQLite format 3\x00"
@@ -35,11 +36,13 @@ _SQLITE_MAGIC = b"SQLite format 3\x00"
 
 class Database:
     """One checked, prepared SQLite connection to a store file; ``Database(path)`` opens
-    or creates it."""
+    or creates it. With ``background_checkpoint`` a second connection on its own thread
+    checkpoints the WAL, so no commit waits for one (``checkpoint.py``; the daemon's)."""
 
-    def __init__(self, path: str | os.PathLike, *, create: bool = True):
+    def __init__(self, path: str | os.PathLike, *, create: bool = True, background_checkpoint: bool = False):
         self.path = os.fspath(path)
         self.conn: sqlite3.Connection | None = None
+        self.checkpointer: Checkpointer | None = None
         self._lock = threading.RLock()
         self._broken: str | None = None
         exists = os.path.exists(self.path)
@@ -56,6 +59,9 @@ class Database:
             raise StoreError(f"{self.path}: cannot open the store ({err})") from None
         try:
             self._setup()
+            if background_checkpoint:
+                self.conn.execute(f"PRAGMA wal_autocheckpoint = {BACKSTOP_PAGES}")
+                self.checkpointer = Checkpointer(self.path)
         except BaseException:
             self.conn.close()
             self.conn = None
@@ -114,6 +120,9 @@ class Database:
     def close(self) -> None:
         """Close the connection (idempotent). Committed data is already durable."""
         with self._lock:
+            if self.checkpointer is not None:
+                self.checkpointer.close()  # first: the writer's close then checkpoints what is left
+                self.checkpointer = None
             if self.conn is not None:
                 self.conn.close()
                 self.conn = None
@@ -147,6 +156,8 @@ class Database:
                 result = work(c)
                 if not alone:
                     c.execute("COMMIT")
+                if self.checkpointer is not None:
+                    self.checkpointer.nudge()
                 return result
             except RigloopError:
                 _rollback(c)

@@ -17,6 +17,7 @@ from typing import Any
 
 from ..core.trial import Decision, TrialEvent
 from ..errors import BadArgument, RigloopError
+from .texts import decision_text, event_text, quantities_text
 
 _RESERVED_QUANTITY_NAMES = frozenset({"subject", "session", "trial", "seq"})
 _CANONICAL = json.JSONEncoder(sort_keys=True, separators=(",", ":"), allow_nan=False)
@@ -156,12 +157,13 @@ def prepare(event: TrialEvent, decision: Decision, quantities: Mapping[str, floa
     if (decision.subject, decision.session) != (event.subject, event.session):
         raise BadArgument("decision", f"for subject {event.subject!r}, session {event.session!r} like its event",
                           f"subject {decision.subject!r}, session {decision.session!r}")
+    # the texts are canonical_json(x.to_dict()), written directly (texts.py; tests/test_store_texts.py)
     return Prepared(
         event,
         decision,
-        canonical_json(event.to_dict()),
-        canonical_json(decision.to_dict()),
-        canonical_json(_quantities(quantities)),
+        event_text(event),
+        decision_text(decision),
+        quantities_text(_quantities(quantities)),
         None if snapshot is None else blob_bytes(snapshot),
     )
 

@@ -44,10 +44,12 @@ _INSERT_TRIAL = (f"INSERT INTO trials ({TRIAL_COLUMNS}) "
 
 
 class Store(Reader):
-    """The SQLite store. ``Store(path)`` opens or creates it; use as a context manager."""
+    """The SQLite store. ``Store(path)`` opens or creates it; use as a context manager.
+    ``background_checkpoint=True`` (the daemon's) moves WAL checkpoints off the commits
+    onto a thread of their own (``checkpoint.py``)."""
 
-    def __init__(self, path: str | os.PathLike, *, create: bool = True):
-        super().__init__(Database(path, create=create))
+    def __init__(self, path: str | os.PathLike, *, create: bool = True, background_checkpoint: bool = False):
+        super().__init__(Database(path, create=create, background_checkpoint=background_checkpoint))
         self._known_sessions: set[tuple[str, str]] = set()
 
     @property

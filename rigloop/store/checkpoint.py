@@ -1,0 +1,94 @@
+"""WAL checkpoints off the commit path: a thread with its own connection copies committed
+WAL frames into the database file while the writer goes on committing.
+
+Why: with SQLite's default ``wal_autocheckpoint`` (1000 pages) the commit that crosses
+the threshold runs the checkpoint itself -- it writes ~1000 pages to the database file
+and fsyncs it before it returns, so one trial in a few hundred waits several ms for its
+reply (``tools/bench/store.py`` prints the commit latency percentiles with and without).
+A PASSIVE checkpoint on a second connection never blocks the writer (WAL mode: readers
+and checkpointers do not block writers), and sqlite3 releases the GIL while SQLite works.
+
+Durability is untouched: a trial is durable once the WAL holding it was fsync'd by its
+commit (``synchronous=FULL``); a checkpoint only copies durable frames into the main file
+(``synchronous=FULL``: WAL fsync'd before, database file fsync'd after, then the frames
+are marked done), and a crash mid-checkpoint leaves the frames in the WAL for the next
+open. The writer keeps ``wal_autocheckpoint`` as a backstop (``BACKSTOP_PAGES``), so the
+WAL stays bounded even if this thread falls behind.
+
+``Checkpointer.nudge()`` is called by the writer after a commit; every ``every`` nudges
+(or after ``idle_s`` with commits pending) the thread runs one PASSIVE checkpoint.
+"""
+
+from __future__ import annotations
+
+import sqlite3
+import threading
+
+# the writer's own checkpoint, kept as a backstop (SQLite's default is 1000 pages; 4 KiB
+# pages make this ~40 MiB of WAL at most before a commit checkpoints inline as before)
+BACKSTOP_PAGES = 10_000
+# one background checkpoint per this many write transactions (~2.5 WAL pages a one-trial
+# commit, so ~500 pages: about half SQLite's default threshold)
+EVERY_COMMITS = 200
+# ... or this long after a commit that is not yet checkpointed (an idle daemon tidies up)
+IDLE_S = 2.0
+
+
+class Checkpointer:
+    """A daemon thread running ``PRAGMA wal_checkpoint(PASSIVE)`` on its own connection to
+    ``path``; see the module docstring. ``close()`` stops it (the writer's close then does
+    the final checkpoint)."""
+
+    def __init__(self, path: str, *, every: int = EVERY_COMMITS, idle_s: float = IDLE_S):
+        self.path = path
+        self.every = every
+        self.idle_s = idle_s
+        self.runs = 0  # checkpoints run (for tests and status)
+        self.last: tuple[int, int, int] | None = None  # (busy, WAL frames, frames checkpointed) of the last run
+        self.error: str | None = None  # the last failure, if any (the writer's backstop covers it)
+        self._pending = 0  # commits since the last checkpoint (writer thread; read racily, which is fine)
+        self._wake = threading.Event()
+        self._stop = False
+        self._conn = sqlite3.connect(path, isolation_level=None, check_same_thread=False)
+        self._conn.execute("PRAGMA busy_timeout = 1000")
+        self._conn.execute("PRAGMA synchronous = FULL")
+        self._conn.execute("PRAGMA checkpoint_fullfsync = ON")
+        self._thread = threading.Thread(target=self._run, name="rigloop-checkpoint", daemon=True)
+        self._thread.start()
+
+    def nudge(self) -> None:
+        """One more commit went into the WAL (writer thread, after its COMMIT returned)."""
+        self._pending += 1
+        if self._pending >= self.every:
+            self._pending = 0
+            self._wake.set()
+
+    def _run(self) -> None:
+        while True:
+            woken = self._wake.wait(self.idle_s)
+            self._wake.clear()
+            if self._stop:
+                return
+            if not woken:
+                if not self._pending:
+                    continue
+                self._pending = 0
+            self.checkpoint()
+
+    def checkpoint(self) -> bool:
+        """One PASSIVE checkpoint now; False if SQLite refused it (the backstop covers that)."""
+        try:
+            row = self._conn.execute("PRAGMA wal_checkpoint(PASSIVE)").fetchall()[0]  # all: the statement ends
+        except sqlite3.Error as err:  # e.g. a closing store; the writer's backstop still checkpoints
+            self.error = f"{type(err).__name__}: {err}"
+            return False
+        self.runs += 1
+        self.last = tuple(row)
+        return True
+
+    def close(self) -> None:
+        """Stop the thread (after the checkpoint it may be running) and close its connection."""
+        self._stop = True
+        self._wake.set()
+        self._thread.join()
+        self._conn.close()

@@ -55,17 +55,19 @@ def add_export(sub: argparse._SubParsersAction) -> None:
 
 def _run_export(args: argparse.Namespace) -> int:
     from ..offline.tables import export
+    from .progress import Progress
 
     if args.format == "parquet":
         return _run_export_parquet(args)
     if args.format == "nwb":
         return _run_export_nwb(args)
-    with open_store(args.db) as store:
+    with open_store(args.db) as store, Progress(0, f"exporting {args.what}", unit="rows") as bar:
+        kw = dict(subject=args.subject, session=args.session, progress=bar)
         if args.out == "-":
-            n = export(store, args.what, args.format, sys.stdout, subject=args.subject, session=args.session)
+            n = export(store, args.what, args.format, sys.stdout, **kw)
         else:
             with open(args.out, "w", newline="", encoding="utf-8") as fh:
-                n = export(store, args.what, args.format, fh, subject=args.subject, session=args.session)
+                n = export(store, args.what, args.format, fh, **kw)
     print(f"{n:,} {args.what} rows written to {args.out if args.out != '-' else 'standard output'}",
           file=sys.stderr)
     return 0

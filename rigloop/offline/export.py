@@ -9,7 +9,7 @@ import csv
 import io
 import json
 import tempfile
-from collections.abc import Iterable
+from collections.abc import Callable, Iterable
 from typing import Any, TextIO
 
 from ..core.names import check_name
@@ -25,7 +25,8 @@ WHATS = ("trials", "decisions", "quantities")
 FORMATS = ("csv", "jsonl")
 
 
-def export(store, what: str, fmt: str, out: TextIO, subject: str | None = None, session: str | None = None) -> int:
+def export(store, what: str, fmt: str, out: TextIO, subject: str | None = None, session: str | None = None,
+           progress: Callable[[int, int], None] | None = None) -> int:
     """Write the store's ``what`` rows (trials | decisions | quantities) to ``out`` as
     ``fmt`` (csv | jsonl); returns the number of rows written.
 
@@ -34,6 +35,8 @@ def export(store, what: str, fmt: str, out: TextIO, subject: str | None = None, 
     their extra fields to ``extra_<name>``; quantities get one column per name (the
     union of names, sorted); decisions' reason lists are JSON arrays in their cells.
     Floats are written with ``repr`` so they read back exactly; None is an empty cell.
+    ``progress(done, total)`` is called as rows are read from the store (every
+    ``PROGRESS_EVERY`` rows and at the end; total: the trials in scope, one row each).
     """
     if what not in WHATS:
         raise BadArgument("what", f"one of {', '.join(WHATS)}", what)
@@ -41,11 +44,34 @@ def export(store, what: str, fmt: str, out: TextIO, subject: str | None = None, 
         raise BadArgument("fmt", f"one of {', '.join(FORMATS)}", fmt)
     _check_scope(store, subject, session)
     rows = store.rows(what, subject=subject, session=session)
+    if progress is not None:
+        rows = _counted(rows, progress, rows_in_scope(store, subject, session))
     if fmt == "jsonl":
         return _write_jsonl(out, rows)
     if what == "decisions":
         return _write_csv(out, _DECISION_COLUMNS, (_decision_cells(r) for r in rows))
     return _write_wide_csv(out, what, rows)
+
+
+PROGRESS_EVERY = 1000  # rows between progress calls (a call per row would cost more than the row)
+
+
+def rows_in_scope(store, subject: str | None, session: str | None) -> int:
+    """Trials stored in the scope (every ``what`` has one row per trial): the progress total."""
+    infos = store.sessions(subject) if subject is not None else store.sessions()
+    return sum(store.last_trial(i.subject, i.session) for i in infos if session is None or i.session == session)
+
+
+def _counted(rows: Iterable[dict[str, Any]], progress: Callable[[int, int], None], total: int):
+    """``rows`` unchanged, calling ``progress`` as they pass."""
+    progress(0, total)
+    n = 0
+    for row in rows:
+        yield row
+        n += 1
+        if n % PROGRESS_EVERY == 0:
+            progress(n, max(total, n))
+    progress(n, max(total, n))
 
 
 def _check_scope(store, subject: str | None, session: str | None) -> None:

@@ -8,6 +8,8 @@ timed on the local process pool and the target run's time is projected from its 
 - CPU seconds per animal-day, from a serial run in this process (``time.process_time``),
   so a busy machine (other work on the same cores) does not hide the engine's own cost;
   the CPU projection is that × the target's animal-days / the cores.
+- the split of a trial's CPU time between ``step`` (the decisions) and the loop around it
+  (the simulated animal, the truth judge, bookkeeping);
 - where one animal-day's time goes: the top functions of a cProfile of the serial run.
 - peak Python memory (``tracemalloc``) of one animal run for more and more days: flat
   when nothing grows with the days.
@@ -64,6 +66,34 @@ def cpu_per_day(days: int) -> tuple[float, float]:
     return (time.process_time() - t0) / n, trials / n
 
 
+def step_share(days: int) -> tuple[float, float, int]:
+    """(µs per trial inside ``step``, µs per trial outside it, trials) of serial runs: what the
+    simulation loop (animal, truth, bookkeeping) costs beside the decisions themselves."""
+    from rigloop.offline import compare
+
+    pop = load_population("spring_cohort")
+    draws = draw_animals(pop, 2, 11)
+    inside = [0.0]
+    real = compare.step
+
+    def timed(*args):
+        t = time.process_time()
+        out = real(*args)
+        inside[0] += time.process_time() - t
+        return out
+
+    compare.step = timed
+    try:
+        t0, trials = time.process_time(), 0
+        for name, rules in _entries():
+            for d in draws:
+                trials += run_animal(AnimalTask(name, rules.text, rules.source, d, days)).trials
+        total = time.process_time() - t0
+    finally:
+        compare.step = real
+    return inside[0] / trials * 1e6, (total - inside[0]) / trials * 1e6, trials
+
+
 def profile_top(days: int, limit: int = 12) -> None:
     import cProfile
     import pstats
@@ -111,7 +141,11 @@ def main(argv=None) -> int:
     print(f"serial, this process: {cpu * 1000:.0f} ms CPU per animal-day ({per_day:.0f} trials; "
           f"{cpu / per_day * 1e6:.0f} µs per trial)")
     cpu_proj = cpu * target_days / args.workers
-    print(f"  target run projected from CPU time on {args.workers} cores: {cpu_proj:.0f} s")
+    print(f"  target run projected from CPU time on {args.workers} cores: {cpu_proj:.0f} s "
+          f"(goal <= {TARGET_S:.0f} s: {'PASS' if cpu_proj <= TARGET_S else 'FAIL'})")
+    inside, outside, _ = step_share(days=2)
+    print(f"  per trial: {inside:.0f} µs in step, {outside:.0f} µs outside it (the simulated animal, the truth "
+          f"judge, bookkeeping): {100 * outside / (inside + outside):.0f}% outside")
 
     wall, n_days, trials = timed_run(args.animals, args.days, "local", args.workers)
     rate = n_days / wall

@@ -86,7 +86,10 @@ def breakdown(directory: str, trials: int) -> dict:
     msgpack frame, ``validate`` it into a TrialEvent (fields, limits, the event's checks),
     ``step``, ``snapshot`` (the state's bytes, every ``snapshot_every`` trials; here per
     trial, its median is the cost when it happens), ``commit`` (Store.commit_batch of one
-    trial: WAL, synchronous=FULL), ``reply`` (encode the DecisionReply), then what follows
+    trial: WAL, synchronous=FULL, checkpoints on their own thread as in the daemon), of which
+    ``encode`` (the trial's texts: ``records.prepare``, timed apart on the same values) and
+    the rest is SQLite's insert plus the WAL's write and fdatasync, ``reply`` (encode the
+    DecisionReply), then what follows
     the reply: ``publish`` (the observer message with its watch summary, packed) and
     ``log`` (the per-trial JSON log line). ``echo`` is the bare floor beside them: unpack,
     append, fdatasync, pack.
@@ -104,12 +107,14 @@ def breakdown(directory: str, trials: int) -> dict:
     from rigloop.wire import packed
 
     rules = load_example(RULES)
-    store = Store(os.path.join(directory, "breakdown.sqlite"))
+    from rigloop.store.records import prepare
+
+    store = Store(os.path.join(directory, "breakdown.sqlite"), background_checkpoint=True)
     log = structlog.wrap_logger(structlog.PrintLogger(io.StringIO()), processors=[
         structlog.processors.add_log_level, structlog.processors.TimeStamper(fmt="iso", utc=True),
         structlog.processors.JSONRenderer()])
     fd = os.open(os.path.join(directory, "breakdown_echo.log"), os.O_WRONLY | os.O_CREAT | os.O_APPEND, 0o600)
-    stages = ("decode", "validate", "step", "snapshot", "commit", "reply", "publish", "log", "echo")
+    stages = ("decode", "validate", "step", "snapshot", "commit", "reply", "publish", "log", "echo", "encode")
     times: dict[str, list[float]] = {k: [] for k in stages}
     clock = time.perf_counter
     n_session, decision, state, animal = 0, None, None, None
@@ -152,15 +157,20 @@ def breakdown(directory: str, trials: int) -> dict:
             os.fdatasync(fd)
             msgpack.packb({"type": "echo", "id": body.get("id")})
             t9 = clock()
+            prepare(req.event, decision, update.quantities, None)
+            t10 = clock()
             del snap
             # validate = the whole decode minus the unpack it starts with
             for name, dt in zip(stages, (t1 - t0, (t2 - t1) - (t1 - t0), t3 - t2, t4 - t3, t5 - t4, t6 - t5,
-                                         t7 - t6, t8 - t7, t9 - t8), strict=True):
+                                         t7 - t6, t8 - t7, t9 - t8, t10 - t9), strict=True):
                 times[name].append(dt * 1e6)
     finally:
         os.close(fd)
         store.close()
-    return {k: round(statistics.median(v), 1) for k, v in times.items()}
+    out = {k: round(statistics.median(v), 1) for k, v in times.items()}
+    out["commit_p99"] = round(percentile(times["commit"], 0.99), 1)
+    out["echo_p99"] = round(percentile(times["echo"], 0.99), 1)
+    return out
 
 
 BEFORE_REPLY = ("decode", "validate", "step", "commit", "reply")
@@ -172,6 +182,10 @@ def print_breakdown(bd: dict, snapshot_every: int) -> None:
     before = sum(bd[k] for k in BEFORE_REPLY) + bd["snapshot"] / snapshot_every
     for k in BEFORE_REPLY:
         print(f"  {k:<10} {bd[k]:9.1f}   {100 * bd[k] / before:5.1f}% of the work before the reply")
+        if k == "commit" and "encode" in bd:
+            print(f"    {'encode':<8} {bd['encode']:9.1f}   of it: the trial's JSON texts; the rest is the SQLite insert, "
+                  "the WAL write and its fdatasync")
+            print(f"    {'p99':<8} {bd['commit_p99']:9.1f}   (echo p99 {bd['echo_p99']:.1f}; no checkpoint runs inside a commit)")
     print(f"  {'snapshot':<10} {bd['snapshot']:9.1f}   once every {snapshot_every} trials "
           f"({bd['snapshot'] / snapshot_every:.1f} µs a trial), before the reply (stored with its trial)")
     print(f"  {'= before':<10} {before:9.1f}   the reply waits for these")

@@ -114,16 +114,31 @@ def run_command(db: str, subject: str, learners: Sequence[str] | None = None,
 
     from ..core.learners import LEARNERS
     from ..core.names import check_name
+    from ..errors import BadArgument
     from ..fit import fit_from_store, format_fit, format_ranking
+    from ..fit.two_step_results import kind_of
+    from ..fit.two_step_store import is_two_step
     from ..replay import stored_sessions
     from .progress import Progress
 
     out = out or sys.stdout
     names = list(learners) if learners else None
+    cue_learners = [n for n in LEARNERS if n != "two_step"]
     for name in names or ():
-        check_name("--learner", "a learner", name, LEARNERS)
+        if kind_of(name) is None:
+            check_name("--learner", "a learner", name, cue_learners + ["model_free", "model_based", "hybrid",
+                                                                       "successor"])
     with open_store(db) as store:
         stored_sessions(store, subject, session)
+        if is_two_step(store, subject, session):
+            return _run_two_step_fit(store, subject, names, session, starts=starts, as_json=as_json, out=out,
+                                     link=link, fix=fix or {}, bounds=bounds or {}, start=start or {},
+                                     bootstrap=bootstrap, seed=seed)
+        for name in names or ():
+            if kind_of(name) is not None:
+                raise BadArgument("--learner", f"a learner of cue values ({', '.join(cue_learners)}): "
+                                  f"{subject}'s sessions are one-step trials, and {name} is a two-step learner "
+                                  "(for the sessions of a two_step rule file)", name)
         bar = Progress(0, f"fitting {subject}")
         got = fit_from_store(store, subject, learner=names if names and len(names) > 1 else
                              (names[0] if names else None), session=session, starts=starts,
@@ -145,4 +160,68 @@ def run_command(db: str, subject: str, learners: Sequence[str] | None = None,
         print("ranking by AIC (lower is better; dAIC > 10: little support, common practice; "
               "CV log-lik: held-out sessions, higher is better)", file=out)
         print(format_ranking(results), file=out)
+    return 0
+
+
+def _run_two_step_fit(store, subject: str, names: Sequence[str] | None, session: str | None, *, starts: int,
+                      as_json: bool, out, link: str | None, fix: Mapping[str, float],
+                      bounds: Mapping[str, tuple[float, float]], start: Mapping[str, float],
+                      bootstrap: int, seed: int) -> int:
+    """``rigloop fit`` on two-step sessions: the two-step learners (fit/two_step.py), the
+    fit command's table and JSON shape, ranked by AIC."""
+    import json
+
+    from ..core.names import check_name
+    from ..core.two_step.params import BOUNDS, KINDS, NAMES
+    from ..errors import BadArgument
+    from ..fit.two_step import fit_two_step
+    from ..fit.two_step_results import DEFAULT_KIND, fit_record, format_fit, format_ranking, kind_of
+    from ..fit.two_step_store import read_two_step
+    from .progress import Progress
+
+    cue_only = [n for n in names or () if kind_of(n) is None]
+    if cue_only:
+        raise BadArgument("--learner", "a two-step learner (model_free, model_based, hybrid, successor; or mf, mb, "
+                          f"sr): {subject}'s sessions ran a two_step rule file, whose trials have two steps, and "
+                          f"{cue_only[0]} is a learner of cue values", cue_only[0])
+    if link is not None:
+        raise BadArgument("--link", "left out for two-step trials: their fit models both stages' choices "
+                          "itself (softmax with beta1, beta2 and perseveration p)", link)
+    if bootstrap:
+        raise BadArgument("--bootstrap", "left out for two-step trials: w gets its profile-likelihood "
+                          "interval", bootstrap)
+    if bounds:
+        raise BadArgument("--bounds", "left out for two-step trials: each parameter is searched over its "
+                          "natural range (pin one with --fix NAME=VALUE)", next(iter(bounds)))
+    kinds = list(dict.fromkeys(kind_of(n) for n in names)) if names else [DEFAULT_KIND]
+    used = sorted({p for k in kinds for p in KINDS[k]}, key=NAMES.index)
+    for option, given in (("--fix", fix), ("--start", start)):
+        for name in given:
+            check_name(option, f"a parameter of {', '.join(kinds)}", name, used)
+            low, high = BOUNDS[name]
+            if not low <= given[name] <= high:
+                raise BadArgument(option, f"{name} within its range [{low:g}, {high:g}]", given[name])
+    stored = read_two_step(store, subject, session)
+    notes = stored.notes()
+    bar = Progress(len(kinds), f"fitting {subject}", unit="fits")
+    fits = []
+    for i, kind in enumerate(kinds):
+        mine = {n: v for n, v in fix.items() if n in KINDS[kind]}
+        first = {n: v for n, v in start.items() if n in KINDS[kind] and n not in mine}
+        fits.append(fit_two_step(stored.data, kind, starts=starts, seed=seed, fixed=mine, start=first))
+        bar(i + 1, len(kinds))
+    bar.close()
+    ranking = [f.kind for f in sorted(fits, key=lambda f: f.aic)]
+    n = stored.data.n_trials
+    if as_json:
+        doc = {"subject": subject, "fits": [fit_record(f, n, fix, notes) for f in fits], "ranking": ranking}
+        print(json.dumps(doc, indent=2), file=out)
+        return 0
+    scope = f"session {session}" if session else f"sessions {', '.join(stored.sessions)}"
+    print(f"subject {subject}, {scope} (two-step trials over {', '.join(stored.states)})", file=out)
+    for f in fits:
+        print(format_fit(f, n, starts, notes), file=out)
+    if len(fits) > 1:
+        print("ranking by AIC (lower is better; dAIC > 10: little support, common practice)", file=out)
+        print(format_ranking(fits), file=out)
     return 0

@@ -3,8 +3,9 @@ two-step trials.
 
 ``rigloop two-step TRIALS.csv|TRIALS.npz [--fit all|hybrid|none] [--figure OUT.png]``
 reads columns (or arrays) a1, s2, a2, reward (0/1 each: first action, second-stage
-state, second action, reward); ``rigloop two-step --agent hybrid --w 0.5`` runs a
-simulated agent instead (for trying it out). Prints the stay table, the regression of
+state, second action, reward); ``rigloop two-step --db F --subject S [--session X]``
+reads a subject's stored two-step trials (fit/two_step_store.py); ``rigloop two-step
+--agent hybrid --w 0.5`` runs a simulated agent instead (for trying it out). Prints the stay table, the regression of
 stay on reward × transition, the fits (MF, MB, hybrid with a 95% profile interval on w,
 SR; AIC/BIC), and writes the stay-probability figure.
 """
@@ -29,7 +30,12 @@ def add_two_step(sub: argparse._SubParsersAction) -> None:
     p = sub.add_parser("two-step", help="stay analysis and model-based vs model-free fits of two-step trials")
     p.add_argument("trials", nargs="?", default=None,
                    help="CSV with columns a1,s2,a2,reward (0/1), or .npz with those arrays "
-                        "(default: none, give this or --agent)")
+                        "(default: none, give this, --db or --agent)")
+    p.add_argument("--db", default=None, help="read a subject's stored two-step trials from this store "
+                                              "(with --subject; default: none)")
+    p.add_argument("--subject", default=None, help="--db: the subject, as stored (default: none)")
+    p.add_argument("--session", default=None,
+                   help="--db: only this session (default: every session of the subject, in order)")
     p.add_argument("--agent", choices=sorted(PRESETS), default=None,
                    help="analyse a simulated agent instead of a file (default: none)")
     p.add_argument("--w", type=Count(0, 1, kind=float), default=None,
@@ -70,10 +76,29 @@ def _run_two_step(args) -> int:
     from ..fit.two_step import TwoStepData, fit_two_step
     from ..outputs.two_step_figure import stay_figure
 
-    if (args.trials is None) == (args.agent is None):
-        raise BadArgument("trials", "a trials file or --agent (one of them)",
-                          args.trials if args.trials else "neither")
-    if args.agent is not None:
+    if args.db is None and (args.subject is not None or args.session is not None):
+        raise BadArgument("--subject" if args.subject is not None else "--session",
+                          "used only with --db (the store to read)",
+                          args.subject if args.subject is not None else args.session)
+    given = [x for x in (args.trials, args.db and f"--db {args.db}",
+                         args.agent and f"--agent {args.agent}") if x]
+    if len(given) != 1:
+        raise BadArgument("trials", "one source: a trials file, --db F --subject S, or --agent KIND",
+                          " and ".join(given) if given else "none")
+    if args.db is not None:
+        from ..fit.two_step_store import read_two_step
+        from .args import open_store
+
+        if args.subject is None:
+            raise BadArgument("--subject", "the subject whose stored trials to read (with --db)",
+                              "no --subject")
+        with open_store(args.db) as store:
+            stored = read_two_step(store, args.subject, args.session)
+        data = stored.data
+        source = f"{args.subject} ({', '.join(stored.sessions)})"
+        for note in stored.notes():
+            print(f"note: {note}", file=sys.stderr)
+    elif args.agent is not None:
         params = None
         if args.w is not None:
             if args.agent != "hybrid":

@@ -30,6 +30,7 @@ the first trial, carried across sessions as live).
 
 from __future__ import annotations
 
+import contextlib
 import math
 from collections.abc import Mapping, Sequence
 from typing import Any
@@ -40,11 +41,12 @@ from ..core.learners import make_learner
 from ..core.responses import log_lik_respond, log_lik_right, p_respond, p_right
 from ..errors import BadArgument
 from .data import FitData
-from .fast import onset_values_fast
+from .fast import batch_values, onset_values_fast
 from .params import LINK_PARAMETER_NAMES, in_domain, link_parameters, model_parameters
 from .results import FittedTrials
 
 _FAR_WORSE = 1e10  # the objective where the learner overflows: far worse than any fit
+_CACHE_SIZE = 16  # learner value paths a NegLogLik keeps (a batch keeps all of its own)
 
 
 def onset_values(data: FitData, learner) -> np.ndarray:
@@ -236,6 +238,13 @@ class NegLogLik:
     the sum runs over (nan: left out): a held-out session (``crossval``), or redrawn
     go/no-go responses (``bootstrap``); the learner and the choice kernel still follow
     the animal's own.
+
+    Batches: inside ``with objective.collecting():`` a call only notes the learner
+    parameters it would need (and returns 0.0); leaving the block runs every noted set
+    not yet cached in one compiled call (``fast.batch_values``: the same numbers as one
+    set at a time, bit for bit). The optimiser's wrappers (``search._minimize``) note the
+    points of a numerical gradient first, so the learner runs once per gradient for all
+    of them rather than once per point.
     """
 
     def __init__(self, data: FitData, learner_name: str, free: Sequence[str],
@@ -254,10 +263,18 @@ class NegLogLik:
         self.pinned_obs = {k: v for k, v in pinned.items() if k in LINK_PARAMETER_NAMES}
         self.cache: dict[tuple, Any] = {}
         self.h_cache: dict[float, np.ndarray] = {}
+        self._lindex = [self.free.index(n) for n in self.lparams]
+        self._noted: dict[tuple, dict[str, Any]] | None = None
+        self._respond = None if self.link == "choice" else _RespondSum(self.y_obs)
 
     def __call__(self, theta: np.ndarray) -> float:
         kw = dict(self.pinned_learner)
-        kw.update({n: float(theta[self.free.index(n)]) for n in self.lparams})
+        kw.update({n: float(theta[i]) for n, i in zip(self.lparams, self._lindex, strict=True)})
+        if self._noted is not None:
+            key = tuple(kw[n] for n in self.lparams)
+            if key not in self.cache:
+                self._noted.setdefault(key, kw)
+            return 0.0
         obs = {n: float(theta[i]) for n, i in self.oparams.items()}
         obs.update(self.pinned_obs)
         V = self._onset_values(kw)
@@ -267,9 +284,45 @@ class NegLogLik:
             h = self._history(obs["decay"])
             total = -_choice_sum(V[0], V[1], h, self.mask, self.y_obs, obs)
         else:
-            total = -_observed_sum(V, self.mask, self.y_obs, obs["beta"], obs["theta"],
-                                   obs["lapse"])
+            total = -self._respond(V, self.mask, obs["beta"], obs["theta"], obs["lapse"])
         return total if math.isfinite(total) else _FAR_WORSE
+
+    @contextlib.contextmanager
+    def collecting(self):
+        """Note the learner parameter sets of the calls inside; run them at the end, in
+        one batch (nested blocks join the outer one)."""
+        if self._noted is not None:
+            yield self
+            return
+        self._noted = {}
+        try:
+            yield self
+        finally:
+            noted, self._noted = self._noted, None
+        self._prefetch(noted)
+
+    def _prefetch(self, noted: Mapping[tuple, dict[str, Any]]) -> None:
+        """Learner values of the ``noted`` sets, one compiled call for all (nothing when
+        the kernels are off or a set is not a valid learner: each is then run alone
+        when it is needed)."""
+        if len(noted) < 2:
+            return  # one set gains nothing from a batch
+        probe = "sides" if self.link == "choice" else "onset"
+        try:
+            got = batch_values(self.data, self.learner_name, list(noted.values()), probe)
+        except BadArgument:
+            return
+        if got is None:
+            return
+        V, ok = got
+        room = max(_CACHE_SIZE, len(noted) + 4)
+        for p, key in enumerate(noted):
+            if not ok[p]:
+                continue  # the learner raises there; _onset_values scores it alone
+            value = (V[p, :, 0].copy(), V[p, :, 1].copy()) if probe == "sides" else V[p, :, 0].copy()
+            while len(self.cache) >= room:
+                del self.cache[next(iter(self.cache))]
+            self.cache[key] = value
 
     def _history(self, decay: float) -> np.ndarray:
         h = self.h_cache.get(decay)
@@ -293,7 +346,37 @@ class NegLogLik:
                      else onset_values(self.data, learner))
             except (BadArgument, FloatingPointError):
                 return None
-            if len(self.cache) >= 16:
+            while len(self.cache) >= _CACHE_SIZE:
                 del self.cache[next(iter(self.cache))]
             self.cache[key] = V
         return V
+
+
+class _RespondSum:
+    """Σ log P(y_t) of ``_observed_sum`` for fixed responses, into buffers made once: the
+    same ufuncs on the same numbers in the same order (so the same bits: the test pins
+    it against ``core.responses.log_lik_respond``), without the temporaries."""
+
+    def __init__(self, y_obs: np.ndarray):
+        y = np.asarray(y_obs, dtype=np.float64)
+        if np.isnan(y).any():
+            raise BadArgument("y_obs", "observed responses (no nan)", y_obs)
+        # log σ(±z) = −log(1 + e^(∓z)): −sign·z with sign +1 for a response, −1 without
+        self.neg_sign = -np.where(y > 0.5, 1.0, -1.0)
+        self.buf = np.empty(len(y))
+
+    def __call__(self, V: np.ndarray, mask: np.ndarray, beta: float, theta: float,
+                 lapse: float) -> float:
+        log_half_lapse = math.log(lapse / 2) if lapse > 0 else -math.inf
+        log_engaged = math.log1p(-lapse) if lapse < 1 else -math.inf
+        z = self.buf
+        np.compress(mask, V, out=z)
+        # z = β(V − θ)
+        np.subtract(z, theta, out=z)
+        np.multiply(beta, z, out=z)
+        np.multiply(self.neg_sign, z, out=z)
+        np.logaddexp(0.0, z, out=z)
+        # log p = log(lapse/2 + (1 − lapse) σ(±z)) = logaddexp(log lapse/2, log(1 − lapse) − log(1 + e^(∓z)))
+        np.subtract(log_engaged, z, out=z)
+        np.logaddexp(log_half_lapse, z, out=z)
+        return float(np.sum(z))

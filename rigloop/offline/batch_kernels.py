@@ -258,15 +258,22 @@ def behaviour_steps(x, var, n, held, cue, y, sigma2, newton_max, tol) -> None:
 
 
 @njit(cache=True, nogil=True)
-def _kalman_probes(A, X, r, bounds, probes, has, g, tau2, noise, skip_empty, V, var, h, u, nz, nzu):
+def _kalman_probes(A, X, r, bounds, probes, has, hptr, hidx, learns, g, tau2, noise, skip_empty,
+                   V, var, h, u, nzu):
     """One parameter set's Kalman (TD) trials, in place; returns the status.
 
     A: (n + 1, n) [Σ; ŵ], the starting state, left at the end state. X: (R, n) every
     trial's rows stacked; r: (R,); bounds: (N + 1,) trial k owns rows bounds[k] to
     bounds[k + 1] (the row after its last is terminal, all zero); probes: (N, Q, n) rows
-    read before trial k where has[k]. g, tau2, noise: γ (0 for the reward learner), τ²,
-    σ_r². skip_empty: a featureless row learns nothing (Kalman TD) or is observed (the
-    filter). V, var: (N, Q) receive xᵀŵ and xᵀΣx of each probe (nan where not has[k]).
+    read before trial k where has[k]. hptr (R + 1,), hidx: the entries of row t where x
+    or the next row x' is non-zero, hidx[hptr[t]:hptr[t + 1]] in index order (where
+    h = x − γx' can be non-zero); learns (R,): x has a non-zero entry. g, tau2, noise:
+    γ (0 for the reward learner), τ², σ_r². skip_empty: a featureless row learns nothing
+    (Kalman TD) or is observed (the filter). V, var: (N, Q) receive xᵀŵ and xᵀΣx of each
+    probe (nan where not has[k]). h, u: (n,) and nzu: (n,) intp scratch.
+
+    Sums run over h's possible non-zero entries; where h is zero after all (γ = 0, or
+    x = γx') the term is an exact zero and leaves the sum as it was.
     """
     n = A.shape[1]
     N, Q = has.shape[0], probes.shape[1]
@@ -292,24 +299,17 @@ def _kalman_probes(A, X, r, bounds, probes, has, g, tau2, noise, skip_empty, V, 
                 var[k, q] = math.nan
         last = bounds[k + 1]
         for t in range(bounds[k], last):
-            x = X[t]
-            # h = x − γx' (x' the next row of the trial, zero after its last)
-            m = 0
-            empty = True
-            for i in range(n):
-                xn = X[t + 1, i] if t + 1 < last else 0.0
-                if x[i] != 0.0:
-                    empty = False
-                h[i] = x[i] - xn * g
-                if h[i] != 0.0:
-                    nz[m] = i
-                    m += 1
-            if skip_empty and empty:
+            if skip_empty and not learns[t]:
                 continue
-            # δ = r − hᵀŵ
+            a0, a1 = hptr[t], hptr[t + 1]
+            # h = x − γx' (x' the next row of the trial, zero after its last); δ = r − hᵀŵ
             hw = 0.0
-            for a in range(m):
-                hw += h[nz[a]] * A[n, nz[a]]
+            for a in range(a0, a1):
+                i = hidx[a]
+                xn = X[t + 1, i] if t + 1 < last else 0.0
+                hi = X[t, i] - xn * g
+                h[i] = hi
+                hw += hi * A[n, i]
             delta = r[t] - hw
             if not math.isfinite(delta):
                 return 1
@@ -320,15 +320,16 @@ def _kalman_probes(A, X, r, bounds, probes, has, g, tau2, noise, skip_empty, V, 
                     A[i, i] += tau2
             for i in range(n):
                 u[i] = 0.0
-            for a in range(m):
-                j = nz[a]
+            for a in range(a0, a1):
+                j = hidx[a]
                 hj = h[j]
                 for i in range(n):
                     u[i] += A[j, i] * hj
             # s = hᵀΣ⁻h + σ_r²
             hu = 0.0
-            for a in range(m):
-                hu += h[nz[a]] * u[nz[a]]
+            for a in range(a0, a1):
+                i = hidx[a]
+                hu += h[i] * u[i]
             s = hu + noise
             if not (0.0 < s and s < math.inf):
                 return 2
@@ -354,16 +355,168 @@ def _kalman_probes(A, X, r, bounds, probes, has, g, tau2, noise, skip_empty, V, 
     return 0
 
 
+# Sets side by side: ``_kalman_lanes`` runs LANES parameter sets through the same rows at
+# once, every number of ``_kalman_probes`` becoming LANES numbers (the set innermost).
+# The sets' steps are independent chains, so the processor overlaps them: four sets
+# cost about twice one (tools/bench/fit.py; a numerical gradient needs 1 + the learner's
+# free parameters, and a step of one set waits on its square root and division). Each
+# set's numbers are ``_kalman_probes``'s bit for bit (the same operations in the same
+# order; the union of the sets' non-zero entries of u adds exact zeros to a set where
+# its own entry is zero). tests/test_fit_fast.py pins that.
+
+LANES = 4
+
+
 @njit(cache=True, nogil=True)
-def kalman_probes(A, X, r, bounds, probes, has, g, tau2, noise, skip_empty, V, var, status):
+def _kalman_lanes(A, X, r, bounds, probes, has, hptr, hidx, learns, g, tau2, noise, skip_empty,
+                  V, var, status, h, u, nzu, hw, hu, rs):
+    """LANES parameter sets' Kalman (TD) trials side by side, in place.
+
+    A: (n + 1, n, LANES) [Σ; ŵ] with the set innermost; g, tau2, noise: (LANES,); V, var:
+    (LANES, N, Q); status: (LANES,) int64, 0 on entry, set at a set's first failure
+    (that set's later numbers are then meaningless, as ``_kalman_probes``'s partial
+    outputs are). h, u: (n, LANES); nzu: (n,) intp; hw, hu, rs: (LANES,) scratch.
+    """
+    n = A.shape[1]
+    N, Q = has.shape[0], probes.shape[1]
+    for k in range(N):
+        for q in range(Q):
+            if has[k]:
+                x = probes[k, q]
+                for p in range(LANES):
+                    hw[p] = 0.0
+                    hu[p] = 0.0
+                for i in range(n):
+                    xi = x[i]
+                    if xi != 0.0:
+                        for p in range(LANES):
+                            hw[p] += xi * A[n, i, p]
+                            rs[p] = 0.0
+                        for j in range(n):
+                            xj = x[j]
+                            if xj != 0.0:
+                                for p in range(LANES):
+                                    rs[p] += A[i, j, p] * xj
+                        for p in range(LANES):
+                            hu[p] += xi * rs[p]
+                for p in range(LANES):
+                    V[p, k, q] = hw[p]
+                    var[p, k, q] = hu[p]
+            else:
+                for p in range(LANES):
+                    V[p, k, q] = math.nan
+                    var[p, k, q] = math.nan
+        last = bounds[k + 1]
+        for t in range(bounds[k], last):
+            if skip_empty and not learns[t]:
+                continue
+            a0, a1 = hptr[t], hptr[t + 1]
+            # h = x − γx'; δ = r − hᵀŵ (held in hw)
+            for p in range(LANES):
+                hw[p] = 0.0
+            for a in range(a0, a1):
+                i = hidx[a]
+                xi = X[t, i]
+                xn = X[t + 1, i] if t + 1 < last else 0.0
+                for p in range(LANES):
+                    hi = xi - xn * g[p]
+                    h[i, p] = hi
+                    hw[p] += hi * A[n, i, p]
+            rt = r[t]
+            for p in range(LANES):
+                hw[p] = rt - hw[p]
+                if status[p] == 0 and not math.isfinite(hw[p]):
+                    status[p] = 1
+            # Σ⁻ = Σ + τ²I (τ² = 0 adds an exact zero to a positive variance), u ← Σ⁻h
+            for i in range(n):
+                for p in range(LANES):
+                    A[i, i, p] += tau2[p]
+            for i in range(n):
+                for p in range(LANES):
+                    u[i, p] = 0.0
+            for a in range(a0, a1):
+                j = hidx[a]
+                for i in range(n):
+                    for p in range(LANES):
+                        u[i, p] += A[j, i, p] * h[j, p]
+            # s = hᵀΣ⁻h + σ_r²
+            for p in range(LANES):
+                hu[p] = 0.0
+            for a in range(a0, a1):
+                i = hidx[a]
+                for p in range(LANES):
+                    hu[p] += h[i, p] * u[i, p]
+            for p in range(LANES):
+                s = hu[p] + noise[p]
+                if status[p] == 0 and not (0.0 < s and s < math.inf):
+                    status[p] = 2
+                rs[p] = 1.0 / math.sqrt(s) if s > 0.0 else 0.0
+            # u = Σ⁻h/√s and the union of the sets' non-zero entries
+            m = 0
+            for i in range(n):
+                on = False
+                for p in range(LANES):
+                    u[i, p] *= rs[p]
+                    if u[i, p] != 0.0:
+                        on = True
+                if on:
+                    nzu[m] = i
+                    m += 1
+            for p in range(LANES):
+                hw[p] *= rs[p]
+            # Σ ← Σ⁻ − u uᵀ;  ŵ ← ŵ + (δ/√s) u
+            for a in range(m):
+                i = nzu[a]
+                for b in range(m):
+                    j = nzu[b]
+                    for p in range(LANES):
+                        A[i, j, p] -= u[i, p] * u[j, p]
+                for p in range(LANES):
+                    A[n, i, p] += hw[p] * u[i, p]
+
+
+@njit(cache=True, nogil=True)
+def kalman_probes(A, X, r, bounds, probes, has, hptr, hidx, learns, g, tau2, noise, skip_empty,
+                  V, var, status, lanes):
     """``_kalman_probes`` for P parameter sets: A (P, n + 1, n); g, tau2, noise (P,);
-    V, var (P, N, Q); status (P,) int64 receives each set's status."""
-    n = X.shape[1]
+    V, var (P, N, Q); status (P,) int64 receives each set's status. lanes: run them
+    LANES at a time side by side (``_kalman_lanes``; a last group of one runs alone,
+    a short last group fills its spare lanes with copies of its first set); the same
+    numbers either way."""
+    P = A.shape[0]
+    n1, n = A.shape[1], A.shape[2]
+    N, Q = has.shape[0], probes.shape[1]
     h, u = np.empty(n), np.empty(n)
-    nz, nzu = np.empty(n, dtype=np.intp), np.empty(n, dtype=np.intp)
-    for p in range(A.shape[0]):
-        status[p] = _kalman_probes(A[p], X, r, bounds, probes, has, g[p], tau2[p], noise[p],
-                                   skip_empty, V[p], var[p], h, u, nz, nzu)
+    nzu = np.empty(n, dtype=np.intp)
+    start = 0
+    if lanes and P > 1:
+        At = np.empty((n1, n, LANES))
+        gl, tl, nl = np.empty(LANES), np.empty(LANES), np.empty(LANES)
+        Vl, vl = np.empty((LANES, N, Q)), np.empty((LANES, N, Q))
+        sl = np.zeros(LANES, dtype=np.int64)
+        hl, ul = np.empty((n, LANES)), np.empty((n, LANES))
+        hw, hu, rs = np.empty(LANES), np.empty(LANES), np.empty(LANES)
+        while P - start >= 2:
+            for p in range(LANES):
+                src = start + p if start + p < P else start
+                gl[p], tl[p], nl[p] = g[src], tau2[src], noise[src]
+                sl[p] = 0
+                for i in range(n1):
+                    for j in range(n):
+                        At[i, j, p] = A[src, i, j]
+            _kalman_lanes(At, X, r, bounds, probes, has, hptr, hidx, learns, gl, tl, nl,
+                          skip_empty, Vl, vl, sl, hl, ul, nzu, hw, hu, rs)
+            for p in range(min(LANES, P - start)):
+                status[start + p] = sl[p]
+                for i in range(n1):
+                    for j in range(n):
+                        A[start + p, i, j] = At[i, j, p]
+                V[start + p] = Vl[p]
+                var[start + p] = vl[p]
+            start += LANES
+    for p in range(start, P):
+        status[p] = _kalman_probes(A[p], X, r, bounds, probes, has, hptr, hidx, learns, g[p],
+                                   tau2[p], noise[p], skip_empty, V[p], var[p], h, u, nzu)
 
 
 @njit(cache=True, nogil=True)

@@ -41,6 +41,9 @@ class TrialRows:
     X: (R, n) every trial's rows stacked; r: (R,) rewards; bounds: (N + 1,) trial k owns
     rows bounds[k] up to bounds[k + 1] (the row after its last is terminal, all zero);
     probes: (N, Q, n) the rows read before trial k where has[k] (N,) is True.
+    hptr (R + 1,), hidx: the entries where row t or the next row of its trial is
+    non-zero, hidx[hptr[t]:hptr[t + 1]] in index order (the only entries where a TD
+    step's h = x − γx' can be non-zero); learns (R,): row t has a non-zero entry.
     """
 
     X: np.ndarray
@@ -48,6 +51,9 @@ class TrialRows:
     bounds: np.ndarray
     probes: np.ndarray
     has: np.ndarray
+    hptr: np.ndarray
+    hidx: np.ndarray
+    learns: np.ndarray
 
     @property
     def n_trials(self) -> int:
@@ -78,9 +84,18 @@ def pack_trials(X, r, lengths, probes, has) -> TrialRows:
     np.cumsum(lengths, out=bounds[1:])
     if bounds[-1] != X.shape[0]:
         raise BadArgument("lengths", f"rows per trial summing to {X.shape[0]}", int(bounds[-1]))
-    for arr in (X, r, bounds, probes, has):
+    on = X != 0.0
+    after = np.zeros_like(on)  # the next row of the same trial (none after a trial's last)
+    after[:-1] = on[1:]
+    after[bounds[1:][lengths > 0] - 1] = False
+    either = on | after
+    hptr = np.zeros(X.shape[0] + 1, dtype=np.intp)
+    np.cumsum(either.sum(axis=1), out=hptr[1:])
+    hidx = np.ascontiguousarray(np.nonzero(either)[1], dtype=np.intp)
+    learns = np.ascontiguousarray(on.any(axis=1))
+    for arr in (X, r, bounds, probes, has, hptr, hidx, learns):
         arr.setflags(write=False)
-    return TrialRows(X, r, bounds, probes, has)
+    return TrialRows(X, r, bounds, probes, has, hptr, hidx, learns)
 
 
 def _vector(value, P: int) -> np.ndarray:
@@ -88,12 +103,14 @@ def _vector(value, P: int) -> np.ndarray:
 
 
 def kalman_probes(rows: TrialRows, A0: np.ndarray, gamma, diffusion, noise, *,
-                  skip_empty: bool):
+                  skip_empty: bool, lanes: bool = True):
     """Probe values and variances of P Kalman learners over ``rows``.
 
     A0: (P, n + 1, n) starting [Σ; ŵ] per set (copied; the single learner's layout);
     gamma, diffusion, noise: a number or (P,). Returns (V (P, N, Q), var (P, N, Q),
     A (P, n + 1, n) the end states, status (P,)), or None when the kernels are off.
+    lanes: several sets side by side (``batch_kernels.LANES`` at a time: four cost about
+    two); False: one after another. The numbers are the same bit for bit.
     """
     kernels = _kernels()
     if kernels is None:
@@ -103,9 +120,9 @@ def kalman_probes(rows: TrialRows, A0: np.ndarray, gamma, diffusion, noise, *,
     shape = (P, rows.n_trials, rows.n_probes)
     V, var = np.empty(shape), np.empty(shape)
     status = np.zeros(P, dtype=np.int64)
-    kernels.kalman_probes(A, rows.X, rows.r, rows.bounds, rows.probes, rows.has,
-                          _vector(gamma, P), _vector(diffusion, P), _vector(noise, P),
-                          bool(skip_empty), V, var, status)
+    kernels.kalman_probes(A, rows.X, rows.r, rows.bounds, rows.probes, rows.has, rows.hptr,
+                          rows.hidx, rows.learns, _vector(gamma, P), _vector(diffusion, P),
+                          _vector(noise, P), bool(skip_empty), V, var, status, bool(lanes))
     return V, var, A, status
 
 

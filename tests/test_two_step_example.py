@@ -16,6 +16,7 @@ from rigloop.core.step import step
 from rigloop.core.subject import SubjectState
 from rigloop.core.trial import TrialEvent
 from rigloop.core.two_step import PRESETS, TwoStepValues
+from rigloop.errors import BadArgument
 from rigloop.offline.simulate import preset_animal, simulate_session
 from rigloop.offline.two_step_sim import two_step_animal
 from rigloop.rules.load import load_example, load_rules
@@ -222,3 +223,15 @@ def test_check_warns_when_the_criterion_has_no_two_step_learner(rules):
     other = load_rules(text)
     assert any("p_model_based() reads the two_step learner" in w for w in warnings(other.spec))
     assert not any("p_model_based" in w for w in warnings(rules.spec))
+
+
+def test_a_two_step_animal_takes_drawn_parameters():
+    """A population can set each animal's parameters: w, the learner's others, bias and
+    lapse win over the preset's; a cue-task parameter is refused with the valid names."""
+    animal = two_step_animal("hybrid", "m9", 3, w=0.2, beta1=2.0, lapse=0.1)
+    assert animal.params.w == 0.2 and animal.params.beta1 == 2.0 and animal.lapse == 0.1
+    assert animal.params.alpha2 == two_step_animal("hybrid", "m9", 3).params.alpha2
+    with pytest.raises(BadArgument, match=r"a parameter of a two-step animal \(alpha1, .*bias, lapse\)"):
+        two_step_animal("hybrid", "m9", 3, alpha=0.1)
+    with pytest.raises(BadArgument, match="'w' must be a number in"):
+        two_step_animal("hybrid", "m9", 3, w=1.5)

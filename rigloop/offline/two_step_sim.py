@@ -24,7 +24,7 @@ import numpy as np
 
 from ..core.trial import CuePresentation, Decision, Outcome, Response, TrialEvent, TrialStep
 from ..core.two_step import PRESETS as AGENT_PRESETS
-from ..core.two_step import TwoStepParams, TwoStepTask, TwoStepValues
+from ..core.two_step import NAMES, TwoStepParams, TwoStepTask, TwoStepValues
 from ..core.two_step.choice import first_stage_probabilities, second_stage_probabilities
 from ..errors import BadArgument
 
@@ -104,11 +104,25 @@ class TwoStepAnimal:
         )
 
 
-def two_step_animal(preset: str, subject: str, seed: int, states: tuple[str, ...] | None = None) -> TwoStepAnimal:
-    """A preset animal (``TWO_STEP_PRESETS``) for the two-stage task."""
+OVERRIDES = NAMES + ("bias", "lapse")
+
+
+def two_step_animal(preset: str, subject: str, seed: int, states: tuple[str, ...] | None = None,
+                    **overrides: float) -> TwoStepAnimal:
+    """A preset animal (``TWO_STEP_PRESETS``) for the two-stage task; ``overrides`` (the
+    learner's parameters alpha1 ... w, ``bias``, ``lapse``) win over the preset's, so a
+    population can draw them per animal. Another name is refused with the valid ones."""
     if preset not in TWO_STEP_PRESETS:
         raise BadArgument("preset", f"one of the two-step presets {', '.join(TWO_STEP_PRESETS)}", preset)
+    unknown = sorted(set(overrides) - set(OVERRIDES))
+    if unknown:
+        raise BadArgument("parameter", f"a parameter of a two-step animal ({', '.join(OVERRIDES)})", unknown[0])
     kind, changes, bias, lapse = TWO_STEP_PRESETS[preset]
-    params = AGENT_PRESETS[kind][1].with_(**changes)
+    drawn = {n: float(v) for n, v in overrides.items() if n in NAMES}
+    params = AGENT_PRESETS[kind][1].with_(**{**changes, **drawn})
+    bias = float(overrides.get("bias", bias))
+    lapse = float(overrides.get("lapse", lapse))
+    if not 0.0 <= lapse <= 1.0:
+        raise BadArgument("lapse", "a share of trials in [0, 1]", lapse)
     extra = {} if states is None else {"states": tuple(states)[:3]}
     return TwoStepAnimal(subject, kind=kind, params=params, seed=seed, bias=bias, lapse=lapse, **extra)

@@ -94,10 +94,14 @@ def _store_first_sessions(db: str, tasks: Sequence[AnimalTask]) -> None:
 
     infos = [first_session_info(t) for t in tasks]
     with Store(db) as store:
+        held = [i.subject for i in infos if i.subject in set(store.subjects())]
+        if held:
+            raise BadArgument("--db", "a new store file, or one without the cohort's simulated subjects",
+                              f"{db}, which holds {', '.join(held[:3])}{' ...' if len(held) > 3 else ''} already")
         try:
             store.import_sessions([(info, []) for info in infos])
-        except StoreError as exc:
-            raise BadArgument("--db", "a new store file or one without these simulated subjects", f"{db} ({exc})") from None
+        except StoreError as exc:  # another run wrote them meanwhile
+            raise BadArgument("--db", "a store no other run writes the same subjects into", str(exc)) from None
 
 
 def _task_kind(rules) -> str:

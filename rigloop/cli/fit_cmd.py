@@ -2,6 +2,8 @@
 
 Parameter options take NAME=VALUE (``--fix``, ``--start``) or NAME=LOW:HIGH
 (``--bounds``), each repeatable; names are checked against the fitted models'.
+Sessions of a two_step rule file are fitted by the two-step learners (fit/two_step.py,
+``_run_two_step_fit``) in the same table and JSON shape.
 """
 
 from __future__ import annotations
@@ -21,7 +23,8 @@ def add_fit(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--subject", default=None,
                    help="the subject's name, as stored (default: none; give it or --subjects)")
     p.add_argument("--learner", action="append", metavar="NAME",
-                   help="learner to fit (repeatable: the fits are ranked by AIC; default: the rule file's)")
+                   help="learner to fit (repeatable: the fits are ranked by AIC; default: the rule file's); "
+                        "two-step sessions: model_free, model_based, hybrid, successor (or mf, mb, sr)")
     add_session(p, "fit only this session (default: every session, in order)")
     p.add_argument("--link", choices=("respond", "choice"), default=None,
                    help="response link: respond (go/no-go logistic) or choice (two-choice softmax) "

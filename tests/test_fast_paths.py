@@ -34,6 +34,24 @@ def test_lazy_trial_generator_draws_what_trial_rng_draws(seed, trial):
     assert lazy.normal() == plain.normal()  # any other method, through __getattr__
 
 
+def test_trial_generator_has_trial_rngs_state():
+    """seeds._trial_generator (SeedSequence's output hash done in five array operations)
+    builds the generator trial_rng builds: the same PCG64 state, hence the same draws."""
+    rng = np.random.default_rng(11)
+    cases = [(0, 0), (0, 1), (2**32 - 1, 2**32 - 1), (2**32, 2**32), (2**64 - 1, 5), (2**64 + 3, 7), (-1, 2),
+             (-(2**70), 9), (12345, 2**40 + 1)]
+    cases += [(int(rng.integers(0, 2**63)) * int(rng.integers(1, 3)), int(rng.integers(0, 100000)))
+              for _ in range(300)]
+    cases += [(int(rng.integers(0, 2**32)), int(rng.integers(0, 2**33))) for _ in range(100)]
+    for seed, trial in cases:
+        fast, plain = seeds._trial_generator(seed, trial), seeds.trial_rng(seed, trial)
+        assert fast.bit_generator.state == plain.bit_generator.state, (seed, trial)
+    fast, plain = seeds._trial_generator(2**63 + 5, 999), seeds.trial_rng(2**63 + 5, 999)
+    assert fast.permutation(9).tolist() == plain.permutation(9).tolist() and fast.random() == plain.random()
+    # anything but plain ints takes trial_rng itself
+    assert seeds._trial_generator(4, np.int64(3)).bit_generator.state == seeds.trial_rng(4, 3).bit_generator.state
+
+
 def test_surprise_equals_the_array_form():
     """step._surprise (a loop over floats) gives the array form's bits, zeros and infinities included."""
     rng = np.random.default_rng(9)

@@ -82,6 +82,7 @@ def tricks() -> dict[str, dict[str, float]]:
     cues = [(c.cue, c.onset, c.offset) for c in event.cues]
     outcomes = [(t, a / 4.0) for t, a in event.outcome_events()]
     behaviour = {"tone_hi": (1.2, 0.4, 20), "tone_lo": (-0.8, 0.5, 18)}
+    probs = rng.uniform(0.0, 1.0, 24)  # the Gauss-Hermite nodes' probabilities d' clips
     b_means = itertools.cycle(np.linspace(-1.0, 0.5, 97).tolist())  # cue b moves, cue a stays (as between trials)
     return {
         "lazy trial generator vs trial_rng": _pair(lambda: seeds._LazyTrialRng(7, 3),
@@ -107,6 +108,8 @@ def tricks() -> dict[str, dict[str, float]]:
         "curve state updated, no object vs object": _pair(
             lambda: curve._updated_state(curve_state, True),
             lambda: curve._updated_state_reference(curve_state, True), 20000),
+        "d' clip as two ufuncs vs np.clip": _pair(lambda: behaviour_module._clip(probs, 1e-300, 1.0 - 1e-16),
+                                                  lambda: np.clip(probs, 1e-300, 1.0 - 1e-16), 20000),
         "behaviour quantities vs reference": _pair(
             lambda: quantities._behaviour_quantities({}, rules.spec, behaviour),
             lambda: quantities._behaviour_quantities_reference({}, rules.spec, behaviour), 20000),

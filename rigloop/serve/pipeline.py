@@ -147,6 +147,55 @@ class Committer:
         os.close(self._write_fd)
 
 
+class Warm:
+    """The subjects whose states stay expanded between trials because they are running
+    trials now; the others are kept in their resting form (``core.subject.resident``).
+
+    Why not rest every state right after its commit: a Gaussian learner at rest rebuilds
+    its buffers on its next trial (the same bits), and for a subject running a trial every
+    few seconds that rebuild cost more than anything else the daemon does around ``step``
+    (~9% of the loop under flat-out load, cProfile). So a subject rests once it has run no
+    trial for ``idle_s``, or when more than ``most`` subjects are warm (the least recently
+    active first): memory stays that of resting subjects plus at most ``most`` expanded
+    ones (~5 kB more each at n = 32; tools/bench/memory.py measures the resting form)."""
+
+    def __init__(self, most: int = 512, idle_s: float = 5.0, clock: Any = time.monotonic):
+        self.most = most
+        self.idle_s = idle_s
+        self._clock = clock
+        self._last: dict[str, float] = {}  # subject -> when it last committed a trial, oldest first
+
+    def touch(self, subjects: Any) -> None:
+        """These subjects just committed trials."""
+        now = self._clock()
+        last = self._last
+        for s in subjects:
+            last.pop(s, None)
+            last[s] = now
+
+    def rest_cold(self, states: dict[str, SubjectState]) -> int:
+        """Rest the states of subjects idle for ``idle_s`` or beyond the ``most`` warmest;
+        the number rested."""
+        last = self._last
+        if not last:
+            return 0
+        horizon = self._clock() - self.idle_s
+        n = 0
+        while last:  # oldest first; stops at the first warm one
+            subject = next(iter(last))
+            if last[subject] > horizon and len(last) <= self.most:
+                break
+            del last[subject]
+            state = states.get(subject)
+            if state is not None:
+                resident(state)
+            n += 1
+        return n
+
+    def __len__(self) -> int:
+        return len(self._last)
+
+
 class CommitPipeline:
     """The batch being stepped (``cur``), the batch in flight (``busy``), and the rule
     that a batch's replies go out (``send``) only once its commit returned.
@@ -170,6 +219,7 @@ class CommitPipeline:
         self.cur = Batch()  # the batch being stepped
         self.busy: Batch | None = None  # the batch in flight
         self._committer = Committer(store)
+        self._warm = Warm()
 
     def fileno(self) -> int:
         """The fd that turns readable when the batch in flight is durable."""
@@ -258,12 +308,9 @@ class CommitPipeline:
             raise batch.error
         self._take_results(batch)
         self._send(batch.out)
-        # after the replies: the committed states shrink to their resting form (a few µs each,
-        # 15.3 -> 10.1 kB per subject at n = 32, tools/bench/memory.py)
-        states = self.subjects.states
-        for p in batch.trials:
-            if p.decision is not None and states.get(p.event.subject) is p.state:
-                resident(p.state)
+        # after the replies: subjects that stopped running trials shrink to their resting form
+        self._warm.touch(p.event.subject for p in batch.trials if p.decision is not None)
+        self._warm.rest_cold(self.subjects.states)
 
     def _take_results(self, batch: Batch) -> None:
         """Apply a committed batch's results to the subject states; fill in its replies."""

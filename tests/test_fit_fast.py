@@ -222,3 +222,26 @@ def test_batched_gradients_give_the_same_fit_bit_for_bit(monkeypatch):
     assert got.params == want.params
     assert got.se == want.se
     assert got.log_likelihood == want.log_likelihood
+
+
+@pytest.mark.parametrize("rep_name", ["identity", "serial_compound"])
+@pytest.mark.parametrize("learner_name", sorted(LEARNERS))
+def test_side_values_agree_with_the_per_trial_learner(learner_name, rep_name, monkeypatch):
+    """Two-choice fits read each side's value through the kernels (fast.side_values_fast);
+    the readable per-trial path (and the one-hot pass) agree to 1e-12."""
+    from rigloop.fit import synthetic as sy
+    from rigloop.fit.likelihood import side_values
+
+    events = sy.choice_trials({"alpha": 0.2}, beta=5.0, bias=0.5, lapse=0.05, persev=0.0,
+                              n=150, seed=3, sessions=2)
+    kw = {"dt": 0.5, "n_bins": 4} if rep_name == "serial_compound" else {}
+    rep = make_representation(rep_name, CueList(["tone_hi", "tone_lo"]), **kw)
+    data = fit.prepare(events, rep, reward_unit_ul=sy.UNIT_UL)
+    assert data.link == "choice"
+    n = data.representation.n_features
+    params = LEARNERS[learner_name]
+    want = _reference(monkeypatch, lambda: side_values(data, make_learner(learner_name, n, **params)))
+    got = side_values(data, make_learner(learner_name, n, **params))
+    for a, b in zip(got, want, strict=True):
+        np.testing.assert_array_equal(np.isnan(a), np.isnan(b))
+        np.testing.assert_allclose(a, b, rtol=1e-12, atol=1e-13)

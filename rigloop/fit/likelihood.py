@@ -41,7 +41,7 @@ from ..core.learners import make_learner
 from ..core.responses import log_lik_respond, log_lik_right, p_respond, p_right
 from ..errors import BadArgument
 from .data import FitData
-from .fast import batch_values, onset_values_fast
+from .fast import batch_values, onset_values_fast, side_values_fast
 from .params import LINK_PARAMETER_NAMES, in_domain, link_parameters, model_parameters
 from .results import FittedTrials
 
@@ -92,7 +92,12 @@ def _values(data: FitData, learner, with_sd: bool = False) -> tuple[np.ndarray, 
 
 def side_values(data: FitData, learner) -> tuple[np.ndarray, np.ndarray]:
     """(N,) Q_L and Q_R of each trial's first cue before the trial's update (nan: no cue);
-    one ``learn_trial`` per trial (choice link), or ``_side_values_one_hot`` when it applies."""
+    through the compiled kernels when they run (``fast.side_values_fast``), else
+    ``_side_values_one_hot`` when it applies, else one ``learn_trial`` per trial (the
+    reference)."""
+    fast = side_values_fast(data, learner)
+    if fast is not None:
+        return fast
     fast = _side_values_one_hot(data, learner)
     if fast is not None:
         return fast

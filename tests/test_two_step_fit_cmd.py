@@ -78,6 +78,13 @@ def test_fit_json_has_the_fit_commands_shape_and_ranks_by_aic(stores, capsys):
     assert set(hybrid["params"]) == {"alpha1", "alpha2", "lam", "beta1", "beta2", "p", "w"}
     low, high = hybrid["ci95"]["w"]
     assert low <= hybrid["params"]["w"] <= high
+    # standard errors from the observed information where the estimate is inside its range
+    # (the model-based learner on this model-based mouse is identified throughout; the
+    # hybrid's w runs to 1, where alpha1 and lam no longer matter: no SEs, and it says so)
+    assert all(v > 0 for v in doc["fits"][1]["se"].values()), doc["fits"][1]["se"]
+    assert all(v is None or v > 0 for v in hybrid["se"].values())
+    if None in hybrid["se"].values():
+        assert any("no standard error" in w or "not positive definite" in w for w in hybrid["warnings"])
     # the model-based mouse: the model-based learner fits its choices better than the model-free one
     by_kind = {f["learner"]: f for f in doc["fits"]}
     assert by_kind["model_based"]["aic"] < by_kind["model_free"]["aic"]

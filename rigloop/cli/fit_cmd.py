@@ -177,7 +177,7 @@ def _run_two_step_fit(store, subject: str, names: Sequence[str] | None, session:
     from ..core.names import check_name
     from ..core.two_step.params import BOUNDS, KINDS, NAMES
     from ..errors import BadArgument
-    from ..fit.two_step import fit_two_step
+    from ..fit.two_step import fit_two_step, standard_errors
     from ..fit.two_step_results import DEFAULT_KIND, fit_record, format_fit, format_ranking, kind_of
     from ..fit.two_step_store import read_two_step
     from .progress import Progress
@@ -207,23 +207,28 @@ def _run_two_step_fit(store, subject: str, names: Sequence[str] | None, session:
     stored = read_two_step(store, subject, session)
     notes = stored.notes()
     bar = Progress(len(kinds), f"fitting {subject}", unit="fits")
-    fits = []
+    fits, errors, why = [], [], []
     for i, kind in enumerate(kinds):
         mine = {n: v for n, v in fix.items() if n in KINDS[kind]}
         first = {n: v for n, v in start.items() if n in KINDS[kind] and n not in mine}
-        fits.append(fit_two_step(stored.data, kind, starts=starts, seed=seed, fixed=mine, start=first))
+        fit = fit_two_step(stored.data, kind, starts=starts, seed=seed, fixed=mine, start=first)
+        se, note = standard_errors(stored.data, fit)
+        fits.append(fit)
+        errors.append(se)
+        why.append(notes + ([note] if note else []))
         bar(i + 1, len(kinds))
     bar.close()
     ranking = [f.kind for f in sorted(fits, key=lambda f: f.aic)]
     n = stored.data.n_trials
     if as_json:
-        doc = {"subject": subject, "fits": [fit_record(f, n, fix, notes) for f in fits], "ranking": ranking}
+        doc = {"subject": subject, "ranking": ranking,
+               "fits": [fit_record(f, n, fix, w, se) for f, se, w in zip(fits, errors, why, strict=True)]}
         print(json.dumps(doc, indent=2), file=out)
         return 0
     scope = f"session {session}" if session else f"sessions {', '.join(stored.sessions)}"
     print(f"subject {subject}, {scope} (two-step trials over {', '.join(stored.states)})", file=out)
-    for f in fits:
-        print(format_fit(f, n, starts, notes), file=out)
+    for f, se, w in zip(fits, errors, why, strict=True):
+        print(format_fit(f, n, starts, w, se), file=out)
     if len(fits) > 1:
         print("ranking by AIC (lower is better; dAIC > 10: little support, common practice)", file=out)
         print(format_ranking(fits), file=out)

@@ -423,3 +423,50 @@ def compare_two_step(data: TwoStepData, kinds=("model_free", "model_based", "hyb
     """Fits of each kind, ordered by BIC (best first)."""
     fits = [fit_two_step(data, k, starts=starts, seed=seed, profile=profile) for k in kinds]
     return sorted(fits, key=lambda f: f.bic)
+
+
+def standard_errors(data: TwoStepData, fit: TwoStepFit) -> tuple[dict[str, float | None], str | None]:
+    """Standard errors of the free parameters from the observed information: the inverse
+    of the Hessian of −ℓ at the estimate, by central differences on the natural scale
+    (Pawitan 2001, In All Likelihood, §2.5 and §8.3; step 1e-4 of each range, common
+    practice). A parameter within two steps of a bound gets None (no curvature to read
+    there: its profile interval is one-sided); so do all when the Hessian of the others is
+    not positive definite. The second value says why, or is None."""
+    nll = TwoStepLikelihood(data, fit.kind)
+    inner = [n for n in fit.free
+             if BOUNDS[n][0] + 2e-4 * (BOUNDS[n][1] - BOUNDS[n][0]) < fit.params[n]
+             < BOUNDS[n][1] - 2e-4 * (BOUNDS[n][1] - BOUNDS[n][0])]
+    out: dict[str, float | None] = {n: None for n in fit.free}
+    if not inner:
+        return out, "every free parameter sits at a bound"
+    h = np.array([1e-4 * (BOUNDS[n][1] - BOUNDS[n][0]) for n in inner])
+
+    def at(shift: np.ndarray) -> float:
+        prm = dict(fit.params)
+        for n, d in zip(inner, shift, strict=True):
+            prm[n] = fit.params[n] + float(d)
+        return nll(prm)
+
+    k = len(inner)
+    f0 = at(np.zeros(k))
+    hess = np.empty((k, k))
+    for i in range(k):
+        e_i = np.zeros(k)
+        e_i[i] = h[i]
+        hess[i, i] = (at(e_i) - 2.0 * f0 + at(-e_i)) / h[i] ** 2
+        for j in range(i):
+            e_j = np.zeros(k)
+            e_j[j] = h[j]
+            hess[i, j] = hess[j, i] = (at(e_i + e_j) - at(e_i - e_j) - at(e_j - e_i)
+                                       + at(-e_i - e_j)) / (4.0 * h[i] * h[j])
+    try:
+        np.linalg.cholesky(hess)
+    except np.linalg.LinAlgError:
+        return out, ("the Hessian of the log-likelihood is not positive definite at the estimate "
+                     "(parameters trade off against each other, or some no longer matter there, as "
+                     "alpha1 and lam do not at w = 1): no standard errors; pin one with --fix, or fit "
+                     "a learner with fewer parameters")
+    cov = np.linalg.inv(hess)
+    out.update({n: float(np.sqrt(cov[i, i])) for i, n in enumerate(inner)})
+    at_bound = [n for n in fit.free if n not in inner]
+    return out, (f"{', '.join(at_bound)} at a bound: no standard error there" if at_bound else None)

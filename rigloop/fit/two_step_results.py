@@ -68,15 +68,17 @@ def fit_warnings(fit: TwoStepFit, notes: Sequence[str] = ()) -> list[str]:
 
 
 def fit_record(fit: TwoStepFit, n_trials: int, fixed: dict[str, float] | None = None,
-               notes: Sequence[str] = ()) -> dict:
+               notes: Sequence[str] = (), se: dict[str, float | None] | None = None) -> dict:
     """The fixed record of ``rigloop fit --json``: learner, link, params, se, ci95, fixed,
     log_likelihood, aic, bic, n_trials, converged, warnings, cv_log_likelihood (null:
     one joined sequence), plus n_choices. params holds the parameters the learner uses;
-    se is null (the profile interval is the interval to read); ci95 holds w (hybrid)."""
+    se: ``two_step.standard_errors`` (null at a bound, or when not given); ci95 holds w
+    (the hybrid's profile interval)."""
     fixed = {n: float(v) for n, v in (fixed or {}).items() if n in KINDS[fit.kind]}
+    se = se or {}
     return {"learner": fit.kind, "link": LINK,
             "params": {n: fit.params[n] for n in KINDS[fit.kind]},
-            "se": {n: None for n in fit.free},
+            "se": {n: se.get(n) for n in fit.free},
             "ci95": {} if fit.w_interval is None else {"w": list(fit.w_interval)},
             "fixed": fixed,
             "log_likelihood": fit.log_likelihood, "aic": fit.aic, "bic": fit.bic,
@@ -85,20 +87,24 @@ def fit_record(fit: TwoStepFit, n_trials: int, fixed: dict[str, float] | None = 
             "n_choices": fit.n_choices}
 
 
-def format_fit(fit: TwoStepFit, n_trials: int, starts: int, notes: Sequence[str] = ()) -> str:
+def format_fit(fit: TwoStepFit, n_trials: int, starts: int, notes: Sequence[str] = (),
+               se: dict[str, float | None] | None = None) -> str:
     """One fit as the table ``rigloop fit`` prints."""
+    se = se or {}
     lines = [f"learner {fit.kind} on two-step trials (softmax over both stages' choices, perseveration "
              f"p at the first): {n_trials} trials, {fit.n_choices} choices, {starts} starts",
-             "  parameter   estimate   95% interval"]
+             "  parameter   estimate        SE  95% interval"]
     for name in KINDS[fit.kind]:
         value = fit.params[name]
         if name not in fit.free:
-            lines.append(f"  {name:<10}{value:>10.4g}   (fixed)")
-        elif name == "w" and fit.w_interval is not None:
+            lines.append(f"  {name:<10}{value:>10.4g}            (fixed)")
+            continue
+        shown = "-" if se.get(name) is None else f"{se[name]:.3g}"
+        line = f"  {name:<10}{value:>10.4g}{shown:>10}"
+        if name == "w" and fit.w_interval is not None:
             low, high = fit.w_interval
-            lines.append(f"  {name:<10}{value:>10.4g}   [{low:.3f}, {high:.3f}] profile likelihood")
-        else:
-            lines.append(f"  {name:<10}{value:>10.4g}")
+            line += f"  [{low:.3f}, {high:.3f}] profile likelihood"
+        lines.append(line)
     lines.append(f"  log-likelihood {fit.log_likelihood:.3f}   AIC {fit.aic:.3f}   "
                  f"BIC {fit.bic:.3f} (n = {fit.n_choices} choices)   k = {fit.k}")
     lines.append(f"  optimiser: {'converged' if fit.converged else 'did NOT converge'}")

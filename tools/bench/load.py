@@ -18,7 +18,9 @@ exactly once.
 
 Reported: ``trials_per_s`` (acknowledged trials over the measured time), ``p99_ms``
 (send-to-decision at the rig, all rigs), ``lost`` (acknowledged trials missing
-from the store, plus trials abandoned after every retry). Targets: paced (``--interval``
+from the store, plus trials abandoned after every retry), ``daemon_cpu_ms_per_trial``
+(the daemon process's CPU time over the measured window per acknowledged trial: the
+figure that moves least with the machine's load, for comparing versions). Targets: paced (``--interval``
 > 0) p99 <= 10 ms, 0 lost, >= 95% of the offered rate served; flat out (``--interval 0``)
 >= 1,500 trials/s, p99 <= 50 ms, 0 lost.
 
@@ -29,6 +31,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import os
 import random
 import statistics
 import sys
@@ -46,6 +49,19 @@ from rigloop.store import Store  # noqa: E402
 from rigloop.testing import DaemonProcess, ZmqRig  # noqa: E402
 
 RULES = "tone_reversal"
+
+
+def cpu_seconds(pid: int) -> float:
+    """User + system CPU time of process ``pid``, all its threads (Linux /proc; 0.0 elsewhere).
+
+    CPU time per trial barely moves with the machine's load, unlike wall-clock rates, so
+    it is the figure to compare two versions by on a shared machine."""
+    try:
+        with open(f"/proc/{pid}/stat", encoding="ascii") as f:
+            fields = f.read().rsplit(")", 1)[1].split()
+        return (int(fields[11]) + int(fields[12])) / os.sysconf("SC_CLK_TCK")
+    except (OSError, ValueError, IndexError):
+        return 0.0
 
 
 class Rig:
@@ -142,6 +158,7 @@ def main(argv: list[str] | None = None) -> int:
                 break
             if acked_at_measure is None and now >= measuring_from:
                 acked_at_measure, t_measure = acked, now
+                cpu_at_measure = cpu_seconds(daemon.proc.pid)
             for sock in poller.poll(2):
                 r = by_socket[sock]
                 while True:
@@ -185,6 +202,7 @@ def main(argv: list[str] | None = None) -> int:
                     r.link.send(r.frame)
         elapsed = time.perf_counter() - t_measure
         rate = (acked - acked_at_measure) / elapsed
+        cpu_ms_per_trial = 1e3 * (cpu_seconds(daemon.proc.pid) - cpu_at_measure) / max(1, acked - acked_at_measure)
         # let in-flight requests finish so the store check is exact
         deadline = time.perf_counter() + 5
         while any(r.rid for r in rigs) and time.perf_counter() < deadline:
@@ -228,6 +246,7 @@ def main(argv: list[str] | None = None) -> int:
         "batch_peak": status["queues"]["batch"]["peak"],
         "daemon_latency_ms": status["latency_ms"],
         "daemon_ms_per_request": round(1e3 * status["busy_s"] / max(1, status["counts"]["requests"]), 3),
+        "daemon_cpu_ms_per_trial": round(cpu_ms_per_trial, 3),
     }
     if args.interval > 0:  # paced: the rigs offer rigs / interval trials/s; all of it must be served
         target = {"trials_per_s": round(TARGET_PACED_SHARE * args.rigs / args.interval, 1),
@@ -242,7 +261,7 @@ def main(argv: list[str] | None = None) -> int:
     else:
         print(f"{args.rigs} rigs for {args.seconds:.0f} s: {rate:.0f} trials/s, p50 {result['p50_ms']} ms, "
               f"p99 {result['p99_ms']} ms, lost {lost} (acked {acked_total}, stored {stored}), "
-              f"largest batch {result['batch_peak']}")
+              f"largest batch {result['batch_peak']}, daemon CPU {result['daemon_cpu_ms_per_trial']} ms a trial")
         mode = "paced" if args.interval > 0 else "flat out"
         print(f"target ({mode}) >= {target['trials_per_s']:g} trials/s, p99 <= {target['p99_ms']:g} ms, 0 lost: "
               f"{'PASS' if result['pass'] else 'FAIL'}")

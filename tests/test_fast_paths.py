@@ -197,25 +197,6 @@ def test_dprime_estimate_with_kept_cue_nodes_equals_computed_afresh():
                 assert [x.hex() for x in kept] == [x.hex() for x in fresh], args
 
 
-def test_decision_keeps_a_tuple_of_str_and_converts_anything_else():
-    """Decision keeps a tuple of plain str as given (no copy) and makes anything else what
-    tuple(map(str, ...)) made of it before: the same field values either way."""
-    from rigloop.core.trial import Decision
-
-    class Note(str):
-        pass
-
-    base = dict(subject="b1", session="s1", trial=3, cue="tone_hi", reward_prob=1.0, reward_ul=4.0,
-                reward_armed=True, block="forward", stage="acquisition")
-    for texts in [(), ("a", "b c"), ["a", "b"], ("a", Note("b")), (1, 2.5), ("a", None)]:
-        expected = tuple(map(str, texts))
-        for name in ("reasons", "overrides", "warnings"):
-            d = Decision(**base, **{name: texts})
-            assert getattr(d, name) == expected and all(type(t) is str for t in getattr(d, name))
-    kept = ("a", "b")
-    assert Decision(**base, reasons=kept).reasons is kept
-
-
 def test_behaviour_clip_equals_np_clip():
     """behaviour._clip (minimum of maximum) gives np.clip's array, bit for bit: NaN, infinities,
     signed zeros and values on and past either bound included."""

@@ -240,8 +240,8 @@ def _updated_state(d: Any, correct: bool) -> dict[str, float | int] | None:
     """``from_state(d)``, ``update(correct)``, ``state()`` without the curve object in between:
     the same dict (keys in ``state``'s order), for a plain six-key dict and a bool; None for
     anything else (the caller then takes the checked path). ``step`` updates two or three
-    curves a trial this way (tools/bench/step.py: the figure beside the object path;
-    tests/test_fast_paths.py: the same bits)."""
+    curves a trial this way (1.3x the object path, tools/bench/step.py; tests/test_fast_paths.py:
+    the same bits)."""
     if type(d) is not dict or len(d) != 6 or type(correct) is not bool:
         return None
     plain = _plain_values(d)

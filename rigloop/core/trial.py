@@ -39,16 +39,6 @@ def _ident(name: str, value: Any) -> str:
     return value
 
 
-def _str_tuple(value: Any) -> bool:
-    """True for a tuple whose items are all plain str (``tuple(map(str, value))`` would equal it)."""
-    if type(value) is not tuple:
-        return False
-    for item in value:
-        if type(item) is not str:
-            return False
-    return True
-
-
 def _fine(value: Any) -> bool:
     """A plain float that is finite and >= 0: what most fields hold, passed in one test."""
     return type(value) is float and value >= 0.0 and value != _INF  # NaN fails the >=
@@ -516,9 +506,7 @@ class Decision:
         if self.valve_ms is not None and not _fine(self.valve_ms):
             object.__setattr__(self, "valve_ms", _number("valve_ms", self.valve_ms, optional=True))
         for name in ("reasons", "overrides", "warnings"):
-            texts = getattr(self, name)
-            if not _str_tuple(texts):  # a tuple of str stays as it is (what the engine hands over)
-                object.__setattr__(self, name, tuple(map(str, texts)))
+            object.__setattr__(self, name, tuple(map(str, getattr(self, name))))
         if type(self.reward_armed) is not bool:
             object.__setattr__(self, "reward_armed", bool(self.reward_armed))
         if type(self.end_session) is not bool:

@@ -208,3 +208,43 @@ def test_behaviour_clip_equals_np_clip():
         for _ in range(200):
             a = np.concatenate([rng.uniform(-0.5, 1.5, 24), rng.choice(special, 6)])
             assert behaviour._clip(a, lo, hi).tobytes() == np.clip(a, lo, hi).tobytes()
+
+
+def _slots(obj) -> dict:
+    names = [n for cls in type(obj).__mro__ for n in getattr(cls, "__slots__", ())]
+    return {n: object.__getattribute__(obj, n) for n in names if hasattr(obj, n)}
+
+
+def test_kalman_td_copy_sets_every_slot_as_the_general_path():
+    """KalmanTD.copy (one pass) gives what Learner.copy (through _allocate) gives: every slot
+    the same value, arrays with the same bits and shapes, views into the copy's own buffer,
+    nothing shared that can be written; and both continue to the same bits."""
+    from rigloop.core.learners import KalmanTD
+    from rigloop.core.learners._shared import Learner
+
+    rng = np.random.default_rng(8)
+    for n in (1, 3, 8, 17):
+        learner = KalmanTD(n, gamma=0.9, diffusion=0.01, noise=0.3, prior_var=2.0)
+        X = (rng.random((6, n)) < 0.4).astype(float)
+        learner.learn_trial(X, rng.normal(size=6))
+        fast, general = learner.copy(), Learner.copy(learner)
+        a, b = _slots(fast), _slots(general)
+        assert a.keys() == b.keys()
+        for name, value in a.items():
+            if isinstance(value, np.ndarray):
+                assert value.shape == b[name].shape and value.dtype == b[name].dtype, name
+                if name not in ("_q", "_u", "_tmp", "_q_col", "_u_row"):  # scratch: any contents
+                    assert value.tobytes() == b[name].tobytes(), name
+                if value.flags.writeable:
+                    assert not np.shares_memory(value, learner._A) and not np.shares_memory(value, learner._q), name
+            else:
+                assert value == b[name] or value is b[name], name
+        assert np.shares_memory(fast._w, fast._A) and np.shares_memory(fast._diag, fast._A)
+        assert np.shares_memory(fast._u_row, fast._q) and np.shares_memory(fast._q_col, fast._q)
+        X2, r2 = (rng.random((5, n)) < 0.5).astype(float), rng.normal(size=5)
+        got, ref = fast.learn_trial(X2, r2), general.learn_trial(X2, r2)
+        assert fast._A.tobytes() == general._A.tobytes()
+        assert got.errors.tobytes() == ref.errors.tobytes() and got.variances.tobytes() == ref.variances.tobytes()
+    resting = KalmanTD(4)
+    resting._rest()
+    assert resting.copy()._A.tobytes() == Learner.copy(resting)._A.tobytes()  # (the general path)

@@ -30,6 +30,7 @@ import numpy as np  # noqa: E402
 from rigloop.core import behaviour as behaviour_module  # noqa: E402
 from rigloop.core import curve, features, quantities, seeds  # noqa: E402
 from rigloop.core import step as core_step  # noqa: E402
+from rigloop.core.learners._shared import Learner  # noqa: E402
 from rigloop.core.subject import new_subject  # noqa: E402
 from rigloop.offline.simulate import simulate_session  # noqa: E402
 from rigloop.offline.sweep import animal_for  # noqa: E402
@@ -86,6 +87,7 @@ def tricks() -> dict[str, dict[str, float]]:
     cues = [(c.cue, c.onset, c.offset) for c in event.cues]
     outcomes = [(t, a / 4.0) for t, a in event.outcome_events()]
     behaviour = {"tone_hi": (1.2, 0.4, 20), "tone_lo": (-0.8, 0.5, 18)}
+    learner = state.learner  # the file's Kalman TD learner, working form
     probs = rng.uniform(0.0, 1.0, 24)  # the Gauss-Hermite nodes' probabilities d' clips
     b_means = itertools.cycle(np.linspace(-1.0, 0.5, 97).tolist())  # cue b moves, cue a stays (as between trials)
     return {
@@ -109,6 +111,7 @@ def tricks() -> dict[str, dict[str, float]]:
             lambda: behaviour_module.dprime_estimate(1.2, 0.4, next(b_means), 0.5),
             lambda: (behaviour_module._G_NODES.clear(), behaviour_module.dprime_estimate(1.2, 0.4, next(b_means), 0.5)),
             500),
+        "KalmanTD.copy in one pass vs general": _pair(learner.copy, lambda: Learner.copy(learner), 20000),
         "curve state updated, no object vs object": _pair(
             lambda: curve._updated_state(curve_state, True),
             lambda: curve._updated_state_reference(curve_state, True), 20000),

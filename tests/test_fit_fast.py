@@ -187,20 +187,26 @@ def test_sets_side_by_side_equal_one_at_a_time_bit_for_bit(rep_name):
                 np.testing.assert_array_equal(a[ok], b[ok])
 
 
-def test_the_respond_sum_equals_log_lik_respond_bit_for_bit():
-    """likelihood._RespondSum (buffers made once) against core.responses.log_lik_respond."""
+@pytest.mark.parametrize("compiled", [True, False])
+def test_the_respond_sum_equals_log_lik_respond_bit_for_bit(compiled, monkeypatch):
+    """likelihood._RespondSum (one compiled pass, or the ufuncs into one buffer) against
+    core.responses.log_lik_respond: the same bits, values small and huge."""
     from rigloop.core.responses import log_lik_respond
     from rigloop.fit.likelihood import _RespondSum
 
+    if not compiled:
+        monkeypatch.setenv("RIGLOOP_NO_NUMBA", "1")
     rng = np.random.default_rng(4)
-    V = rng.normal(0.3, 0.5, 400)
-    V[::17] = math.nan
-    mask = ~np.isnan(V)
-    y = (rng.random(mask.sum()) < 0.6).astype(float)
-    total = _RespondSum(y)
-    for beta, theta, lapse in ((6.0, 0.35, 0.05), (100.0, -0.2, 0.0), (0.01, 3.0, 1.0), (40.0, 0.1, 0.3)):
-        want = float(np.sum(log_lik_respond(V[mask], y, beta, theta, lapse)))
-        assert total(V, mask, beta, theta, lapse) == want
+    for scale in (0.01, 0.5, 30.0):
+        V = rng.normal(0.3, scale, 3000)
+        V[::17] = math.nan
+        mask = ~np.isnan(V)
+        y = (rng.random(mask.sum()) < 0.6).astype(float)
+        total = _RespondSum(y, mask)
+        for beta, theta, lapse in ((6.0, 0.35, 0.05), (100.0, -0.2, 0.0), (0.01, 3.0, 1.0),
+                                   (40.0, 0.1, 0.3), (1e4, 0.3, 1e-9)):
+            want = float(np.sum(log_lik_respond(V[mask], y, beta, theta, lapse)))
+            assert total(V, beta, theta, lapse) == want
 
 
 def test_batched_gradients_give_the_same_fit_bit_for_bit(monkeypatch):

@@ -41,6 +41,7 @@ from ..core.learners import make_learner
 from ..core.responses import log_lik_respond, log_lik_right, p_respond, p_right
 from ..errors import BadArgument
 from .data import FitData
+from ..offline.batch.onsets import respond_terms
 from .fast import batch_values, onset_values_fast, side_values_fast
 from .params import LINK_PARAMETER_NAMES, in_domain, link_parameters, model_parameters
 from .results import FittedTrials
@@ -270,7 +271,7 @@ class NegLogLik:
         self.h_cache: dict[float, np.ndarray] = {}
         self._lindex = [self.free.index(n) for n in self.lparams]
         self._noted: dict[tuple, dict[str, Any]] | None = None
-        self._respond = None if self.link == "choice" else _RespondSum(self.y_obs)
+        self._respond = None if self.link == "choice" else _RespondSum(self.y_obs, self.mask)
 
     def __call__(self, theta: np.ndarray) -> float:
         kw = dict(self.pinned_learner)
@@ -289,7 +290,7 @@ class NegLogLik:
             h = self._history(obs["decay"])
             total = -_choice_sum(V[0], V[1], h, self.mask, self.y_obs, obs)
         else:
-            total = -self._respond(V, self.mask, obs["beta"], obs["theta"], obs["lapse"])
+            total = -self._respond(V, obs["beta"], obs["theta"], obs["lapse"])
         return total if math.isfinite(total) else _FAR_WORSE
 
     @contextlib.contextmanager
@@ -358,24 +359,29 @@ class NegLogLik:
 
 
 class _RespondSum:
-    """Σ log P(y_t) of ``_observed_sum`` for fixed responses, into buffers made once: the
-    same ufuncs on the same numbers in the same order (so the same bits: the test pins
-    it against ``core.responses.log_lik_respond``), without the temporaries."""
+    """Σ log P(y_t) of ``_observed_sum`` over the trials in ``mask`` with responses
+    ``y_obs``, into a buffer made once: one compiled pass when the kernels run
+    (``onsets.respond_terms``), else the same ufuncs without their temporaries; either
+    way the same operations in the same order and the same pairwise sum, so the same
+    bits (tests/test_fit_fast.py pins both against ``core.responses.log_lik_respond``)."""
 
-    def __init__(self, y_obs: np.ndarray):
+    def __init__(self, y_obs: np.ndarray, mask: np.ndarray):
         y = np.asarray(y_obs, dtype=np.float64)
-        if np.isnan(y).any():
-            raise BadArgument("y_obs", "observed responses (no nan)", y_obs)
+        self.idx = np.flatnonzero(mask).astype(np.intp)
+        if np.isnan(y).any() or len(y) != len(self.idx):
+            raise BadArgument("y_obs", "one observed response (no nan) per trial in mask", y_obs)
         # log σ(±z) = −log(1 + e^(∓z)): −sign·z with sign +1 for a response, −1 without
         self.neg_sign = -np.where(y > 0.5, 1.0, -1.0)
         self.buf = np.empty(len(y))
 
-    def __call__(self, V: np.ndarray, mask: np.ndarray, beta: float, theta: float,
-                 lapse: float) -> float:
+    def __call__(self, V: np.ndarray, beta: float, theta: float, lapse: float) -> float:
         log_half_lapse = math.log(lapse / 2) if lapse > 0 else -math.inf
         log_engaged = math.log1p(-lapse) if lapse < 1 else -math.inf
         z = self.buf
-        np.compress(mask, V, out=z)
+        if V.dtype == np.float64 and respond_terms(V, self.idx, self.neg_sign, beta, theta,
+                                                   log_half_lapse, log_engaged, z):
+            return float(np.sum(z))
+        np.take(V, self.idx, out=z)
         # z = β(V − θ)
         np.subtract(z, theta, out=z)
         np.multiply(beta, z, out=z)

@@ -580,3 +580,33 @@ def delta_probes(w, z, X, r, bounds, probes, has, alpha, g, gl, V, status):
     for p in range(w.shape[0]):
         status[p] = _delta_probes(w[p], z[p], X, r, bounds, probes, has, alpha[p], g[p],
                                   gl[p], V[p], nz)
+
+
+# --------------------------------------------------------------------------- go/no-go terms
+
+_LOGE2 = 0.693147180559945309417232121458176568  # log 2, as numpy's NPY_LOGE2
+
+
+@njit(cache=True, nogil=True)
+def _logaddexp(x, y):
+    """log(eˣ + eʸ) by numpy's own steps (npy_logaddexp: the C library's exp and log1p),
+    so the same bits as ``np.logaddexp``."""
+    if x == y:
+        return x + _LOGE2
+    tmp = x - y
+    if tmp > 0.0:
+        return x + math.log1p(math.exp(-tmp))
+    elif tmp <= 0.0:
+        return y + math.log1p(math.exp(tmp))
+    return tmp
+
+
+@njit(cache=True, nogil=True)
+def respond_terms(V, idx, neg_sign, beta, theta, log_half_lapse, log_engaged, out):
+    """log P(y_k) of the go/no-go link for the trials ``idx`` of V, into out (len(idx),):
+    z = β(V − θ); log p = logaddexp(log(lapse/2), log(1 − lapse) − logaddexp(0, −sign·z)),
+    the operations of ``core.responses.log_lik_respond`` in its order, bit for bit."""
+    for k in range(idx.shape[0]):
+        z = beta * (V[idx[k]] - theta)
+        z = neg_sign[k] * z
+        out[k] = _logaddexp(log_half_lapse, log_engaged - _logaddexp(0.0, z))

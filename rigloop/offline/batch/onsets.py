@@ -149,3 +149,16 @@ def delta_probes(rows: TrialRows, w0: np.ndarray, alpha, gamma, lam):
     kernels.delta_probes(w, z, rows.X, rows.r, rows.bounds, rows.probes, rows.has, a, g, gl,
                          V, status)
     return V, w, z, status
+
+
+def respond_terms(V: np.ndarray, idx: np.ndarray, neg_sign: np.ndarray, beta: float, theta: float,
+                  log_half_lapse: float, log_engaged: float, out: np.ndarray):
+    """The go/no-go link's log P(y) of trials ``idx`` (intp) of V into ``out`` in one
+    compiled pass (``batch_kernels.respond_terms``: numpy's steps, the same bits); False
+    when the kernels are off (the caller then runs the numpy ufuncs)."""
+    kernels = _kernels()
+    if kernels is None:
+        return False
+    kernels.respond_terms(V, idx, neg_sign, float(beta), float(theta), float(log_half_lapse),
+                          float(log_engaged), out)
+    return True

@@ -1,17 +1,30 @@
 """Parameter recovery: how often the 95% profile intervals of ``rigloop fit`` contain the
-parameters the data were generated with.
+parameters the data were generated with, and why they miss when they do.
 
 Data come from the fitted model itself (``rigloop.fit.synthetic``): a two-tone
 discrimination with a reversal, Rescorla–Wagner values, the go/no-go link (α, β, θ,
 lapse) and the two-choice link (α, β, bias, lapse, persev), over a grid of true values.
 Each data set is fitted with the default pins and profile intervals; coverage per
-parameter is the fraction of fits whose interval contains the truth. Target: 93–97% for
-every parameter (a 95% interval; the band is about ±2 binomial SEs at 400 fits).
+parameter is the fraction of fits whose interval contains the truth, printed with its
+95% binomial interval (Wilson 1927, JASA 22:209: the score interval). Target: 93–97%
+for every parameter.
 
-    python tools/bench/recovery.py [--json] [--reps R] [--trials N] [--jobs J]
+With ``--diagnose`` each fit is also checked against the truth directly, to tell the
+causes of a miss apart:
 
-Default: 2 repetitions per grid point (a quick look, coverage too noisy to judge); the
-full grid with RIGLOOP_FULL=1 or --reps 25.
+* ``lr``: the likelihood-ratio statistic at the truth, 2·(ℓ̂ − ℓ_p(θ_j = truth)), with
+  the profile at the truth re-fitted from the estimate and from the truth. The fraction
+  with lr ≤ 3.84 is the coverage an exact inversion of the χ²(1) test would give: below
+  93% means the χ² approximation itself fails at this amount of data.
+* ``local``: a refit started at the truth found a higher likelihood than the fit (the
+  interval was built around a local optimum).
+* ``narrow``: lr ≤ 3.84 but the interval excludes the truth (the profile's re-fit of the
+  other parameters was incomplete, or an end was placed wrongly).
+
+    python tools/bench/recovery.py [--json] [--reps R] [--trials N] [--jobs J] [--diagnose]
+
+Default: 2 repetitions per grid point (a quick look; coverage too noisy to judge); the
+full grid with RIGLOOP_FULL=1 (25 repetitions: 400 fits per task).
 """
 
 from __future__ import annotations
@@ -19,6 +32,7 @@ from __future__ import annotations
 import argparse
 import itertools
 import json
+import math
 import os
 import sys
 import time
@@ -31,6 +45,8 @@ GONOGO = {"alpha": (0.1, 0.3), "beta": (5.0, 10.0), "theta": (0.3, 0.5), "lapse"
 CHOICE = {"alpha": (0.1, 0.3), "beta": (3.0, 6.0), "bias": (-0.5, 0.5), "lapse": (0.05, 0.15),
           "persev": (0.0, 1.0)}
 LOW, HIGH = 0.93, 0.97
+CHI2_1_95 = 3.841458820694124  # χ²(1) 95% quantile (scipy.stats.chi2.ppf(0.95, 1))
+RW = "rescorla_wagner"
 
 
 def grid(space: dict) -> list[dict]:
@@ -38,20 +54,78 @@ def grid(space: dict) -> list[dict]:
     return [dict(zip(names, values, strict=True)) for values in itertools.product(*space.values())]
 
 
-def one(job: tuple) -> dict:
-    """Fit one data set; which true values its intervals contain."""
-    task, truth, seed, n = job
+def wilson(k: int, n: int, z: float = 1.959963984540054) -> tuple[float, float]:
+    """The 95% Wilson score interval of a binomial proportion k/n (Wilson 1927)."""
+    if n == 0:
+        return 0.0, 1.0
+    p = k / n
+    centre = (p + z * z / (2 * n)) / (1 + z * z / n)
+    half = z * math.sqrt(p * (1 - p) / n + z * z / (4 * n * n)) / (1 + z * z / n)
+    return max(0.0, centre - half), min(1.0, centre + half)
+
+
+def events_for(task: str, truth: dict, seed: int, n: int) -> list:
     if task == "gonogo":
-        events = sy.gonogo_trials({"alpha": truth["alpha"]}, truth["beta"], truth["theta"],
-                                  truth["lapse"], n=n, seed=seed)
-    else:
-        events = sy.choice_trials({"alpha": truth["alpha"]}, truth["beta"], truth["bias"],
-                                  truth["lapse"], truth["persev"], n=n, seed=seed)
-    r = fit.fit_subject(events, "rescorla_wagner", sy.IDENTITY, reward_unit_ul=sy.UNIT_UL,
-                        starts=3, seed=seed)
-    return {"task": task, "covered": {k: bool(r.ci95[k].lo <= v <= r.ci95[k].hi)
-                                      for k, v in truth.items()},
-            "at_bound": [k for k, iv in r.ci95.items() if iv.one_sided]}
+        return sy.gonogo_trials({"alpha": truth["alpha"]}, truth["beta"], truth["theta"],
+                                truth["lapse"], n=n, seed=seed)
+    return sy.choice_trials({"alpha": truth["alpha"]}, truth["beta"], truth["bias"],
+                            truth["lapse"], truth["persev"], n=n, seed=seed)
+
+
+def one(job: tuple) -> dict:
+    """Fit one data set; which true values its intervals contain (and, diagnosing, why not)."""
+    task, truth, seed, n, starts, diagnose = job
+    events = events_for(task, truth, seed, n)
+    r = fit.fit_subject(events, RW, sy.IDENTITY, reward_unit_ul=sy.UNIT_UL, starts=starts,
+                        seed=seed)
+    out = {"task": task, "covered": {k: bool(r.ci95[k].lo <= v <= r.ci95[k].hi)
+                                     for k, v in truth.items()},
+           "at_bound": [k for k, iv in r.ci95.items() if iv.one_sided],
+           "cut": [k for k, iv in r.ci95.items() if "search bound" in (iv.lo_end, iv.hi_end)]}
+    if diagnose:
+        out.update(_diagnose(events, truth, r))
+    return out
+
+
+def _diagnose(events: list, truth: dict, r) -> dict:
+    """The likelihood-ratio statistic at each true value, and whether the fit was local."""
+    pins = dict(r.fixed)
+    kw = {"reward_unit_ul": sy.UNIT_UL, "hessian": False, "intervals": False, "starts": 1}
+    from_truth = fit.fit_subject(events, RW, sy.IDENTITY, fixed=pins, start=truth, **kw)
+    ll_best = max(r.log_likelihood, from_truth.log_likelihood)
+    lr = {}
+    for name, value in truth.items():
+        others = {k: v for k, v in truth.items() if k != name}
+        near = {k: min(max(r.params[k], r.bounds[k][0]), r.bounds[k][1]) for k in others}
+        fixed = {**pins, name: value}
+        ll = max(fit.fit_subject(events, RW, sy.IDENTITY, fixed=fixed, start=s, **kw).log_likelihood
+                 for s in (others, near))
+        lr[name] = max(0.0, 2.0 * (ll_best - ll))
+    return {"lr": lr, "local": bool(from_truth.log_likelihood > r.log_likelihood + 0.01),
+            "gap": ll_best - r.log_likelihood}
+
+
+def summarise(results: list[dict], tasks: list[str], diagnose: bool) -> dict:
+    table = {}
+    for task in tasks:
+        mine = [r for r in results if r["task"] == task]
+        for name in (GONOGO if task == "gonogo" else CHOICE):
+            n = len(mine)
+            k = sum(r["covered"][name] for r in mine)
+            lo, hi = wilson(k, n)
+            row = {"coverage": k / n, "ci95": [lo, hi], "fits": n,
+                   "one_sided": sum(name in r["at_bound"] for r in mine) / n,
+                   "cut": sum(name in r["cut"] for r in mine) / n}
+            if diagnose:
+                lr_ok = sum(r["lr"][name] <= CHI2_1_95 for r in mine)
+                row["lr_coverage"] = lr_ok / n
+                row["lr_ci95"] = list(wilson(lr_ok, n))
+                row["missed_local"] = sum((not r["covered"][name]) and r["local"] for r in mine)
+                row["missed_narrow"] = sum((not r["covered"][name]) and r["lr"][name] <= CHI2_1_95
+                                           and not r["local"] for r in mine)
+                row["mean_lr"] = sum(r["lr"][name] for r in mine) / n
+            table[f"{task}.{name}"] = row
+    return table
 
 
 def main() -> int:
@@ -59,42 +133,51 @@ def main() -> int:
     p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     p.add_argument("--reps", type=int, default=25 if full else 2, help="data sets per grid point")
     p.add_argument("--trials", type=int, default=500, help="trials per data set")
+    p.add_argument("--starts", type=int, default=3, help="optimiser starts per fit")
     p.add_argument("--jobs", type=int, default=2, help="worker processes")
     p.add_argument("--tasks", default="gonogo,choice", help="gonogo, choice or both")
+    p.add_argument("--diagnose", action="store_true",
+                   help="also the likelihood ratio at the truth and local optima (slower)")
     p.add_argument("--json", action="store_true", help="print one JSON object")
     args = p.parse_args()
     tasks = args.tasks.split(",")
-    jobs = [(task, truth, 1000 * i + rep, args.trials)
+    bad = sorted(set(tasks) - {"gonogo", "choice"})
+    if bad or args.reps < 1 or args.trials < 50 or args.jobs < 1 or args.starts < 1:
+        p.error("--tasks takes gonogo and/or choice; --reps, --jobs, --starts >= 1; --trials >= 50")
+    jobs = [(task, truth, 1000 * i + rep, args.trials, args.starts, args.diagnose)
             for task in tasks for i, truth in enumerate(grid(GONOGO if task == "gonogo" else CHOICE))
             for rep in range(args.reps)]
     t0 = time.monotonic()
     results = []
     with ProcessPoolExecutor(args.jobs) as pool:
-        for k, res in enumerate(pool.map(one, jobs, chunksize=2)):
+        for k, res in enumerate(pool.map(one, jobs, chunksize=1)):
             results.append(res)
             if sys.stderr.isatty():
                 print(f"\rfits {k + 1}/{len(jobs)}", end="", file=sys.stderr)
     if sys.stderr.isatty():
         print(file=sys.stderr)
-    table, met = {}, True
-    for task in tasks:
-        mine = [r for r in results if r["task"] == task]
-        for name in (GONOGO if task == "gonogo" else CHOICE):
-            cov = sum(r["covered"][name] for r in mine) / len(mine)
-            on_bound = sum(name in r["at_bound"] for r in mine) / len(mine)
-            table[f"{task}.{name}"] = {"coverage": cov, "one_sided": on_bound, "fits": len(mine)}
-            met &= LOW <= cov <= HIGH
-    out = {"coverage": table, "fits": len(results), "seconds": time.monotonic() - t0,
-           "target": [LOW, HIGH], "met": met}
+    table = summarise(results, tasks, args.diagnose)
+    met = all(LOW <= row["coverage"] <= HIGH for row in table.values())
+    out = {"coverage": table, "fits": len(results), "trials": args.trials,
+           "seconds": time.monotonic() - t0, "target": [LOW, HIGH], "met": met}
     if args.json:
         print(json.dumps(out))
         return 0
     print(f"parameter recovery: {len(results)} fits of {args.trials} trials in "
-          f"{out['seconds']:.0f} s (target coverage {LOW:.0%}-{HIGH:.0%} per parameter)")
-    print(f"  {'parameter':<18}{'coverage':>10}{'one-sided':>11}{'fits':>6}")
+          f"{out['seconds']:.0f} s (target coverage {LOW:.0%}-{HIGH:.0%} per parameter; "
+          f"[binomial 95% interval])")
+    head = f"  {'parameter':<16}{'coverage':>9} {'[95% interval]':<16}{'one-sided':>10}{'cut':>6}{'fits':>6}"
+    if args.diagnose:
+        head += f"{'LR<=3.84':>10}{'mean LR':>9}{'local':>7}{'narrow':>8}"
+    print(head)
     for key, row in table.items():
-        flag = "" if LOW <= row["coverage"] <= HIGH else "  outside the target"
-        print(f"  {key:<18}{row['coverage']:>10.1%}{row['one_sided']:>11.1%}{row['fits']:>6}{flag}")
+        lo, hi = row["ci95"]
+        line = (f"  {key:<16}{row['coverage']:>9.1%} [{lo:5.1%}, {hi:5.1%}]  "
+                f"{row['one_sided']:>9.1%}{row['cut']:>6.1%}{row['fits']:>6}")
+        if args.diagnose:
+            line += (f"{row['lr_coverage']:>10.1%}{row['mean_lr']:>9.2f}"
+                     f"{row['missed_local']:>7}{row['missed_narrow']:>8}")
+        print(line + ("" if LOW <= row["coverage"] <= HIGH else "  outside the target"))
     print("PASS" if met else "FAIL")
     return 0
 

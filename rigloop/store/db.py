@@ -60,8 +60,11 @@ class Database:
         try:
             self._setup()
             if background_checkpoint:
-                self.conn.execute(f"PRAGMA wal_autocheckpoint = {BACKSTOP_PAGES}")
-                self.checkpointer = Checkpointer(self.path)
+                try:
+                    self.conn.execute(f"PRAGMA wal_autocheckpoint = {BACKSTOP_PAGES}")
+                    self.checkpointer = Checkpointer(self.path)
+                except sqlite3.Error as err:
+                    raise StoreError(f"{self.path}: cannot start the checkpoint connection ({err})") from None
         except BaseException:
             self.conn.close()
             self.conn = None

@@ -58,7 +58,8 @@ def _uint32_words(n: int) -> list[int]:
 
 
 class _StateWords(np.random.bit_generator.ISeedSequence):
-    """A seed sequence whose state words are already made (PCG64 reads four uint64)."""
+    """A seed sequence whose state words are already made: the four uint64 PCG64 asks for
+    (its only call, ``generate_state(4, np.uint64)``); for no other bit generator."""
 
     __slots__ = ("_words",)
 

@@ -47,7 +47,7 @@ from rigloop.cli.progress import Progress  # noqa: E402
 from rigloop.core.features import CueList, make_representation  # noqa: E402
 from rigloop.core.learners import make_learner  # noqa: E402
 from rigloop.core.trial import CuePresentation, Outcome, Response, TrialEvent  # noqa: E402
-from rigloop.fit import fast  # noqa: E402
+from rigloop.fit import fast, likelihood  # noqa: E402
 from rigloop.fit.search import _scipy_optimize  # noqa: E402
 from rigloop.fit.cohort import fit_cohort  # noqa: E402
 from rigloop.offline import batch as batch_module  # noqa: E402
@@ -139,6 +139,7 @@ def main(argv=None) -> int:
     t0 = time.perf_counter()
     fit.onset_values(data, make_learner("kalman_td", REP.n_features, **TRUE))  # compile / load
     fast.batch_values(data, "kalman_td", [TRUE, TRUE])  # the side-by-side kernel too
+    likelihood.NegLogLik(data, "kalman_td", ("beta",), {**TRUE, **OBS})(np.array([OBS["beta"]]))  # its sum
     compile_s = time.perf_counter() - t0
     t0 = time.perf_counter()
     _scipy_optimize()  # once per process, like the kernels: not part of a fit

@@ -3,6 +3,7 @@ CLI's --fix/--bounds/--start/--link, and a small parameter recovery."""
 
 import json
 import math
+import os
 
 import numpy as np
 import pytest
@@ -146,16 +147,54 @@ def test_bootstrap_go_nogo_and_refuses_choice(choice_events):
                         intervals=False, bootstrap=20)
 
 
-def test_small_recovery_intervals_cover_the_truth():
-    """Five go/no-go data sets from known parameters: each 95% profile interval misses its
-    truth at most once per parameter (P(≥ 2 misses of 5 | 95%) ≈ 0.023; binomial). The
-    full grid is tools/bench/recovery.py."""
+def test_profile_interval_of_a_binomial_rate_equals_the_likelihood_ratio_interval():
+    """One free parameter, no re-fit: the interval ends are where 2·(ℓ̂ − ℓ(p)) = 3.84,
+    found independently with scipy.optimize.brentq (the likelihood-ratio interval of a
+    binomial proportion; Agresti 2013, *Categorical Data Analysis*, §1.4.2, from memory),
+    and one-sided from the bound when the estimate sits on it."""
+    from scipy import optimize
+
+    from rigloop.fit.profile import profile_intervals
+
+    def nll_of(k, n):
+        return lambda s: -(k * math.log(max(s[0], 1e-300)) + (n - k) * math.log(max(1 - s[0], 1e-300)))
+
+    def no_refit(f, z0):  # nothing else to re-fit
+        return z0, f(z0)
+
+    for k, n in ((7, 40), (33, 50)):
+        nll, p_hat = nll_of(k, n), k / n
+        got, _ = profile_intervals(nll, np.array([p_hat]), nll([p_hat]), lambda s: s, ["p"],
+                                   no_refit, [math.sqrt(p_hat * (1 - p_hat) / n)])
+        def g(p, nll=nll, p_hat=p_hat):
+            return 2 * (nll([p]) - nll([p_hat])) - 3.841458820694124
+        lo, hi = optimize.brentq(g, 1e-9, p_hat), optimize.brentq(g, p_hat, 1 - 1e-9)
+        assert got["p"].lo == pytest.approx(lo, abs=2e-4) and got["p"].hi == pytest.approx(hi, abs=2e-4)
+    nll = nll_of(0, 30)
+    got, _ = profile_intervals(nll, np.array([0.0]), nll([0.0]), lambda s: s, ["p"], no_refit)
+    # 0 of 30: ℓ(p) = 30 log(1 − p); the end solves −2·30·log(1 − p) = 3.84 in closed form
+    assert got["p"].lo_end == "estimate at bound" and got["p"].lo == 0.0
+    assert got["p"].hi == pytest.approx(1 - math.exp(-3.841458820694124 / 60), abs=2e-4)
+
+
+@pytest.mark.parametrize("full", [pytest.param(True, marks=pytest.mark.skipif(
+    os.environ.get("RIGLOOP_FULL") != "1", reason="full size with RIGLOOP_FULL=1")), False])
+def test_small_recovery_intervals_cover_the_truth(full):
+    """Go/no-go data sets from known parameters: each 95% profile interval misses its truth
+    at most once per parameter (5 data sets: P(≥ 2 misses | 95%) ≈ 0.023; 3 data sets:
+    ≈ 0.007; binomial). By default α and lapse are pinned at their truth so the fits take
+    seconds (β and θ profiled with the other re-fitted); RIGLOOP_FULL=1 frees all four.
+    The full grid is tools/bench/recovery.py."""
     truth = {"alpha": 0.2, "beta": 8.0, "theta": 0.4, "lapse": 0.1}
-    misses = dict.fromkeys(truth, 0)
-    for seed in range(5):
+    fixed = None if full else {"alpha": 0.2, "lapse": 0.1}
+    free = truth if full else {"beta": 8.0, "theta": 0.4}
+    misses = dict.fromkeys(free, 0)
+    for seed in range(5 if full else 3):
         events = sy.gonogo_trials({"alpha": 0.2}, 8.0, 0.4, 0.1, n=250, seed=100 + seed)
-        r = fit.fit_subject(events, RW, sy.IDENTITY, reward_unit_ul=sy.UNIT_UL, starts=1)
-        for k, v in truth.items():
+        r = fit.fit_subject(events, RW, sy.IDENTITY, reward_unit_ul=sy.UNIT_UL, starts=1,
+                            fixed=fixed, hessian=full)
+        assert set(r.ci95) == set(free)
+        for k, v in free.items():
             misses[k] += not (r.ci95[k].lo <= v <= r.ci95[k].hi)
     assert all(m <= 1 for m in misses.values()), misses
 

@@ -61,7 +61,7 @@ def cohort_figure(path: str, comparison, doc: Mapping) -> str:
     if minimum:
         ax.axhline(minimum, color="#D55E00", ls="--", lw=1)
         ax.text(0.52, minimum, " daily minimum", color="#D55E00", fontsize=7, va="bottom")
-    ax.set_xticks(range(1, len(names) + 1), _short(names), fontsize=7, rotation=15)
+    ax.set_xticks(range(1, len(names) + 1), _short(names), fontsize=7)
     ax.set_ylabel("water earned on the rig per animal-day (µL)", fontsize=8)
     ax.set_title("water per day", fontsize=9)
     ax.grid(alpha=0.3, axis="y")
@@ -88,7 +88,13 @@ def cohort_figure(path: str, comparison, doc: Mapping) -> str:
 
 
 def _short(names: Sequence[str], width: int = 22) -> list[str]:
-    return [n if len(n) <= width else "…" + n[-(width - 1):] for n in names]  # variants differ at the end
+    """Tick labels that fit: a long name breaks at its first space (a variant's rule file, then
+    what it varies), and only a part still too long loses its start (variants differ at the end)."""
+
+    def fit(part: str) -> str:
+        return part if len(part) <= width else "…" + part[-(width - 1):]
+
+    return ["\n".join(fit(p) for p in n.split(" ", 1)) if len(n) > width else n for n in names]
 
 
 def tradeoff_figure(path: str, comparison, doc: Mapping) -> str:

@@ -22,6 +22,8 @@ causes of a miss apart:
   other parameters was incomplete, or an end was placed wrongly).
 
     python tools/bench/recovery.py [--json] [--reps R] [--trials N] [--jobs J] [--diagnose]
+                                   [--lines FILE]      # each fit's result as it ends
+    python tools/bench/recovery.py --summarise FILE    # the table of a (partial) --lines run
 
 Default: 2 repetitions per grid point (a quick look; coverage too noisy to judge); the
 full grid with RIGLOOP_FULL=1 (25 repetitions: 400 fits per task).
@@ -78,7 +80,7 @@ def one(job: tuple) -> dict:
     events = events_for(task, truth, seed, n)
     r = fit.fit_subject(events, RW, sy.IDENTITY, reward_unit_ul=sy.UNIT_UL, starts=starts,
                         seed=seed)
-    out = {"task": task, "covered": {k: bool(r.ci95[k].lo <= v <= r.ci95[k].hi)
+    out = {"task": task, "trials": n, "covered": {k: bool(r.ci95[k].lo <= v <= r.ci95[k].hi)
                                      for k, v in truth.items()},
            "at_bound": [k for k, iv in r.ci95.items() if iv.one_sided],
            "cut": [k for k, iv in r.ci95.items() if "search bound" in (iv.lo_end, iv.hi_end)]}
@@ -138,43 +140,66 @@ def main() -> int:
     p.add_argument("--tasks", default="gonogo,choice", help="gonogo, choice or both")
     p.add_argument("--diagnose", action="store_true",
                    help="also the likelihood ratio at the truth and local optima (slower)")
+    p.add_argument("--lines", metavar="FILE", help="also write each fit's result to FILE as "
+                   "it ends (one JSON line; --summarise FILE reads a partial run)")
+    p.add_argument("--summarise", metavar="FILE", help="print the table of a --lines FILE "
+                   "instead of fitting")
     p.add_argument("--json", action="store_true", help="print one JSON object")
     args = p.parse_args()
     tasks = args.tasks.split(",")
+    if args.summarise:
+        with open(args.summarise) as fh:
+            results = [json.loads(line) for line in fh if line.strip()]
+        tasks = [t for t in ("gonogo", "choice") if any(r["task"] == t for r in results)]
+        diagnose = all("lr" in r for r in results)
+        trials = results[0].get("trials", args.trials) if results else args.trials
+        return report(results, tasks, diagnose, trials, None, args.json)
     bad = sorted(set(tasks) - {"gonogo", "choice"})
     if bad or args.reps < 1 or args.trials < 50 or args.jobs < 1 or args.starts < 1:
         p.error("--tasks takes gonogo and/or choice; --reps, --jobs, --starts >= 1; --trials >= 50")
+    # repetitions outermost, so a partial run (--lines) spans the whole grid
     jobs = [(task, truth, 1000 * i + rep, args.trials, args.starts, args.diagnose)
-            for task in tasks for i, truth in enumerate(grid(GONOGO if task == "gonogo" else CHOICE))
-            for rep in range(args.reps)]
+            for rep in range(args.reps) for task in tasks
+            for i, truth in enumerate(grid(GONOGO if task == "gonogo" else CHOICE))]
     t0 = time.monotonic()
     results = []
+    lines = open(args.lines, "w") if args.lines else None  # noqa: SIM115 (closed below)
     with ProcessPoolExecutor(args.jobs) as pool:
         for k, res in enumerate(pool.map(one, jobs, chunksize=1)):
             results.append(res)
+            if lines is not None:
+                print(json.dumps(res), file=lines, flush=True)
             if sys.stderr.isatty():
                 print(f"\rfits {k + 1}/{len(jobs)}", end="", file=sys.stderr)
+    if lines is not None:
+        lines.close()
     if sys.stderr.isatty():
         print(file=sys.stderr)
-    table = summarise(results, tasks, args.diagnose)
+    return report(results, tasks, args.diagnose, args.trials, time.monotonic() - t0, args.json)
+
+
+def report(results: list[dict], tasks: list[str], diagnose: bool, trials: int,
+           seconds: float | None, as_json: bool) -> int:
+    """Print the coverage table (or one JSON object) of ``results``."""
+    table = summarise(results, tasks, diagnose)
     met = all(LOW <= row["coverage"] <= HIGH for row in table.values())
-    out = {"coverage": table, "fits": len(results), "trials": args.trials,
-           "seconds": time.monotonic() - t0, "target": [LOW, HIGH], "met": met}
-    if args.json:
+    out = {"coverage": table, "fits": len(results), "trials": trials,
+           "seconds": seconds, "target": [LOW, HIGH], "met": met}
+    if as_json:
         print(json.dumps(out))
         return 0
-    print(f"parameter recovery: {len(results)} fits of {args.trials} trials in "
-          f"{out['seconds']:.0f} s (target coverage {LOW:.0%}-{HIGH:.0%} per parameter; "
-          f"[binomial 95% interval])")
+    took = "" if seconds is None else f" in {seconds:.0f} s"
+    print(f"parameter recovery: {len(results)} fits of {trials} trials{took} "
+          f"(target coverage {LOW:.0%}-{HIGH:.0%} per parameter; [binomial 95% interval])")
     head = f"  {'parameter':<16}{'coverage':>9} {'[95% interval]':<16}{'one-sided':>10}{'cut':>6}{'fits':>6}"
-    if args.diagnose:
+    if diagnose:
         head += f"{'LR<=3.84':>10}{'mean LR':>9}{'local':>7}{'narrow':>8}"
     print(head)
     for key, row in table.items():
         lo, hi = row["ci95"]
         line = (f"  {key:<16}{row['coverage']:>9.1%} [{lo:5.1%}, {hi:5.1%}]  "
                 f"{row['one_sided']:>9.1%}{row['cut']:>6.1%}{row['fits']:>6}")
-        if args.diagnose:
+        if diagnose:
             line += (f"{row['lr_coverage']:>10.1%}{row['mean_lr']:>9.2f}"
                      f"{row['missed_local']:>7}{row['missed_narrow']:>8}")
         print(line + ("" if LOW <= row["coverage"] <= HIGH else "  outside the target"))

@@ -10,7 +10,7 @@ import math
 
 import numpy as np
 import pytest
-from hypothesis import given, settings
+from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from rigloop.core.trial import CuePresentation, Decision, Outcome, Response, TrialEvent, TrialStep
@@ -42,7 +42,7 @@ def test_simulated_sessions_are_written_as_the_reference_writes_them(example):
         assert (p.event_text, p.decision_text) == (canonical_json(ev.to_dict()), canonical_json(d.to_dict()))
 
 
-@settings(max_examples=40, deadline=None)
+@settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.filter_too_much, HealthCheck.too_slow])
 @given(trial_events(), decisions, quantity_maps)
 def test_generated_values_are_written_as_the_reference_writes_them(ev, d, q):
     _same(ev, d, q)

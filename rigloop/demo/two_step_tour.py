@@ -42,7 +42,7 @@ def run(data: Path) -> int:
         moved = next((i + 1 for i, d in enumerate(run_.decisions) if d.stage == "planning"), None)
         lo, hi = post.interval(0.95)
         print(f"{subject} (simulated {kind.replace('_', '-')}): {len(run_.events)} trials, "
-              f"P(w > 0.5) = {post.p_above(0.5):.3f}, w about {post.mean:.2f} (95% {lo:.2f}-{hi:.2f}); "
+              f"at the end P(w > 0.5) = {post.p_above(0.5):.3f}, w about {post.mean:.2f} (95% {lo:.2f}-{hi:.2f}); "
               + (f"moved to 'planning' after trial {moved}" if moved else "stays in 'two_stage_training'"))
         a1, reward, common = choices(run_.events)
         reg = stay_regression(a1, reward, common)

@@ -113,3 +113,28 @@ def test_check_validates_population_files(tmp_path, capsys):
     bad.write_text(GOOD.replace("fraction = 0.25", "fraction = 0.5"))
     assert main(["check", str(bad)]) == 1
     assert "sum to 1.25" in capsys.readouterr().err
+
+
+def test_two_stage_animals_take_their_drawn_parameters_and_each_task_ignores_the_others():
+    text = """
+[population]
+name = "planners_and_repeaters"
+[population.groups.planners]
+preset = "typical"
+fraction = 1.0
+w = { dist = "uniform", lo = 0.6, hi = 1.0 }
+beta1 = 4.0
+alpha = 0.3
+"""
+    pop = parse_population(text)
+    draws = draw_animals(pop, 6, seed=3)
+    two_step = load_example("two_step")
+    for d in draws:
+        animal = d.build(two_step)
+        assert animal.params.w == d.params["w"] and 0.6 <= animal.params.w <= 1.0
+        assert animal.params.beta1 == 4.0
+    cue_animal = draws[0].build(load_example("tone_reversal"))  # w, beta1 belong to the other task
+    assert cue_animal.alpha == 0.3
+    assert draw_animals(parse_population(text.replace('"typical"', '"model_based"')), 1, 0)[0].preset == "model_based"
+    with pytest.raises(RuleError, match="w"):
+        parse_population(text.replace("lo = 0.6, hi = 1.0", "lo = 0.6, hi = 1.5"))

@@ -4,7 +4,7 @@ A population file has a ``[population]`` table (``name``, ``description``) and o
 table per group under ``[population.groups.NAME]``::
 
     [population.groups.quick]
-    preset = "fast_learner"        # a preset of simulate.py (PRESETS)
+    preset = "fast_learner"        # a preset of simulate.py (PRESETS; two-stage task: TWO_STEP_PRESETS)
     fraction = 0.3                 # share of the cohort; the fractions sum to 1
     alpha = { dist = "lognormal", median = 0.3, sigma = 0.3, hi = 1.0 }
     beta = { dist = "normal", mean = 8.0, sd = 2.0, lo = 2.0, hi = 14.0 }
@@ -16,7 +16,9 @@ table per group under ``[population.groups.NAME]``::
     fraction = 0.1
 
 A group's other keys are SimulatedAnimal parameters (``PARAMETERS``), fixed or drawn
-per animal; ``lo``/``hi`` truncate any distribution (by redrawing), and a distribution
+per animal — the two-stage task's animals take the learner's own (alpha1, alpha2, lam,
+beta1, beta2, p, w; Daw et al. 2011) with bias and lapse, and each task ignores the
+other's, so one population serves rule files of both kinds; ``lo``/``hi`` truncate any distribution (by redrawing), and a distribution
 whose range can leave the parameter's valid range is refused, naming the bound to add.
 A fitted group's animals take the best-ranked fit's parameters (learning rate, β, θ as
 the response threshold, lapse, bias); a group key given beside it wins.
@@ -38,9 +40,11 @@ from importlib import resources
 import numpy as np
 
 from ..core.names import closest
+from ..core.two_step.params import BOUNDS as TWO_STEP_BOUNDS
 from ..errors import BadArgument, RuleError
 from .simulate import PRESETS, SimulatedAnimal, preset_animal
 from .sweep import mix_presets
+from .two_step_sim import TWO_STEP_PRESETS
 
 # parameter -> (lowest valid, highest valid, whole number?)
 PARAMETERS: dict[str, tuple[float, float, bool]] = {
@@ -54,6 +58,7 @@ PARAMETERS: dict[str, tuple[float, float, bool]] = {
     "engagement": (1, 100_000, True),
     "fixed_p_respond": (0.0, 1.0, False),
     "false_alarm_timeout_s": (0.0, 600.0, False),
+    **{name: (low, high, False) for name, (low, high) in TWO_STEP_BOUNDS.items()},  # two-stage task
 }
 DISTRIBUTIONS = {"lognormal": ("median", "sigma"), "normal": ("mean", "sd"), "uniform": ("lo", "hi"),
                  "fixed": ("value",)}
@@ -196,10 +201,12 @@ def _group(name: str, table, base: pathlib.Path, problems: list[str]) -> Group |
         preset = "typical"
     elif preset is None:
         problems.append(f"{path}: needs preset = one of {', '.join(PRESETS)} (or fitted = \"FIT.json\")")
-    elif preset not in PRESETS:
-        near = closest(str(preset), list(PRESETS))
+    elif preset not in PRESETS and preset not in TWO_STEP_PRESETS:
+        near = closest(str(preset), [*PRESETS, *TWO_STEP_PRESETS])
         hint = f"; did you mean {near!r}?" if near else ""
-        problems.append(f"{path}.preset: {preset!r} is not a preset (presets: {', '.join(PRESETS)}){hint}")
+        agents = ", ".join(p for p in TWO_STEP_PRESETS if p not in PRESETS)
+        problems.append(f"{path}.preset: {preset!r} is not a preset (presets: {', '.join(PRESETS)}; "
+                        f"two-stage task also {agents}){hint}")
     for key, value in table.items():
         if key in _GROUP_KEYS:
             continue

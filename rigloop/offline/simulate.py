@@ -47,6 +47,7 @@ import numpy as np
 from ..core.step import begin_session, session_seed, step
 from ..core.subject import SubjectState, new_subject
 from ..core.trial import CuePresentation, Decision, Outcome, Response, TrialEvent
+from ..core.two_step.params import NAMES as TWO_STEP_NAMES
 from ..errors import BadArgument
 from ..store import SessionInfo
 
@@ -383,9 +384,11 @@ def preset_animal(preset: str, rules, subject: str, seed: int, **overrides) -> S
     among them) win over both. A rule file whose learner is ``two_step`` gets a
     ``TwoStepAnimal`` instead (offline/two_step_sim.py: multi-step trials)."""
     if rules.learner.name == "two_step":
-        from .two_step_sim import two_step_animal
+        from .two_step_sim import OVERRIDES, two_step_animal
 
-        return two_step_animal(preset, subject, seed, states=tuple(rules.spec.cues))
+        own = {name: value for name, value in overrides.items() if name in OVERRIDES}  # not the cue task's
+        return two_step_animal(preset, subject, seed, states=tuple(rules.spec.cues), **own)
+    overrides = {name: value for name, value in overrides.items() if name not in TWO_STEP_NAMES}
     params = preset_parameters(preset)
     if params.pop("two_step_only", False):
         raise BadArgument("preset", f"an animal for this rule file's task ({', '.join(PRESETS)}); {preset!r} plays "

@@ -76,8 +76,9 @@ def spec_from_rules(rules, learner: str | None = None, link: str | None = None) 
     name = learner or rules.learner.name
     if name == "two_step":  # multi-step trials: fitted from (a1, s2, a2, reward), not cue rows
         raise BadArgument("learner", "a learner of cue values; sessions of the two_step learner are fitted by "
-                                     "`rigloop two-step` from each trial's first action, second-stage state, second "
-                                     "action and reward", name)
+                                     "`rigloop fit --learner hybrid` (or model_free, model_based, successor; in "
+                                     "Python rigloop.fit.two_step) from each trial's first action, second-stage "
+                                     "state, second action and reward", name)
     model_parameters(name)  # unknown name: a clear error now
     reward_learner = LEARNERS[name].kind == "reward"
     if reward_learner and rep.timed:

@@ -3,12 +3,12 @@
 from __future__ import annotations
 
 import io
-import os
 import subprocess
 import sys
 from pathlib import Path
 
 import pytest
+from test_progress import _on_pty  # the same pseudo-terminal run as the other progress tests
 
 from rigloop.offline import export as export_module
 from rigloop.offline.sweep import simulate_many
@@ -37,27 +37,6 @@ def test_progress_counts_every_row_against_the_trials_in_scope(db, monkeypatch):
         total = {0: 120, 1: 60, 2: 30}[len(scope)]
         assert n == total and seen[0] == (0, total) and seen[-1] == (total, total)
         assert [d for d, _ in seen[1:-1]] == list(range(7, total, 7))
-
-
-def _on_pty(argv: list[str]) -> str:
-    """What a terminal shows when ``argv`` runs with stdout and stderr on a fresh pseudo-terminal."""
-    if not hasattr(os, "openpty"):
-        pytest.skip("no pseudo-terminals here")
-    main, child = os.openpty()
-    proc = subprocess.Popen(argv, stdout=child, stderr=child, cwd=ROOT)
-    os.close(child)
-    chunks = []
-    while True:
-        try:
-            data = os.read(main, 4096)
-        except OSError:  # the child closed the terminal
-            break
-        if not data:
-            break
-        chunks.append(data)
-    os.close(main)
-    assert proc.wait(timeout=60) == 0
-    return b"".join(chunks).decode("utf-8", "replace")
 
 
 def test_export_draws_a_bar_on_a_terminal_only(db, tmp_path):

@@ -276,7 +276,7 @@ def test_fit_from_store_uses_the_rule_file(store_path):
 
     with Store(store_path, create=False) as store:
         result = fit.fit_from_store(store, "m01", starts=2)
-        with pytest.raises(BadArgument, match=r"^'session' must be one of 'm01''s sessions"):
+        with pytest.raises(BadArgument, match=r"^'session' must be one of m01's sessions"):
             fit.fit_from_store(store, "m01", session="s9")
     assert result.learner == "kalman_filter" and result.representation == "identity"
     assert result.fixed == {"noise": 0.3} and result.n_events == 80

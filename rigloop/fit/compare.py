@@ -192,7 +192,7 @@ def fit_from_store(
     sessions or more). A name in fix, bounds or start that no fitted model has is refused
     with the valid ones (``option_names``: what the three are called in the message).
     """
-    infos = _stored_sessions(store, subject, session)
+    infos = stored_sessions(store, subject, session)
     rules = _session_rules(infos)
     events = [e for info in infos for e in store.trials(subject, info.session)]
     link = link or link_for(events)
@@ -219,17 +219,18 @@ def _check_parameter_names(specs: Sequence[ModelSpec], link: str, option_names: 
             check_name(option, f"a parameter of {learners} with the {link} link", name, valid)
 
 
-def _stored_sessions(store, subject: str, session: str | None) -> list:
-    """The subject's stored sessions in order (only ``session`` when one is named)."""
+def stored_sessions(store, subject: str, session: str | None = None, *,
+                    options: tuple[str, str] = ("subject", "session")) -> list:
+    """The subject's stored sessions in order (only ``session`` when one is named); an
+    unknown subject or session is refused under ``options`` (the caller's argument names)."""
     infos = store.sessions(subject)
     if not infos:
         known = ", ".join(store.subjects()) or "none"
-        raise BadArgument("subject", f"a subject with stored sessions (subjects: {known})", subject)
+        raise BadArgument(options[0], f"a subject with stored sessions (subjects: {known})", subject)
     if session is not None:
         names = [i.session for i in infos]
         if session not in names:
-            raise BadArgument("session", f"one of {subject!r}'s sessions ({', '.join(names)})",
-                              session)
+            raise BadArgument(options[1], f"one of {subject}'s sessions ({', '.join(names)})", session)
         infos = [i for i in infos if i.session == session]
     return infos
 

@@ -19,6 +19,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..errors import BadArgument
+from .compare import stored_sessions
 from .two_step import TwoStepData
 
 TWO_STEP_LEARNER = "two_step"
@@ -44,20 +45,6 @@ class StoredTwoStep:
                 "left out, as the live learner learned nothing from them"]
 
 
-def session_infos(store, subject: str, session: str | None = None) -> list:
-    """The subject's stored sessions in order (only ``session`` when one is named)."""
-    infos = store.sessions(subject)
-    if not infos:
-        known = ", ".join(store.subjects()) or "none"
-        raise BadArgument("--subject", f"a subject with stored sessions (subjects: {known})", subject)
-    if session is not None:
-        names = [i.session for i in infos]
-        if session not in names:
-            raise BadArgument("--session", f"one of {subject}'s sessions ({', '.join(names)})", session)
-        infos = [i for i in infos if i.session == session]
-    return infos
-
-
 def session_learners(infos: Sequence) -> list:
     """The loaded rule file of each session (parsed once per distinct file)."""
     from ..replay import RulesCache
@@ -70,7 +57,7 @@ def session_learners(infos: Sequence) -> list:
 def is_two_step(store, subject: str, session: str | None = None) -> bool:
     """Whether the subject's sessions (or ``session``) are two-step sessions; a mix of
     two-step and one-step sessions is refused (fit them separately with --session)."""
-    infos = session_infos(store, subject, session)
+    infos = stored_sessions(store, subject, session, options=("--subject", "--session"))
     rules = session_learners(infos)
     kinds = [r.learner.name == TWO_STEP_LEARNER for r in rules]
     if all(kinds):
@@ -88,7 +75,7 @@ def read_two_step(store, subject: str, session: str | None = None) -> StoredTwoS
     """The subject's two-step trials (every session in order, or only ``session``)."""
     from ..core.step_rows import StepRows
 
-    infos = session_infos(store, subject, session)
+    infos = stored_sessions(store, subject, session, options=("--subject", "--session"))
     rules = session_learners(infos)
     states = None
     for info, r in zip(infos, rules, strict=True):

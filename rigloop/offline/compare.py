@@ -15,6 +15,11 @@ The judge reads each trial's truth from the animal itself (``SimulatedAnimal.las
 without a store the events carry no truth in ``extra`` (``step`` never reads it), so
 no map is built and checked per trial. With a store they carry it, as ``simulate``'s do.
 
+Without a store, a rule file whose decisions never read the learner (every shipped
+lick and choice example) runs each trial through ``lockstep.decide_step`` instead of
+``step``: the same decisions and schedule bit for bit, without the learner and the
+per-trial quantities nothing here keeps (``lockstep.path_for`` says which path and why).
+
 Memory stays flat in the number of days: a session's trials are reduced as they come
 (``RunningTruth`` judges blocks against the truth on the fly, as ``truth.block_timing``
 does over a whole history) and only per-day numbers are kept. With ``db``, each
@@ -31,6 +36,7 @@ from dataclasses import dataclass, field
 from ..core.step import begin_session, session_seed, step
 from ..core.subject import new_subject
 from . import truth
+from .lockstep import DECISIONS_ONLY, decide_step, path_for
 
 TRIAL_S = 8.0  # seconds from one trial's start to the next (the simulate default)
 DAY_S = 86400.0
@@ -202,6 +208,7 @@ def run_animal(task: AnimalTask) -> AnimalResult:
 
         store = Store(task.db)
     state = new_subject(name, rules)
+    lean = path_for(rules, task.db)[0] == DECISIONS_ONLY  # no learner, no quantities (offline/lockstep)
     n = 0
     stage_now = None
     try:
@@ -220,7 +227,10 @@ def run_animal(task: AnimalTask) -> AnimalResult:
                 while not decision.end_session and trials < cap:
                     event = animal.trial(decision, "sim-rig", t)
                     under = decision
-                    state, decision, update = step(state, event, rules)
+                    if lean:
+                        state, decision = decide_step(state, event, rules, learn=False)
+                    else:
+                        state, decision, update = step(state, event, rules)
                     trials += 1
                     n += 1
                     if stage_now is not None and under.stage != stage_now and stage_now not in res.stage_trial:

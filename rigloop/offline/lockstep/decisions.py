@@ -1,0 +1,103 @@
+"""``step`` for a simulation that stores nothing: the decision and the state it rests on, no more.
+
+``decide_step(state, event, rules, learn=...)`` returns ``step``'s next state and
+decision, bit for bit, without the per-trial quantities (values at onset, prediction
+errors, surprise, the behaviour bands, p_model: they are stored and exported, and
+nothing here stores). With ``learn=False`` the learner is not run either; that is only
+right for a rule file whose decisions never read it (``support.learner_free``), and then
+the learner in the returned state stays where it was (the prior, for a simulated animal).
+The view the rules read holds a stand-in that raises ``LearnerRead`` if anything asks
+it for a value, so a rule file the check let through by mistake fails loudly instead of
+deciding from a stale learner.
+
+The event comes from a simulated animal answering the previous decision, so the checks
+``step`` makes on events from a rig (subject, session, trial number, known cues) are
+left out. What remains is ``step``'s own sequence, in its order: the response read for
+the behaviour estimate, the learning curves, the behaviour estimate, the choice history,
+the schedule's observation, the decision.
+"""
+
+from __future__ import annotations
+
+from ...core import behaviour as B
+from ...core.curve import LearningCurve, _updated_state
+from ...core.experience import _action_cues, _actions_table, _is_go, _punishments, _scored
+from ...core.learner_setup import representation_for
+from ...core.quantities import _choice_cues, _cue_ids
+from ...core.responses import choice_code, history_step
+from ...core.step import _decide
+from ...core.subject import ALL, SubjectState
+
+
+class LearnerRead(RuntimeError):
+    """A decision read the learner on the path that does not run it (a bug in ``support``)."""
+
+
+class _NoLearner:
+    """What the rules' view holds instead of a learner that was not run."""
+
+    __slots__ = ()
+
+    def __getattr__(self, name):
+        raise LearnerRead(f"a decision read the learner ({name}) on the simulation path that does not run it; "
+                          "offline/lockstep/support.learner_free should have refused this rule file")
+
+
+NO_LEARNER = _NoLearner()
+
+
+def decide_step(state: SubjectState, event, rules, *, learn: bool = True):
+    """(next state, decision) as ``step(state, event, rules)`` gives them (see the module docstring)."""
+    ctx = state.context
+    spec = rules.spec
+    cue_ids = _cue_ids(event)
+    scored_cue = cue_ids[0] if cue_ids else None
+    choice_cues = _choice_cues(spec)
+    kind = B.RIGHT if scored_cue in choice_cues else B.RESPOND
+    did = None
+    if scored_cue is not None:
+        did = B.observed(event, kind)
+        if did is None and event.response.value is None and kind == B.RESPOND:
+            did = B.observed(event, kind, _is_go(spec, state.schedule, scored_cue))
+
+    rep = representation_for(rules)
+    if learn:
+        actions = _actions_table(rules)
+        learner_cues = None if actions is None else _action_cues(event, kind, did)
+        rows = rep._event_rows(event, rules.reward_unit_ul, learner_cues, _punishments(spec, event))
+        learner, _, finite = state.learner._learned(rows.X, rows.r)
+        seen = learner
+    else:
+        learner, finite, seen = state.learner, None, NO_LEARNER
+
+    scored = _scored(event)
+    curves = dict(state.curves)
+    fresh: dict[str, LearningCurve] = {}
+    if scored is not None:
+        perf = spec.performance
+        for cond in (ALL, *cue_ids):
+            data = state.curves.get(cond)
+            new = None if data is None else _updated_state(data, scored)
+            if new is None:
+                curve = LearningCurve(perf.chance, perf.sigma2) if data is None else LearningCurve.from_state(data)
+                curve.update(scored)
+                new = curve.state()
+                fresh[cond] = curve
+            curves[cond] = new
+
+    behaviour = state.behaviour
+    if did is not None:
+        beh = spec.behaviour
+        behaviour = dict(behaviour)
+        behaviour[scored_cue] = B.updated(behaviour.get(scored_cue), did, beh.sigma2, beh.prior_var)
+    history = state.choice_history
+    side = event.response.value
+    if side == "left" or side == "right":
+        history = float(history_step(history, choice_code(side), spec.response.decay))
+
+    schedule = rules.observe(state.schedule, event)
+    schedule, decision = _decide(state.subject, ctx, rules, rep, seen, curves, schedule, event.trial + 1,
+                                 fresh_curves=fresh, finite=finite, behaviour=behaviour)
+    next_state = SubjectState(state.subject, learner, state.learner_key, curves, schedule, ctx, event.trial,
+                              state.trials_total + 1, state.notes, behaviour, history)
+    return next_state, decision

@@ -104,6 +104,7 @@ def run_compare(rules: list[str], *, population: str, animals: int, days: int, s
               file=stdout)
         return 0
     print(format_text(doc), end="", file=stdout)
+    print(_paths_line(entries, db), file=stdout)
     for f in figures:
         print(f"figure: {f}", file=stdout)
     if csv_path:
@@ -111,3 +112,14 @@ def run_compare(rules: list[str], *, population: str, animals: int, days: int, s
     if db:
         print(f"every simulated trial is stored in {db}", file=stdout)
     return 0
+
+
+def _paths_line(entries, db) -> str:
+    """Which simulation path each rule file took and why (offline/lockstep.path_for), one line."""
+    from ..offline.lockstep import path_for
+
+    groups: dict[tuple[str, str], list[str]] = {}
+    for name, rules in entries:
+        groups.setdefault(path_for(rules, db), []).append(name)
+    return "simulated with: " + "; ".join(f"{path} for {', '.join(names)} ({why})"
+                                          for (path, why), names in groups.items())

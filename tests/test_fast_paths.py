@@ -248,3 +248,75 @@ def test_kalman_td_copy_sets_every_slot_as_the_general_path():
     resting = KalmanTD(4)
     resting._rest()
     assert resting.copy()._A.tobytes() == Learner.copy(resting)._A.tobytes()  # (the general path)
+
+
+def _kalman_cases(rng):
+    """Kalman TD learners and rows of the kinds steps meet: one-hot serial-compound rows,
+    sparse and dense rows, no diffusion, γ = 0 and 1, and states far from the prior."""
+    for k in range(120):
+        n = int(rng.integers(1, 20))
+        params = dict(gamma=float(rng.choice([0.0, 0.9, 0.95, 1.0])), diffusion=float(rng.choice([0.0, 5e-4, 0.05])),
+                      noise=float(rng.choice([0.2, 1.0, 3.0])), prior_var=float(rng.choice([0.0, 1.0, 10.0])))
+        kind = k % 3
+        T = int(rng.integers(1, 9))
+        if kind == 0:  # serial compound: one feature at 1 per represented row, empty rows around it
+            X = np.zeros((T, n))
+            for t in range(T):
+                if rng.random() < 0.7:
+                    X[t, int(rng.integers(0, n))] = 1.0
+        elif kind == 1:
+            X = (rng.random((T, n)) < 0.3) * rng.normal(size=(T, n))
+        else:
+            X = rng.normal(size=(T, n))
+        yield n, params, X, rng.normal(size=T) * (rng.random(T) < 0.5)
+
+
+def test_kalman_td_trial_equals_its_reference():
+    """KalmanTD._trial (each correction written out in the loop) gives _trial_reference's
+    bits (one _observe per row): errors, values, variances and the state after, on the
+    finite path and on the full one."""
+    from rigloop.core.learners import KalmanTD
+    from rigloop.core.learners.kalman_td import _TrialRows
+
+    rng = np.random.default_rng(21)
+    for n, params, X, r in _kalman_cases(rng):
+        start = KalmanTD(n, **params)
+        start.learn_trial(rng.normal(size=(3, n)), rng.normal(size=3))
+        rows = _TrialRows(np.ascontiguousarray(X), start.gamma)
+        for finite in (True, False):
+            a, b = start.copy(), start.copy()
+            got, ref = a._trial(rows, r, finite), b._trial_reference(rows, r, finite)
+            for name in ("values", "errors", "variances"):
+                assert getattr(got, name).tobytes() == getattr(ref, name).tobytes(), name
+            assert a._A.tobytes() == b._A.tobytes()
+
+
+def test_kalman_td_update_equals_its_reference():
+    """KalmanTD.update (_observe written out, the scale through a 0-d array) gives
+    _update_reference's bits, step after step, and refuses what it refuses; its scratch
+    is dropped at rest and made again."""
+    from rigloop.core.learners import KalmanTD
+
+    rng = np.random.default_rng(22)
+    for n, params, X, r in _kalman_cases(rng):
+        a, b = KalmanTD(n, **params), KalmanTD(n, **params)
+        for t in range(len(X)):
+            x_next = X[t + 1] if t + 1 < len(X) else np.zeros(n)
+            assert _bits(a.update(X[t], x_next, float(r[t]))) == _bits(b._update_reference(X[t], x_next, float(r[t])))
+            assert a._A.tobytes() == b._A.tobytes()
+        a._rest()
+        b._rest()
+        assert _bits(a.update(X[0], X[0], 0.5)) == _bits(b._update_reference(X[0], X[0], 0.5))
+        assert a._A.tobytes() == b._A.tobytes()
+    learner, x = KalmanTD(3), np.ones(3)
+    with np.errstate(all="ignore"):
+        with pytest.raises(Exception) as fast:
+            learner.update(x * np.inf, x, 1.0)
+        with pytest.raises(Exception) as ref:
+            KalmanTD(3)._update_reference(x * np.inf, x, 1.0)
+        assert type(fast.value) is type(ref.value) and str(fast.value) == str(ref.value)
+        huge = KalmanTD(2, prior_var=1e308)
+        with pytest.raises(Exception) as fast:
+            for _ in range(3):
+                huge.update(np.array([1e200, 1e200]), np.zeros(2), 1.0)
+    assert "positive semi-definite" in str(fast.value) or "finite" in str(fast.value)

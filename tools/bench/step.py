@@ -88,6 +88,10 @@ def tricks() -> dict[str, dict[str, float]]:
     outcomes = [(t, a / 4.0) for t, a in event.outcome_events()]
     behaviour = {"tone_hi": (1.2, 0.4, 20), "tone_lo": (-0.8, 0.5, 18)}
     learner = state.learner  # the file's Kalman TD learner, working form
+    from rigloop.core.learners.kalman_td import _rows_of
+
+    trial_rows = rep._event_rows(event, 4.0)
+    kept_rows = _rows_of(trial_rows.X, learner.gamma)
     probs = rng.uniform(0.0, 1.0, 24)  # the Gauss-Hermite nodes' probabilities d' clips
     b_means = itertools.cycle(np.linspace(-1.0, 0.5, 97).tolist())  # cue b moves, cue a stays (as between trials)
     return {
@@ -117,6 +121,9 @@ def tricks() -> dict[str, dict[str, float]]:
             lambda: curve._updated_state_reference(curve_state, True), 20000),
         "d' clip as two ufuncs vs np.clip": _pair(lambda: behaviour_module._clip(probs, 1e-300, 1.0 - 1e-16),
                                                   lambda: np.clip(probs, 1e-300, 1.0 - 1e-16), 20000),
+        "Kalman TD trial, corrections inline vs _observe": _pair(
+            lambda: learner.copy()._trial(kept_rows, trial_rows.r, True),
+            lambda: learner.copy()._trial_reference(kept_rows, trial_rows.r, True), 5000),
         "behaviour quantities vs reference": _pair(
             lambda: quantities._behaviour_quantities({}, rules.spec, behaviour),
             lambda: quantities._behaviour_quantities_reference({}, rules.spec, behaviour), 20000),

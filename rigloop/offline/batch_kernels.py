@@ -47,6 +47,16 @@ ENV_OFF = "RIGLOOP_NO_NUMBA"
 # (measured on 2 cores: a 6-subject learn_steps call)
 PARALLEL_MIN_STEPS = 2048
 
+# LLVM's SLP vectoriser packs independent scalar operations side by side into vector
+# instructions: the four parameter sets of ``_kalman_lanes``, written out lane by lane,
+# become one vector operation each (about a fifth off a fit's kernel time, measured in
+# tools/bench/fit.py). numba leaves that pass off by default; it only groups operations,
+# never reorders a sum or fuses a multiply-add, so every number stays the same bit for
+# bit (tests/test_fit_fast.py, tests/test_batch.py). Read when a kernel is compiled;
+# NUMBA_SLP_VECTORIZE in the environment still decides when it is set.
+if "NUMBA_SLP_VECTORIZE" not in os.environ:
+    numba.config.SLP_VECTORIZE = 1
+
 _parallel_lock = threading.Lock()
 _forked = [False]
 os.register_at_fork(after_in_child=lambda: _forked.__setitem__(0, True))
@@ -362,9 +372,10 @@ def _kalman_probes(A, X, r, bounds, probes, has, hptr, hidx, learns, g, tau2, no
 # free parameters, and a step of one set waits on its square root and division). Each
 # set's numbers are ``_kalman_probes``'s bit for bit (the same operations in the same
 # order; the union of the sets' non-zero entries of u adds exact zeros to a set where
-# its own entry is zero). tests/test_fit_fast.py pins that.
+# its own entry is zero). tests/test_fit_fast.py pins that. The hot loops are written
+# out for the four lanes (x0 .. x3), so that the SLP vectoriser (above) finds them.
 
-LANES = 4
+LANES = 4  # _kalman_lanes writes its hot loops out for exactly four
 
 
 @njit(cache=True, nogil=True)
@@ -428,17 +439,24 @@ def _kalman_lanes(A, X, r, bounds, probes, has, hptr, hidx, learns, g, tau2, noi
                 if status[p] == 0 and not math.isfinite(hw[p]):
                     status[p] = 1
             # Σ⁻ = Σ + τ²I (τ² = 0 adds an exact zero to a positive variance), u ← Σ⁻h
+            t0, t1, t2, t3 = tau2[0], tau2[1], tau2[2], tau2[3]
             for i in range(n):
-                for p in range(LANES):
-                    A[i, i, p] += tau2[p]
-            for i in range(n):
-                for p in range(LANES):
-                    u[i, p] = 0.0
+                A[i, i, 0] += t0
+                A[i, i, 1] += t1
+                A[i, i, 2] += t2
+                A[i, i, 3] += t3
+                u[i, 0] = 0.0
+                u[i, 1] = 0.0
+                u[i, 2] = 0.0
+                u[i, 3] = 0.0
             for a in range(a0, a1):
                 j = hidx[a]
+                h0, h1, h2, h3 = h[j, 0], h[j, 1], h[j, 2], h[j, 3]
                 for i in range(n):
-                    for p in range(LANES):
-                        u[i, p] += A[j, i, p] * h[j, p]
+                    u[i, 0] += A[j, i, 0] * h0
+                    u[i, 1] += A[j, i, 1] * h1
+                    u[i, 2] += A[j, i, 2] * h2
+                    u[i, 3] += A[j, i, 3] * h3
             # s = hᵀΣ⁻h + σ_r²
             for p in range(LANES):
                 hu[p] = 0.0
@@ -453,26 +471,37 @@ def _kalman_lanes(A, X, r, bounds, probes, has, hptr, hidx, learns, g, tau2, noi
                 rs[p] = 1.0 / math.sqrt(s) if s > 0.0 else 0.0
             # u = Σ⁻h/√s and the union of the sets' non-zero entries
             m = 0
+            r0, r1, r2, r3 = rs[0], rs[1], rs[2], rs[3]
             for i in range(n):
-                on = False
-                for p in range(LANES):
-                    u[i, p] *= rs[p]
-                    if u[i, p] != 0.0:
-                        on = True
-                if on:
+                v0 = u[i, 0] * r0
+                v1 = u[i, 1] * r1
+                v2 = u[i, 2] * r2
+                v3 = u[i, 3] * r3
+                u[i, 0] = v0
+                u[i, 1] = v1
+                u[i, 2] = v2
+                u[i, 3] = v3
+                if v0 != 0.0 or v1 != 0.0 or v2 != 0.0 or v3 != 0.0:
                     nzu[m] = i
                     m += 1
             for p in range(LANES):
                 hw[p] *= rs[p]
             # Σ ← Σ⁻ − u uᵀ;  ŵ ← ŵ + (δ/√s) u
+            c0, c1, c2, c3 = hw[0], hw[1], hw[2], hw[3]
             for a in range(m):
                 i = nzu[a]
+                u0, u1, u2, u3 = u[i, 0], u[i, 1], u[i, 2], u[i, 3]
                 for b in range(m):
                     j = nzu[b]
-                    for p in range(LANES):
-                        A[i, j, p] -= u[i, p] * u[j, p]
-                for p in range(LANES):
-                    A[n, i, p] += hw[p] * u[i, p]
+                    w0, w1, w2, w3 = u[j, 0], u[j, 1], u[j, 2], u[j, 3]
+                    A[i, j, 0] -= u0 * w0
+                    A[i, j, 1] -= u1 * w1
+                    A[i, j, 2] -= u2 * w2
+                    A[i, j, 3] -= u3 * w3
+                A[n, i, 0] += c0 * u0
+                A[n, i, 1] += c1 * u1
+                A[n, i, 2] += c2 * u2
+                A[n, i, 3] += c3 * u3
 
 
 @njit(cache=True, nogil=True)

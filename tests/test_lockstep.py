@@ -120,3 +120,30 @@ def test_a_decision_that_reads_the_learner_fails_loudly_without_one():
         _run(rules, "typical", "lean", sessions=1, cap=3)
     assert _run(rules, "typical", "learn", sessions=1, cap=30)[0] == _run(rules, "typical", "step", sessions=1,
                                                                           cap=30)[0]
+
+
+def test_simulate_summaries_equal_on_both_paths(monkeypatch):
+    """rigloop simulate's per-subject summaries (blocks, stages, water, truth timing) do not depend on the path."""
+    from rigloop.offline import sweep
+
+    rules = load_any("tone_reversal")
+    args = [(rules.text, rules.source, f"m{i}", 100 + i, 2, 200, None, None, preset)
+            for i, preset in enumerate(("fast_learner", "non_discriminator"))]
+    lean = [sweep.simulate_item(a) for a in args]
+    monkeypatch.setattr(sweep, "path_for", lambda rules, db=None: (PER_SUBJECT, "forced by the test"))
+    assert [sweep.simulate_item(a) for a in args] == lean
+    assert lean[0].blocks  # the fast learner's blocks changed
+
+
+def test_simulate_session_refuses_decisions_only_where_it_does_not_hold(tmp_path):
+    from rigloop.errors import BadArgument
+    from rigloop.offline.simulate import simulate_session
+    from rigloop.store import Store
+
+    rules = load_any("tone_reversal")
+    with Store(str(tmp_path / "s.sqlite")) as store, pytest.raises(BadArgument, match="decisions_only"):
+        simulate_session(rules, preset_animal("typical", rules, "m1", 1), session="s1", store=store,
+                         decisions_only=True)
+    two = load_any("two_step")
+    with pytest.raises(BadArgument, match="two_step"):
+        simulate_session(two, preset_animal("typical", two, "m1", 1), session="s1", decisions_only=True)

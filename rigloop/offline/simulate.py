@@ -430,6 +430,7 @@ def simulate_session(
     max_trials: int = 500,
     store=None,
     snapshot_every: int = 0,
+    decisions_only: bool = False,
 ) -> SessionRun:
     """One session of ``animal`` under ``rules``, through ``begin_session`` and ``step``.
 
@@ -439,7 +440,18 @@ def simulate_session(
     ``snapshot_every`` = N > 0 the state after every N-th trial (and the last) is kept.
     No rig waits for a reply here, so the session's trials are committed together, one
     transaction for the animal-day (the stored rows are those of trial-by-trial commits).
+
+    ``decisions_only``: each trial runs ``lockstep.decide_step`` without the learner, so
+    the run's ``updates`` stay empty and its state keeps the learner it started with; the
+    decisions are ``step``'s bit for bit. Only for a rule file none of whose decisions read
+    the learner, and without a store (``lockstep.path_for`` says when).
     """
+    if decisions_only:
+        from .lockstep import DECISIONS_ONLY, path_for
+
+        path, why = path_for(rules, store)
+        if path != DECISIONS_ONLY:
+            raise BadArgument("decisions_only", "False for this run (it needs the per-subject step)", why)
     state, decision, info = open_simulated_session(rules, animal.subject, session, state=state, rig=rig,
                                                    start_time=start_time)
     if store is not None:
@@ -449,6 +461,12 @@ def simulate_session(
     t = start_time
     while not decision.end_session and len(run.events) < max_trials:
         event = animal.trial(decision, rig, t)
+        if decisions_only:
+            state, decision = _decide_only(state, event, rules, learn=False)
+            run.events.append(event)
+            run.decisions.append(decision)
+            t += trial_s
+            continue
         state, decision, update = step(state, event, rules)
         if store is not None:
             last = decision.end_session or len(run.events) + 1 >= max_trials
@@ -462,6 +480,12 @@ def simulate_session(
         commit_day(store, items)
     run.state = state
     return run
+
+
+def _decide_only(state, event, rules, *, learn: bool):
+    from .lockstep import decide_step
+
+    return decide_step(state, event, rules, learn=learn)
 
 
 def open_simulated_session(rules, subject: str, session: str, *, state: SubjectState | None = None,

@@ -7,6 +7,8 @@ the rule file's *text*, so it pickles cheaply and parses once per worker.
 Simulated animals carry their truth with every trial (``simulate.py``), so each
 subject's summary also says, from ``truth.py``, when it left each stage and how far
 each block's end fell behind (or ran ahead of) the animal's true discrimination.
+Without a store, a rule file whose decisions never read the learner runs its trials on
+the decisions-only path (``offline/lockstep``): the same summaries, no learner.
 """
 
 from __future__ import annotations
@@ -21,6 +23,7 @@ from dataclasses import dataclass, field
 from ..errors import BadArgument
 from . import truth
 from .executors import run_ordered
+from .lockstep import DECISIONS_ONLY, path_for
 from .simulate import (PRESETS, SimulatedAnimal, open_simulated_session, preset_animal, preset_parameters,
                        simulate_session)
 
@@ -58,6 +61,7 @@ def simulate_subject(rules_text: str, rules_source: str, subject: str, seed: int
     from ..rules import load_rules
 
     rules = _rules_for(rules_text, rules_source, load_rules)
+    lean = path_for(rules, db)[0] == DECISIONS_ONLY  # the summary reads decisions and events only
     sim = preset_animal(animal, rules, subject, seed, task=task)
     out = SubjectSummary(subject, animal=animal)
     state = None
@@ -71,7 +75,7 @@ def simulate_subject(rules_text: str, rules_source: str, subject: str, seed: int
     try:
         for k in range(sessions):
             kw = dict(session=f"sim{k + 1:02d}", state=state, start_time=1.8e9 + 86400 * k, max_trials=max_trials)
-            run = simulate_session(rules, sim, store=store, **kw)
+            run = simulate_session(rules, sim, store=store, decisions_only=lean, **kw)
             judged.extend(truth.truth_trials([run], start=total + 1))
             state = run.state
             prev = run.first

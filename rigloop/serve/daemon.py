@@ -20,6 +20,7 @@ tools and tests know where to connect; it is removed on a clean exit.
 
 from __future__ import annotations
 
+import gc
 import json
 import os
 import signal
@@ -125,6 +126,7 @@ class Daemon:
         self.zmq_port: ZmqPort | None = None
         self.subjects: Subjects | None = None
         self.service: Service | None = None
+        self.freeze_heap = False  # serve() sets it: the process is the daemon's alone
 
     # -- running ----------------------------------------------------------------
 
@@ -137,6 +139,13 @@ class Daemon:
             self._teardown()
             self.ready.set()
             raise
+        if self.freeze_heap:
+            # everything built so far (modules, rule files, sockets) lives as long as the
+            # process: out of the cyclic collector's sight, a full collection need not walk
+            # it (~37,000 objects, 14 ms of CPU on the shared 2-core machine, during which
+            # no rig is answered); garbage made from now on is collected as before
+            gc.collect()
+            gc.freeze()
         self.ready.set()
         try:
             self._loop()
@@ -373,6 +382,8 @@ class Daemon:
                        **self.metrics.queues(self.settings.batch_max)},
             "serial": self.serial.statistics() if self.serial is not None else [],
             "rules": sorted(self.rules),
+            # the cyclic collector: objects kept out of its walks, and collections per generation
+            "gc": {"frozen": gc.get_freeze_count(), "collections": [g["collections"] for g in gc.get_stats()]},
         }
 
 
@@ -389,5 +400,6 @@ def serve(settings: Settings, *, log_stream=None, log_level: str = "info", log_f
     the daemon, serve until a signal."""
     configure_logging(log_stream, log_level, log_format)
     daemon = Daemon(settings)
+    daemon.freeze_heap = True
     daemon.install_signal_handlers()
     return daemon.run()

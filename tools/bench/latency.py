@@ -44,7 +44,7 @@ from rigloop.offline.simulate import SimulatedAnimal  # noqa: E402
 from rigloop.testing import DaemonProcess, ZmqRig  # noqa: E402
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from load import cpu_seconds  # noqa: E402  (the same /proc reading as the load bench)
+from load import cpu_by_thread, cpu_seconds, per_trial_ms  # noqa: E402  (the same /proc readings as the load bench)
 
 RULES = "tone_reversal"
 TARGET_RATIO = 1.5  # median trial round trip / median bare durable echo, same run
@@ -255,9 +255,11 @@ def main(argv: list[str] | None = None) -> int:
                 continue
             if cpu_start is None:
                 cpu_start = cpu_seconds(daemon.proc.pid)  # from here: the daemon's CPU time for the counted trials
+                threads_start = cpu_by_thread(daemon.proc.pid)
             trial_ms.append((t1 - t0) * 1e3)
             echo_ms.append((t2 - t1) * 1e3)
         cpu_ms = 1e3 * (cpu_seconds(daemon.proc.pid) - cpu_start) / max(1, len(trial_ms) - 1)
+        threads_ms = per_trial_ms(threads_start, cpu_by_thread(daemon.proc.pid), len(trial_ms) - 1)
         status = rig.status()
         bare.send(b"stop")
         bare.close()
@@ -278,6 +280,7 @@ def main(argv: list[str] | None = None) -> int:
         "daemon_p50_ms": status["latency_ms"]["p50"],
         "daemon_p99_ms": status["latency_ms"]["p99"],
         "daemon_cpu_ms_per_trial": round(cpu_ms, 3),
+        "daemon_cpu_ms_by_thread": threads_ms,
         "target": {"median_ratio": TARGET_RATIO, "p99_ms": TARGET_P99_MS},
     }
     result["pass"] = result["median_ratio"] <= TARGET_RATIO and result["p99_ms"] <= TARGET_P99_MS
@@ -290,6 +293,9 @@ def main(argv: list[str] | None = None) -> int:
         print(f"trial round trip  median {med_t:.3f} ms  p99 {result['p99_ms']:.3f} ms  ({len(trial_ms)} trials)")
         print(f"echo + fdatasync  median {med_e:.3f} ms  p99 {result['p99_echo_ms']:.3f} ms")
         print(f"daemon CPU        {result['daemon_cpu_ms_per_trial']:.3f} ms a trial (moves least with the machine's load)")
+        if threads_ms:
+            print("  by thread       " + ", ".join(f"{k} {v:.3f}" for k, v in threads_ms.items())
+                  + " (loop: sockets, decode, step, the commit when idle, replies)")
         print(f"ratio (median)    {result['median_ratio']:.2f}x   target <= {TARGET_RATIO}x, p99 <= "
               f"{TARGET_P99_MS:.0f} ms: {'PASS' if result['pass'] else 'FAIL'}")
         if args.breakdown:

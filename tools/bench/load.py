@@ -64,6 +64,38 @@ def cpu_seconds(pid: int) -> float:
         return 0.0
 
 
+def cpu_by_thread(pid: int) -> dict[str, float]:
+    """User + system CPU seconds of process ``pid`` by kind of thread (Linux /proc; {} elsewhere):
+    ``loop`` (the main thread: sockets, decoding, step, replies, and commits made on the loop
+    when idle), ``zmq`` (libzmq's I/O threads) and ``other`` (the committer thread and the
+    store's checkpoint thread, whose SQLite work mostly runs without the GIL).
+
+    Why: the loop and the committer share one GIL, so what the loop spends per trial bounds
+    the daemon's throughput whatever the number of cores."""
+    out = {"loop": 0.0, "zmq": 0.0, "other": 0.0}
+    tick = os.sysconf("SC_CLK_TCK")
+    try:
+        tids = os.listdir(f"/proc/{pid}/task")
+    except OSError:
+        return {}
+    for tid in tids:
+        try:
+            with open(f"/proc/{pid}/task/{tid}/stat", encoding="ascii", errors="replace") as f:
+                text = f.read()
+        except OSError:
+            continue  # a thread that just ended
+        name = text[text.index("(") + 1:text.rindex(")")]
+        fields = text.rsplit(")", 1)[1].split()
+        kind = "loop" if int(tid) == pid else "zmq" if name.startswith("ZMQbg") else "other"
+        out[kind] += (int(fields[11]) + int(fields[12])) / tick
+    return out
+
+
+def per_trial_ms(before: dict[str, float], after: dict[str, float], trials: int) -> dict[str, float]:
+    """Each kind of thread's CPU ms per trial between two ``cpu_by_thread`` readings."""
+    return {k: round(1e3 * (after.get(k, 0.0) - before.get(k, 0.0)) / max(1, trials), 3) for k in after}
+
+
 class Rig:
     """One simulated rig: a socket, an animal, one request in flight."""
 
@@ -159,6 +191,7 @@ def main(argv: list[str] | None = None) -> int:
             if acked_at_measure is None and now >= measuring_from:
                 acked_at_measure, t_measure = acked, now
                 cpu_at_measure = cpu_seconds(daemon.proc.pid)
+                threads_at_measure = cpu_by_thread(daemon.proc.pid)
             for sock in poller.poll(2):
                 r = by_socket[sock]
                 while True:
@@ -203,6 +236,7 @@ def main(argv: list[str] | None = None) -> int:
         elapsed = time.perf_counter() - t_measure
         rate = (acked - acked_at_measure) / elapsed
         cpu_ms_per_trial = 1e3 * (cpu_seconds(daemon.proc.pid) - cpu_at_measure) / max(1, acked - acked_at_measure)
+        threads_ms = per_trial_ms(threads_at_measure, cpu_by_thread(daemon.proc.pid), acked - acked_at_measure)
         # let in-flight requests finish so the store check is exact
         deadline = time.perf_counter() + 5
         while any(r.rid for r in rigs) and time.perf_counter() < deadline:
@@ -247,6 +281,7 @@ def main(argv: list[str] | None = None) -> int:
         "daemon_latency_ms": status["latency_ms"],
         "daemon_ms_per_request": round(1e3 * status["busy_s"] / max(1, status["counts"]["requests"]), 3),
         "daemon_cpu_ms_per_trial": round(cpu_ms_per_trial, 3),
+        "daemon_cpu_ms_by_thread": threads_ms,
     }
     if args.interval > 0:  # paced: the rigs offer rigs / interval trials/s; all of it must be served
         target = {"trials_per_s": round(TARGET_PACED_SHARE * args.rigs / args.interval, 1),
@@ -262,6 +297,8 @@ def main(argv: list[str] | None = None) -> int:
         print(f"{args.rigs} rigs for {args.seconds:.0f} s: {rate:.0f} trials/s, p50 {result['p50_ms']} ms, "
               f"p99 {result['p99_ms']} ms, lost {lost} (acked {acked_total}, stored {stored}), "
               f"largest batch {result['batch_peak']}, daemon CPU {result['daemon_cpu_ms_per_trial']} ms a trial")
+        if threads_ms:
+            print("daemon CPU by thread (ms a trial): " + ", ".join(f"{k} {v}" for k, v in threads_ms.items()))
         mode = "paced" if args.interval > 0 else "flat out"
         print(f"target ({mode}) >= {target['trials_per_s']:g} trials/s, p99 <= {target['p99_ms']:g} ms, 0 lost: "
               f"{'PASS' if result['pass'] else 'FAIL'}")

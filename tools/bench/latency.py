@@ -86,7 +86,9 @@ def breakdown(directory: str, trials: int) -> dict:
     """Median µs of each stage a trial passes from socket to reply, in-process, same run.
 
     The daemon's own functions on one subject's session (tone_reversal): ``decode`` the
-    msgpack frame, ``validate`` it into a TrialEvent (fields, limits, the event's checks),
+    msgpack frame (plain ``unpackb``), ``validate`` it into a TrialEvent (fields, limits, the
+    event's checks: ``decode_request`` less that unpack; ``reference_decode`` is the whole
+    decode by the readable reference path, which the fast path replaces for the usual trial),
     ``step``, ``snapshot`` (the state's bytes, every ``snapshot_every`` trials; here per
     trial, its median is the cost when it happens), ``commit`` (Store.commit_batch of one
     trial: WAL, synchronous=FULL, checkpoints on their own thread as in the daemon), of which
@@ -117,7 +119,8 @@ def breakdown(directory: str, trials: int) -> dict:
         structlog.processors.add_log_level, structlog.processors.TimeStamper(fmt="iso", utc=True),
         structlog.processors.JSONRenderer()])
     fd = os.open(os.path.join(directory, "breakdown_echo.log"), os.O_WRONLY | os.O_CREAT | os.O_APPEND, 0o600)
-    stages = ("decode", "validate", "step", "snapshot", "commit", "reply", "publish", "log", "echo", "encode")
+    stages = ("decode", "validate", "step", "snapshot", "commit", "reply", "publish", "log", "echo", "encode",
+              "reference_decode")
     times: dict[str, list[float]] = {k: [] for k in stages}
     clock = time.perf_counter
     n_session, decision, state, animal = 0, None, None, None
@@ -136,7 +139,7 @@ def breakdown(directory: str, trials: int) -> dict:
             t_wall += 4.0
             frame = wire.encode_request(wire.TrialReport(len(times["step"]) + 1, event))
             t0 = clock()
-            packed._unpack(frame)
+            msgpack.unpackb(frame, raw=False, strict_map_key=True)  # what the trial fast path starts with
             t1 = clock()
             req = wire.decode_request(frame)
             t2 = clock()
@@ -162,10 +165,12 @@ def breakdown(directory: str, trials: int) -> dict:
             t9 = clock()
             prepare(req.event, decision, update.quantities, None)
             t10 = clock()
+            packed.decode_request_reference(frame)
+            t11 = clock()
             del snap
             # validate = the whole decode minus the unpack it starts with
             for name, dt in zip(stages, (t1 - t0, (t2 - t1) - (t1 - t0), t3 - t2, t4 - t3, t5 - t4, t6 - t5,
-                                         t7 - t6, t8 - t7, t9 - t8, t10 - t9), strict=True):
+                                         t7 - t6, t8 - t7, t9 - t8, t10 - t9, t11 - t10), strict=True):
                 times[name].append(dt * 1e6)
     finally:
         os.close(fd)
@@ -185,6 +190,9 @@ def print_breakdown(bd: dict, snapshot_every: int) -> None:
     before = sum(bd[k] for k in BEFORE_REPLY) + bd["snapshot"] / snapshot_every
     for k in BEFORE_REPLY:
         print(f"  {k:<10} {bd[k]:9.1f}   {100 * bd[k] / before:5.1f}% of the work before the reply")
+        if k == "validate" and "reference_decode" in bd:
+            print(f"    {'ref.':<8} {bd['reference_decode']:9.1f}   decode + validate by the reference path (the fast "
+                  f"path's {bd['decode'] + bd['validate']:.1f} replaces it for the usual trial)")
         if k == "commit" and "encode" in bd:
             print(f"    {'encode':<8} {bd['encode']:9.1f}   of it: the trial's JSON texts; the rest is the SQLite insert, "
                   "the WAL write and its fdatasync")

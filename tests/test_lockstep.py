@@ -17,7 +17,8 @@ from rigloop.core.step import begin_session, session_seed, step
 from rigloop.core.subject import new_subject
 from rigloop.offline import compare
 from rigloop.offline.compare import AnimalTask, run_animal
-from rigloop.offline.lockstep import DECISIONS_ONLY, PER_SUBJECT, LearnerRead, decide_step, learner_free, path_for
+from rigloop.offline.lockstep import (DECISIONS_ONLY, PER_SUBJECT, LearnerRead, decide_step, learner_free, path_for,
+                                      reads_curves)
 from rigloop.offline.population import draw_animals, load_population
 from rigloop.offline.simulate import preset_animal
 from rigloop.rules import load_rules
@@ -50,8 +51,10 @@ def _run(rules, preset, mode, sessions=2, cap=180):
             event = animal.trial(decision, "sim-rig", t + 8.0 * i)
             if mode == "step":
                 state, decision, _ = step(state, event, rules)
-            else:
-                state, decision = decide_step(state, event, rules, learn=mode == "learn")
+            elif mode == "learn":
+                state, decision = decide_step(state, event, rules, learn=True)
+            else:  # what compare and simulate run without a store
+                state, decision = decide_step(state, event, rules, learn=False, curves=reads_curves(rules))
             decisions.append(decision)
     return decisions, state
 
@@ -66,10 +69,12 @@ def test_every_decision_and_the_final_state_equal_the_per_subject_step(name):
         lean, lean_state = _run(rules, preset, "lean")
         assert learned == ref and lean == ref, (name, preset)
         assert learned_state.to_bytes() == ref_state.to_bytes(), (name, preset)
-        # without the learner: everything but the learner is the same; the learner stays at its prior
+        # without the learner (and the curves, when no decision reads them): everything else is the same
         prior = new_subject("m1", rules).learner
+        curves = ref_state.curves if reads_curves(rules) else {}
+        assert lean_state.curves == curves, (name, preset)
         assert dataclasses.replace(lean_state, learner=prior).to_bytes() == \
-            dataclasses.replace(ref_state, learner=prior).to_bytes(), (name, preset)
+            dataclasses.replace(ref_state, learner=prior, curves=curves).to_bytes(), (name, preset)
         assert lean_state.learner.state().keys() == prior.state().keys()
         if preset == "fast_learner":  # the run moved through the schedule (trial 1 alone would prove little)
             assert len({(d.stage, d.block) for d in ref}) >= 2, name
@@ -109,6 +114,16 @@ def test_rule_files_that_read_the_learner_take_the_per_subject_step():
     assert path == PER_SUBJECT and "uncertain" in why
     path, why = path_for(load_any("tone_reversal"), db="x.sqlite")
     assert path == PER_SUBJECT and "stored" in why
+
+
+def test_rule_files_that_read_the_curves_keep_them():
+    assert not reads_curves(load_any("tone_reversal"))
+    assert reads_curves(load_any("two_choice_staircase"))  # it reads p_correct / p_lower
+    curved = _variant('advance = { when = "trials_in_stage >= 60 and ',
+                      'advance = { when = "trials_in_stage >= 60 and p_lower(all) > 0.6 and ')
+    assert reads_curves(curved) and learner_free(curved)[0]
+    ref, _ = _run(curved, "fast_learner", "step")
+    assert _run(curved, "fast_learner", "lean")[0] == ref
 
 
 def test_a_decision_that_reads_the_learner_fails_loudly_without_one():

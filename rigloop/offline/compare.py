@@ -18,7 +18,7 @@ no map is built and checked per trial. With a store they carry it, as ``simulate
 Without a store, a rule file whose decisions never read the learner (every shipped
 lick and choice example) runs each trial through ``lockstep.decide_step`` instead of
 ``step``: the same decisions and schedule bit for bit, without the learner and the
-per-trial quantities nothing here keeps (``lockstep.path_for`` says which path and why).
+per-trial quantities nothing here keeps (and without the learning curves when no decision reads them) (``lockstep.path_for`` says which path and why).
 
 Memory stays flat in the number of days: a session's trials are reduced as they come
 (``RunningTruth`` judges blocks against the truth on the fly, as ``truth.block_timing``
@@ -36,7 +36,7 @@ from dataclasses import dataclass, field
 from ..core.step import begin_session, session_seed, step
 from ..core.subject import new_subject
 from . import truth
-from .lockstep import DECISIONS_ONLY, decide_step, path_for
+from .lockstep import DECISIONS_ONLY, decide_step, path_for, reads_curves
 
 TRIAL_S = 8.0  # seconds from one trial's start to the next (the simulate default)
 DAY_S = 86400.0
@@ -209,6 +209,7 @@ def run_animal(task: AnimalTask) -> AnimalResult:
         store = Store(task.db)
     state = new_subject(name, rules)
     lean = path_for(rules, task.db)[0] == DECISIONS_ONLY  # no learner, no quantities (offline/lockstep)
+    keep_curves = reads_curves(rules)
     n = 0
     stage_now = None
     try:
@@ -228,7 +229,7 @@ def run_animal(task: AnimalTask) -> AnimalResult:
                     event = animal.trial(decision, "sim-rig", t)
                     under = decision
                     if lean:
-                        state, decision = decide_step(state, event, rules, learn=False)
+                        state, decision = decide_step(state, event, rules, learn=False, curves=keep_curves)
                     else:
                         state, decision, update = step(state, event, rules)
                     trials += 1

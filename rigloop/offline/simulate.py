@@ -442,16 +442,18 @@ def simulate_session(
     transaction for the animal-day (the stored rows are those of trial-by-trial commits).
 
     ``decisions_only``: each trial runs ``lockstep.decide_step`` without the learner, so
-    the run's ``updates`` stay empty and its state keeps the learner it started with; the
+    the run's ``updates`` stay empty and its state keeps the learner it started with (and
+    the learning curves, when no decision reads them); the
     decisions are ``step``'s bit for bit. Only for a rule file none of whose decisions read
     the learner, and without a store (``lockstep.path_for`` says when).
     """
     if decisions_only:
-        from .lockstep import DECISIONS_ONLY, path_for
+        from .lockstep import DECISIONS_ONLY, decide_step, path_for, reads_curves
 
         path, why = path_for(rules, store)
         if path != DECISIONS_ONLY:
             raise BadArgument("decisions_only", "False for this run (it needs the per-subject step)", why)
+        keep_curves = reads_curves(rules)
     state, decision, info = open_simulated_session(rules, animal.subject, session, state=state, rig=rig,
                                                    start_time=start_time)
     if store is not None:
@@ -462,7 +464,7 @@ def simulate_session(
     while not decision.end_session and len(run.events) < max_trials:
         event = animal.trial(decision, rig, t)
         if decisions_only:
-            state, decision = _decide_only(state, event, rules, learn=False)
+            state, decision = decide_step(state, event, rules, learn=False, curves=keep_curves)
             run.events.append(event)
             run.decisions.append(decision)
             t += trial_s
@@ -480,12 +482,6 @@ def simulate_session(
         commit_day(store, items)
     run.state = state
     return run
-
-
-def _decide_only(state, event, rules, *, learn: bool):
-    from .lockstep import decide_step
-
-    return decide_step(state, event, rules, learn=learn)
 
 
 def open_simulated_session(rules, subject: str, session: str, *, state: SubjectState | None = None,

@@ -11,7 +11,8 @@ the learner and the per-trial quantities that are stored beside each trial. When
   next-cue policy, not the two_step learner),
 
 each trial runs ``decisions.decide_step(..., learn=False)``: the same decisions, the same
-schedule, curves and behaviour estimates bit for bit, and no learner. Every shipped
+schedule and behaviour estimates bit for bit, and no learner (nor learning curves, when no
+decision reads them: ``support.reads_curves``). Every shipped
 lick and choice example qualifies (tone_reversal, gonogo_shaping, two_choice_staircase);
 the two-stage files run the per-subject step.
 
@@ -28,7 +29,7 @@ decisions: the rule engine works on one subject's schedule at a time.
 from __future__ import annotations
 
 from .decisions import NO_LEARNER, LearnerRead, decide_step
-from .support import learner_free
+from .support import learner_free, reads_curves
 
 DECISIONS_ONLY = "decisions only"
 PER_SUBJECT = "per-subject step"
@@ -44,4 +45,4 @@ def path_for(rules, db=None) -> tuple[str, str]:
     return DECISIONS_ONLY, "no decision reads the learner and nothing is stored"
 
 
-__all__ = ["DECISIONS_ONLY", "NO_LEARNER", "PER_SUBJECT", "LearnerRead", "decide_step", "learner_free", "path_for"]
+__all__ = ["DECISIONS_ONLY", "NO_LEARNER", "PER_SUBJECT", "LearnerRead", "decide_step", "learner_free", "path_for", "reads_curves"]

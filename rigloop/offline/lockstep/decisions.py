@@ -6,6 +6,8 @@ errors, surprise, the behaviour bands, p_model: they are stored and exported, an
 nothing here stores). With ``learn=False`` the learner is not run either; that is only
 right for a rule file whose decisions never read it (``support.learner_free``), and then
 the learner in the returned state stays where it was (the prior, for a simulated animal).
+``curves=False`` leaves the learning curves as they were in the same way, for a rule file
+none of whose decisions reads them (``support.reads_curves``).
 The view the rules read holds a stand-in that raises ``LearnerRead`` if anything asks
 it for a value, so a rule file the check let through by mistake fails loudly instead of
 deciding from a stale learner.
@@ -46,7 +48,7 @@ class _NoLearner:
 NO_LEARNER = _NoLearner()
 
 
-def decide_step(state: SubjectState, event, rules, *, learn: bool = True):
+def decide_step(state: SubjectState, event, rules, *, learn: bool = True, curves: bool = True):
     """(next state, decision) as ``step(state, event, rules)`` gives them (see the module docstring)."""
     ctx = state.context
     spec = rules.spec
@@ -70,8 +72,8 @@ def decide_step(state: SubjectState, event, rules, *, learn: bool = True):
     else:
         learner, finite, seen = state.learner, None, NO_LEARNER
 
-    scored = _scored(event)
-    curves = dict(state.curves)
+    scored = _scored(event) if curves else None  # curves=False: they stay as they were
+    curves = dict(state.curves) if curves else state.curves
     fresh: dict[str, LearningCurve] = {}
     if scored is not None:
         perf = spec.performance

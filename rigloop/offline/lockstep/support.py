@@ -9,7 +9,8 @@ that stores nothing need not run the learner at all: the decisions come out the 
 bit for bit (``tests/test_lockstep.py`` holds that on every shipped example it admits).
 
 The check walks every expression of the parsed file (any field of the spec that holds
-one), so a new kind of criterion is covered without a change here.
+one), so a new kind of criterion is covered without a change here. ``reads_curves`` says
+the same of the learning curves (the sequential tests keep their own counts in the schedule).
 """
 
 from __future__ import annotations
@@ -22,6 +23,8 @@ from ...rules.expr import Expr
 # the expression functions whose value comes from the learner (rules/engine.Env.call, core/view.ModelView)
 LEARNER_FUNCTIONS = frozenset({"value()", "sd()", "p_value_above()", "p_model_based()"})
 LEARNER_POLICIES = frozenset({"uncertain"})  # next-cue policies that read the learner's values
+# the expression functions that read the learning curves (rules/engine.Env.call); nothing else does
+CURVE_FUNCTIONS = frozenset({"p_correct()", "p_above_chance()", "p_lower()", "p_upper()"})
 
 
 def expressions(spec) -> list[Expr]:
@@ -66,3 +69,9 @@ def learner_free(rules) -> tuple[bool, str]:
         if read:
             return False, f"'{expr.text}' reads the learner ({', '.join(read)})"
     return True, ""
+
+
+def reads_curves(rules) -> bool:
+    """Whether any decision of ``rules`` reads the learning curves (else a decisions-only run may skip them:
+    they feed the stored quantities p_correct / p_lo95 / p_hi95 and those expression functions only)."""
+    return any(expr.names_used() & CURVE_FUNCTIONS for expr in expressions(rules.spec))

@@ -302,6 +302,72 @@ def test_compiled_evaluation_equals_the_interpreter(text):
         assert a.calls == b.calls
 
 
+@pytest.mark.filterwarnings("ignore::hypothesis.errors.HypothesisWarning")  # the strategy's long repr
+@settings(max_examples=300, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(_conds)
+def test_cheap_first_gives_the_interpreters_value(text):
+    """cheap_first (model-free operands of and/or first) gives the interpreter's value, type
+    included; it may make fewer model calls, never other ones."""
+    if len(text) > X.MAX_LENGTH:
+        return
+    try:
+        e = X.parse(text, X.Context(("tone_hi",), cue_var=True))
+    except X.ExprError:
+        return
+    for seed in range(2 * len(_VariedEnv.VALUES)):
+        a, b = _VariedEnv(seed), _VariedEnv(seed)
+        fast = _outcome(lambda: X.cheap_first(e)(a))
+        slow = _outcome(lambda: X._Eval(e, b, None).run(e.tree))
+        assert type(fast) is type(slow) and (fast == slow or (fast != fast and slow != slow)), seed
+        assert set(a.calls) <= set(_all_calls(e, seed))
+
+
+def _all_calls(e, seed):
+    """Every env call of e's tree, each operand evaluated (no short circuit)."""
+    env = _VariedEnv(seed)
+    for node in _walk(e.tree):
+        if isinstance(node, (X.Call, X.Name)):
+            try:
+                X._Eval(e, env, None).run(node)
+            except Exception:
+                pass
+    return env.calls
+
+
+def _walk(n):
+    import dataclasses
+
+    yield n
+    for f in dataclasses.fields(n):
+        v = getattr(n, f.name)
+        for x in (v if isinstance(v, tuple) else (v,)):
+            if isinstance(x, X.Node):
+                yield from _walk(x)
+
+
+def test_cheap_first_skips_the_model_when_a_counter_decides():
+    """A criterion that asks a model first and a counter second asks the model only once the
+    counter holds; its explanation keeps the file's order."""
+    e = X.parse("p_respond(tone_hi) >= 0.5 and trials_in_stage >= 80", X.Context(("tone_hi",)))
+
+    class Counting(X.Env):
+        def __init__(self, trials):
+            self.trials, self.calls = trials, []
+
+        def name(self, name):
+            return float(self.trials)
+
+        def call(self, func, args):
+            self.calls.append(func)
+            return 0.9
+
+    early, late = Counting(10), Counting(90)
+    assert X.cheap_first(e)(early) is False and early.calls == []
+    assert X.cheap_first(e)(late) is True and late.calls == ["p_respond"]
+    value, seen = X.evaluate(e, Counting(90))
+    assert value is True and seen[0].startswith("p_respond(tone_hi)")
+
+
 def test_remainder_of_an_infinity_is_nan_not_an_error():
     """Runtime arithmetic never raises: inf % 2 (math.fmod's domain error) gives NaN, and NaN
     compares false, so a criterion reading an infinite quantity simply does not hold."""

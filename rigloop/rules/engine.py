@@ -25,7 +25,7 @@ import numpy as np
 from ..core.derived import derived
 from ..core.performance import dprime as _dprime
 from ..core.performance import sequential_bounds, sequential_step
-from .expr import Env, compiled, evaluate, explain_if, fmt
+from .expr import Env, cheap_first, evaluate, fmt
 from .model import Block, Spec, Sprt, Stage
 from .policies import choose_cue, reward_prob, staircase_step
 from .state import ScheduleState
@@ -421,8 +421,8 @@ def _moves(spec: Spec, sched: ScheduleState, env: ScheduleEnv, reasons: list[str
     why = None
     if end.max_trials is not None and n >= end.max_trials:
         why = f"block '{block.name}' ended: {n} trials reached max_trials {end.max_trials}"
-    elif end.when is not None:
-        hit, seen = explain_if(end.when, env)
+    elif end.when is not None and cheap_first(end.when)(env):
+        hit, seen = evaluate(end.when, env)
         if hit:
             why = f"block '{block.name}' ended: {'; '.join(seen)} after {n} trials"
     if why is None:
@@ -433,14 +433,14 @@ def _moves(spec: Spec, sched: ScheduleState, env: ScheduleEnv, reasons: list[str
 
 
 def _session_end_tests(spec: Spec) -> tuple:
-    """(criterion, its compiled test) for each session-end criterion, in order."""
-    return derived(spec, "session_end", lambda sp: tuple((c, compiled(c.when)) for c in sp.session_end))
+    """(criterion, its compiled test, model-free operands first) for each session-end criterion, in order."""
+    return derived(spec, "session_end", lambda sp: tuple((c, cheap_first(c.when)) for c in sp.session_end))
 
 
 def _move_tests(stage: Stage) -> tuple:
-    """(move, verb, its compiled test) for the stage's step back, then its advance."""
+    """(move, verb, its compiled test, model-free operands first) for the stage's step back, then its advance."""
     return derived(stage, "moves", lambda st: tuple(
-        (m, verb, compiled(m.when)) for m, verb in ((st.step_back, "steps back"), (st.advance, "advances"))
+        (m, verb, cheap_first(m.when)) for m, verb in ((st.step_back, "steps back"), (st.advance, "advances"))
         if m is not None))
 
 

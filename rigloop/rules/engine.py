@@ -179,8 +179,12 @@ def _behaviour_call(v, func: str, cue: str, args, placeholder: str | None) -> fl
         level = float(args[2]) if len(args) > 2 else 0.95
         if not 0.0 < level < 1.0:
             return math.nan
+        which = "d" if func == "dprime_of" else "lower" if func == "dprime_lower" else "upper"
+        part = getattr(v, "dprime_part", None)
+        if part is not None:  # only the entry asked for: one quantile search, not two
+            return float(part(cue, other, level, which))
         d, lo, hi = v.dprime_between(cue, other, level)
-        return float(d if func == "dprime_of" else lo if func == "dprime_lower" else hi)
+        return float(d if which == "d" else lo if which == "lower" else hi)
     raise KeyError(func)  # pragma: no cover - the checker admits only known functions
 
 

@@ -43,7 +43,9 @@ class SubjectView(Protocol):
         """P(p_behaviour(a) - p_behaviour(b) > margin) under the estimates."""
 
     def dprime_between(self, a: str, b: str, level: float) -> tuple[float, float, float]:
-        """Behavioural d' of a against b from the estimates, and its credible interval."""
+        """Behavioural d' of a against b from the estimates, and its credible interval.
+        (A view may add ``dprime_part(a, b, level, which)``, one entry of these, "d", "lower"
+        or "upper": the engine then asks for only the entry a rule reads.)"""
 
     def p_model_based(self, x: float) -> float:
         """P(w > x) of the two_step learner's posterior over its model-based weight w."""
@@ -93,6 +95,9 @@ class StaticView:
 
     def dprime_between(self, a: str, b: str, level: float) -> tuple[float, float, float]:
         return B.dprime_estimate(*self._state(a), *self._state(b), level)
+
+    def dprime_part(self, a: str, b: str, level: float, which: str) -> float:
+        return B.dprime_part(*self._state(a), *self._state(b), level, which)
 
     def p_model_based(self, x: float) -> float:
         return 1.0 - float(x)  # the uniform prior over w: nothing known yet

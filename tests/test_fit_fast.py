@@ -251,3 +251,35 @@ def test_side_values_agree_with_the_per_trial_learner(learner_name, rep_name, mo
     for a, b in zip(got, want, strict=True):
         np.testing.assert_array_equal(np.isnan(a), np.isnan(b))
         np.testing.assert_allclose(a, b, rtol=1e-12, atol=1e-13)
+
+
+def test_points_scored_in_one_pass_equal_one_at_a_time_bit_for_bit():
+    """NegLogLik.collecting scores every noted go/no-go point in one compiled pass
+    (onsets.respond_points; a step in the lapse alone reuses its neighbour's inner
+    terms): each value is the one a fresh objective computes for that point alone, every
+    bit, lapse at 0 and 1 and a point where no learner can be made included."""
+    from rigloop.fit.likelihood import _FAR_WORSE, NegLogLik
+
+    rep = REPS["serial_compound"]
+    data = fit.prepare(_events(160, seed=6), rep, reward_unit_ul=UNIT)
+    free = ("gamma", "diffusion", "beta", "theta", "lapse")
+    pinned = {"noise": 0.5, "prior_var": 1.0}
+    base = np.array([0.9, 0.01, 5.0, 0.3, 0.05])
+    points = [base]
+    for i in range(len(base)):
+        y = base.copy()
+        y[i] += 1e-8
+        points.append(y)
+    points += [np.array([0.9, 0.01, 5.0, 0.3, lapse]) for lapse in (0.0, 1.0, 0.2)]
+    points.append(np.array([0.9, 0.01, 5.0, 0.3, 0.05]) * [1, 1, 1, 1, 2])
+    points.append(np.array([0.9, -1.0, 5.0, 0.3, 0.05]))  # no learner there: far worse
+    batched = NegLogLik(data, "kalman_td", free, pinned)
+    with batched.collecting():
+        for p in points:
+            batched(p)
+    assert len(batched.values) == len(points)
+    for p in points:
+        alone = NegLogLik(data, "kalman_td", free, pinned)(p)
+        assert batched.values[p.tobytes()] == alone
+        assert batched(p) == alone
+    assert batched(points[-1]) == _FAR_WORSE

@@ -41,13 +41,14 @@ from ..core.learners import make_learner
 from ..core.responses import log_lik_respond, log_lik_right, p_respond, p_right
 from ..errors import BadArgument
 from .data import FitData
-from ..offline.batch.onsets import respond_terms
+from ..offline.batch.onsets import respond_points, respond_terms
 from .fast import batch_values, onset_values_fast, side_values_fast
 from .params import LINK_PARAMETER_NAMES, in_domain, link_parameters, model_parameters
 from .results import FittedTrials
 
 _FAR_WORSE = 1e10  # the objective where the learner overflows: far worse than any fit
 _CACHE_SIZE = 16  # learner value paths a NegLogLik keeps (a batch keeps all of its own)
+_VALUES_SIZE = 64  # whole points' objective values a NegLogLik keeps (a batch keeps all of its own)
 
 
 def onset_values(data: FitData, learner) -> np.ndarray:
@@ -250,7 +251,10 @@ class NegLogLik:
     not yet cached in one compiled call (``fast.batch_values``: the same numbers as one
     set at a time, bit for bit). The optimiser's wrappers (``search._minimize``) note the
     points of a numerical gradient first, so the learner runs once per gradient for all
-    of them rather than once per point.
+    of them rather than once per point. On the go/no-go link the block also scores every
+    noted point in one compiled pass (``onsets.respond_points``: each point's terms the
+    bits ``_RespondSum`` gives, summed the same way) and keeps the values by point, so
+    the calls that follow the block are look-ups.
     """
 
     def __init__(self, data: FitData, learner_name: str, free: Sequence[str],
@@ -272,17 +276,26 @@ class NegLogLik:
         self._lindex = [self.free.index(n) for n in self.lparams]
         self._noted: dict[tuple, dict[str, Any]] | None = None
         self._respond = None if self.link == "choice" else _RespondSum(self.y_obs, self.mask)
+        # objective values of whole points (by the bytes of θ), filled by a batch
+        self.values: dict[bytes, float] = {}
+        self._points: dict[bytes, tuple[tuple, dict[str, Any], dict[str, float]]] | None = None
 
     def __call__(self, theta: np.ndarray) -> float:
+        theta = np.asarray(theta, dtype=np.float64)
+        point = theta.tobytes()
+        known = self.values.get(point)
+        if known is not None:
+            return known
         kw = dict(self.pinned_learner)
         kw.update({n: float(theta[i]) for n, i in zip(self.lparams, self._lindex, strict=True)})
+        obs = {n: float(theta[i]) for n, i in self.oparams.items()}
+        obs.update(self.pinned_obs)
         if self._noted is not None:
             key = tuple(kw[n] for n in self.lparams)
             if key not in self.cache:
                 self._noted.setdefault(key, kw)
+            self._points.setdefault(point, (key, kw, obs))
             return 0.0
-        obs = {n: float(theta[i]) for n, i in self.oparams.items()}
-        obs.update(self.pinned_obs)
         V = self._onset_values(kw)
         if V is None:
             return _FAR_WORSE
@@ -300,12 +313,57 @@ class NegLogLik:
         if self._noted is not None:
             yield self
             return
-        self._noted = {}
+        self._noted, self._points = {}, {}
         try:
             yield self
         finally:
             noted, self._noted = self._noted, None
+            points, self._points = self._points, None
         self._prefetch(noted)
+        self._score(points)
+
+    def _score(self, points: Mapping[bytes, tuple[tuple, dict[str, Any], dict[str, float]]]) -> None:
+        """The go/no-go objective at every noted point in one compiled pass, kept in
+        ``values`` (nothing on the choice link, for one point, or with the kernels off:
+        each is then scored alone when it is called). The same numbers as ``__call__``
+        computes one point at a time."""
+        if self._respond is None or len(points) < 2:
+            return
+        rows: dict[tuple, int] = {}
+        paths, which, scored = [], [], []
+        for point, (key, kw, obs) in points.items():
+            if key not in rows:
+                V = self.cache.get(key)
+                if V is None:
+                    V = self._onset_values(kw)
+                if V is None:
+                    self._keep(point, _FAR_WORSE)  # the learner overflows there
+                    continue
+                rows[key] = len(paths)
+                paths.append(V)
+            which.append(rows[key])
+            scored.append((point, obs))
+        if len(scored) < 2 or any(V.dtype != np.float64 for V in paths):
+            return
+        beta = np.array([obs["beta"] for _, obs in scored])
+        theta = np.array([obs["theta"] for _, obs in scored])
+        lapse = [obs["lapse"] for _, obs in scored]
+        # the lapse terms as _RespondSum forms them
+        log_half = np.array([math.log(a / 2) if a > 0 else -math.inf for a in lapse])
+        log_engaged = np.array([math.log1p(-a) if a < 1 else -math.inf for a in lapse])
+        terms = respond_points(np.stack(paths), np.array(which, dtype=np.intp), beta, theta,
+                               log_half, log_engaged, self._respond.idx, self._respond.neg_sign)
+        if terms is None:
+            return
+        room = max(_VALUES_SIZE, len(points) + 8)
+        for m, (point, _) in enumerate(scored):
+            total = -float(np.sum(terms[m]))
+            self._keep(point, total if math.isfinite(total) else _FAR_WORSE, room)
+
+    def _keep(self, point: bytes, value: float, room: int = _VALUES_SIZE) -> None:
+        while len(self.values) >= room:
+            del self.values[next(iter(self.values))]
+        self.values[point] = value
 
     def _prefetch(self, noted: Mapping[tuple, dict[str, Any]]) -> None:
         """Learner values of the ``noted`` sets, one compiled call for all (nothing when

@@ -211,22 +211,26 @@ def _minimize(optimize, f: Callable[[np.ndarray], float], x0: np.ndarray,
     if objective is None:
         return optimize.minimize(f, x0, method="L-BFGS-B", bounds=bounds)
     mapping = [False]
+    guessed: set[bytes] = set()  # the unit points of the last batch ahead of a gradient
 
     def ahead(x: np.ndarray) -> float:
         if not mapping[0]:
+            guessed.clear()
             with objective.collecting():
                 f(x)
                 for i in range(len(x)):
                     y = np.array(x, dtype=np.float64)
                     y[i] = x[i] + _FD_STEP if x[i] + _FD_STEP <= 1.0 else x[i] - _FD_STEP
                     f(y)
+                    guessed.add(y.tobytes())
         return f(x)
 
     def batched_map(fun, points):
         points = list(points)
-        with objective.collecting():
-            for y in points:
-                f(y)
+        if not all(np.asarray(y, dtype=np.float64).tobytes() in guessed for y in points):
+            with objective.collecting():
+                for y in points:
+                    f(y)
         mapping[0] = True
         try:
             return list(map(fun, points))

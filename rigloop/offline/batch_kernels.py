@@ -639,3 +639,32 @@ def respond_terms(V, idx, neg_sign, beta, theta, log_half_lapse, log_engaged, ou
         z = beta * (V[idx[k]] - theta)
         z = neg_sign[k] * z
         out[k] = _logaddexp(log_half_lapse, log_engaged - _logaddexp(0.0, z))
+
+
+@njit(cache=True, nogil=True)
+def respond_points(Vs, which, beta, theta, log_half_lapse, log_engaged, idx, neg_sign, inner, out):
+    """``respond_terms`` for M points at once: point m reads the values Vs[which[m]] (Vs
+    (K, N)) with its own β, θ and lapse terms (M,), its log P(y_k) into out[m] (M,
+    len(idx)); inner (M, len(idx)) scratch holds logaddexp(0, −sign·z). A point with
+    the same values, β and θ as an earlier one (a step in the lapse alone) reuses that
+    point's inner terms: the same numbers, half the exp/log1p calls."""
+    M, K = which.shape[0], idx.shape[0]
+    for m in range(M):
+        same = -1
+        for e in range(m):
+            if which[e] == which[m] and beta[e] == beta[m] and theta[e] == theta[m]:
+                same = e
+                break
+        if same >= 0:
+            for k in range(K):
+                inner[m, k] = inner[same, k]
+        else:
+            V = Vs[which[m]]
+            b, th = beta[m], theta[m]
+            for k in range(K):
+                z = b * (V[idx[k]] - th)
+                z = neg_sign[k] * z
+                inner[m, k] = _logaddexp(0.0, z)
+        lh, le = log_half_lapse[m], log_engaged[m]
+        for k in range(K):
+            out[m, k] = _logaddexp(lh, le - inner[m, k])

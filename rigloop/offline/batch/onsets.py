@@ -162,3 +162,24 @@ def respond_terms(V: np.ndarray, idx: np.ndarray, neg_sign: np.ndarray, beta: fl
     kernels.respond_terms(V, idx, neg_sign, float(beta), float(theta), float(log_half_lapse),
                           float(log_engaged), out)
     return True
+
+
+def respond_points(Vs: np.ndarray, which: np.ndarray, beta: np.ndarray, theta: np.ndarray,
+                   log_half_lapse: np.ndarray, log_engaged: np.ndarray, idx: np.ndarray,
+                   neg_sign: np.ndarray):
+    """``respond_terms`` of M points in one compiled pass: point m's log P(y) over the
+    trials ``idx`` of Vs[which[m]] (Vs (K, N)) with its β, θ and lapse terms (each (M,)).
+    Returns (M, len(idx)) terms, each row the bits ``respond_terms`` gives; None when
+    the kernels are off."""
+    kernels = _kernels()
+    if kernels is None:
+        return None
+    M = len(which)
+    out = np.empty((M, len(idx)))
+    inner = np.empty((M, len(idx)))
+    kernels.respond_points(np.ascontiguousarray(Vs, dtype=np.float64),
+                           np.ascontiguousarray(which, dtype=np.intp),
+                           *(np.ascontiguousarray(a, dtype=np.float64)
+                             for a in (beta, theta, log_half_lapse, log_engaged)),
+                           idx, neg_sign, inner, out)
+    return out

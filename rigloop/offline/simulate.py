@@ -320,7 +320,8 @@ class SimulatedAnimal:
                 result = "omitted"
             else:
                 result = "correct" if licked == go else "incorrect"
-            response = Response(kind="licks", value=float(licks), result=result, latency=latency)
+            response = self._no_lick(result) if latency is None else Response(
+                kind="licks", value=float(licks), result=result, latency=latency)
             if go and licked and decision.reward_armed:
                 reward_ul, reward_time = decision.reward_ul, offset
             punished = licked and not go and self.false_alarm_timeout_s is not None
@@ -353,6 +354,14 @@ class SimulatedAnimal:
         got = self._parts.get(key)
         if got is None:
             got = self._parts[key] = (CuePresentation(cue, onset, offset),)
+        return got
+
+    def _no_lick(self, result: str) -> Response:
+        """The response of a trial without a lick (a frozen value, one per result, reused)."""
+        key = ("no lick", result)
+        got = self._parts.get(key)
+        if got is None:
+            got = self._parts[key] = Response(kind="licks", value=0.0, result=result, latency=None)
         return got
 
     def _paid(self, reward_ul: float, reward_time: float | None) -> Outcome:

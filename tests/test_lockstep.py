@@ -17,8 +17,15 @@ from rigloop.core.step import begin_session, session_seed, step
 from rigloop.core.subject import new_subject
 from rigloop.offline import compare
 from rigloop.offline.compare import AnimalTask, run_animal
-from rigloop.offline.lockstep import (DECISIONS_ONLY, PER_SUBJECT, LearnerRead, decide_step, learner_free, path_for,
-                                      reads_curves)
+from rigloop.offline.lockstep import (
+    DECISIONS_ONLY,
+    PER_SUBJECT,
+    LearnerRead,
+    decide_step,
+    learner_free,
+    path_for,
+    reads_curves,
+)
 from rigloop.offline.population import draw_animals, load_population
 from rigloop.offline.simulate import preset_animal
 from rigloop.rules import load_rules

@@ -45,4 +45,5 @@ def path_for(rules, db=None) -> tuple[str, str]:
     return DECISIONS_ONLY, "no decision reads the learner and nothing is stored"
 
 
-__all__ = ["DECISIONS_ONLY", "NO_LEARNER", "PER_SUBJECT", "LearnerRead", "decide_step", "learner_free", "path_for", "reads_curves"]
+__all__ = ["DECISIONS_ONLY", "NO_LEARNER", "PER_SUBJECT", "LearnerRead", "decide_step", "learner_free",
+           "path_for", "reads_curves"]

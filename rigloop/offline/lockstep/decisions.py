@@ -23,11 +23,10 @@ from __future__ import annotations
 
 from ...core import behaviour as B
 from ...core.curve import LearningCurve, _updated_state
-from ...core.experience import _action_cues, _actions_table, _is_go, _punishments, _scored
-from ...core.learner_setup import representation_for
-from ...core.quantities import _choice_cues, _cue_ids
+from ...core.experience import _action_cues, _is_go, _punishments, _scored
+from ...core.quantities import _cue_ids
 from ...core.responses import choice_code, history_step
-from ...core.step import _decide
+from ...core.step import _decide, _plan_of
 from ...core.subject import ALL, SubjectState
 
 
@@ -51,10 +50,11 @@ NO_LEARNER = _NoLearner()
 def decide_step(state: SubjectState, event, rules, *, learn: bool = True, curves: bool = True):
     """(next state, decision) as ``step(state, event, rules)`` gives them (see the module docstring)."""
     ctx = state.context
-    spec = rules.spec
+    plan = _plan_of(rules)  # what step reads of the rule file each trial, formed once per file
+    spec = plan.spec
     cue_ids = _cue_ids(event)
     scored_cue = cue_ids[0] if cue_ids else None
-    choice_cues = _choice_cues(spec)
+    choice_cues = plan.choice_cues
     kind = B.RIGHT if scored_cue in choice_cues else B.RESPOND
     did = None
     if scored_cue is not None:
@@ -62,11 +62,11 @@ def decide_step(state: SubjectState, event, rules, *, learn: bool = True, curves
         if did is None and event.response.value is None and kind == B.RESPOND:
             did = B.observed(event, kind, _is_go(spec, state.schedule, scored_cue))
 
-    rep = representation_for(rules)
+    rep = plan.rep
     if learn:
-        actions = _actions_table(rules)
+        actions = plan.actions
         learner_cues = None if actions is None else _action_cues(event, kind, did)
-        rows = rep._event_rows(event, rules.reward_unit_ul, learner_cues, _punishments(spec, event))
+        rows = rep._event_rows(event, plan.unit, learner_cues, _punishments(spec, event))
         learner, _, finite = state.learner._learned(rows.X, rows.r)
         seen = learner
     else:
@@ -76,12 +76,11 @@ def decide_step(state: SubjectState, event, rules, *, learn: bool = True, curves
     curves = dict(state.curves) if curves else state.curves
     fresh: dict[str, LearningCurve] = {}
     if scored is not None:
-        perf = spec.performance
         for cond in (ALL, *cue_ids):
             data = state.curves.get(cond)
             new = None if data is None else _updated_state(data, scored)
             if new is None:
-                curve = LearningCurve(perf.chance, perf.sigma2) if data is None else LearningCurve.from_state(data)
+                curve = LearningCurve(plan.chance, plan.sigma2) if data is None else LearningCurve.from_state(data)
                 curve.update(scored)
                 new = curve.state()
                 fresh[cond] = curve
@@ -89,13 +88,12 @@ def decide_step(state: SubjectState, event, rules, *, learn: bool = True, curves
 
     behaviour = state.behaviour
     if did is not None:
-        beh = spec.behaviour
         behaviour = dict(behaviour)
-        behaviour[scored_cue] = B.updated(behaviour.get(scored_cue), did, beh.sigma2, beh.prior_var)
+        behaviour[scored_cue] = B.updated(behaviour.get(scored_cue), did, plan.beh_sigma2, plan.beh_prior_var)
     history = state.choice_history
     side = event.response.value
     if side == "left" or side == "right":
-        history = float(history_step(history, choice_code(side), spec.response.decay))
+        history = float(history_step(history, choice_code(side), plan.decay))
 
     schedule = rules.observe(state.schedule, event)
     schedule, decision = _decide(state.subject, ctx, rules, rep, seen, curves, schedule, event.trial + 1,

@@ -211,8 +211,9 @@ class KalmanTD(_Gaussian):
         # a row e_i (one feature on, at 1): xᵀŵ = ŵ_i and xᵀΣx = Σ_ii exactly while the
         # state is finite and these are nonzero (see _Gaussian._onset_reader)
         hot = rows.hot if finite else (None,) * T
-        out = np.zeros((3, T))
-        values, errors, variances = out
+        # lists of floats, made one (3, T) array at the end: cheaper than T item writes
+        # into an array (the same float64 values)
+        values, errors, variances = [0.0] * T, [0.0] * T, [0.0] * T
         rewards = r.tolist()
         w, diag, tmp, P, gamma = self._w, self._diag, self._tmp, self._P, self._gamma
         A, q, u, n = self._A, self._q, self._u, self._n
@@ -275,6 +276,7 @@ class KalmanTD(_Gaussian):
             outer(u_row, M)
             _subtract(A, M, A)
             errors[t] = delta
+        out = np.array((values, errors, variances))
         out.setflags(write=False)
         return TrialResult._locked(*out)
 

@@ -103,6 +103,9 @@ class Poller:
 # --------------------------------------------------------------------------- server side
 
 
+_MORE_NOW = zmq.SNDMORE | zmq.NOBLOCK  # a frame of a reply with more to come, never blocking
+
+
 @dataclass(frozen=True, slots=True)
 class RouterOptions:
     """Socket options of the rig-facing ROUTER (times in ms, sizes in bytes/messages)."""
@@ -183,25 +186,30 @@ class RouterLink:
         """
         if not self.socket.get(zmq.EVENTS) & zmq.POLLIN:  # cheaper than a receive that fails
             return None
+        curve = self.curve
         try:
-            frames = self.socket.recv_multipart(zmq.NOBLOCK, copy=False)
+            # frames as bytes (cheaper than Frame objects for small messages); with CURVE as
+            # Frames, which carry the User-Id
+            frames = self.socket.recv_multipart(zmq.NOBLOCK, copy=not curve)
         except zmq.Again:
             return None
         now = time.monotonic_ns()
         self.counts["received"] += 1
         n = len(frames)
-        ident = frames[0].bytes
         user_id = None
-        if self.curve and n > 1:
-            try:
-                user_id = frames[-1].get("User-Id")
-            except (zmq.ZMQError, AttributeError):
-                user_id = None
+        if curve:
+            if n > 1:
+                try:
+                    user_id = frames[-1].get("User-Id")
+                except (zmq.ZMQError, AttributeError):
+                    user_id = None
+            frames = [f.bytes for f in frames]
+        ident = frames[0]
         if n == 2:
-            return Incoming((ident,), frames[1].bytes, user_id, n, now)
+            return Incoming((ident,), frames[1], user_id, n, now)
         if n in (3, 4) and len(frames[-2]) == 0 and all(len(f) for f in frames[1:-2]):
             # REQ: [id, b"", payload]; REQ with REQ_CORRELATE: [id, request-id, b"", payload]
-            return Incoming(tuple(f.bytes for f in frames[:-1]), frames[-1].bytes, user_id, n, now)
+            return Incoming(tuple(frames[:-1]), frames[-1], user_id, n, now)
         self.counts["bad_frames"] += 1
         envelope = (ident, b"") if n > 1 and len(frames[1]) == 0 else (ident,)
         return Incoming(envelope, None, user_id, n, now)
@@ -227,8 +235,13 @@ class RouterLink:
 
     def _try(self, frames: list[bytes]) -> str:
         """"sent", "again" (pipe full) or "gone" (unroutable, counted and dropped)."""
+        sock = self.socket
         try:
-            self.socket.send_multipart(frames, zmq.NOBLOCK)
+            # send_multipart's own loop, without its per-frame checks: the ROUTER routes (and
+            # refuses, with ROUTER_MANDATORY) on the first frame, so a refusal sends nothing
+            for frame in frames[:-1]:
+                sock.send(frame, _MORE_NOW)
+            sock.send(frames[-1], zmq.NOBLOCK)
         except zmq.Again:
             return "again"
         except zmq.ZMQError as err:

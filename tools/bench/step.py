@@ -6,15 +6,26 @@ Part 2: each trick of the per-trial path beside the readable version the tests h
 (tests/test_fast_paths.py: same bits), timed side by side in this run; the ratio is
 reference time / trick time. The figures in the code's comments come from here.
 
-    python tools/bench/step.py [--json] [--reps 5] [--cpu]
+Part 3 (``--against REV``): the same trials stepped by the code at git revision REV and by
+the working tree in one process, alternating trial by trial (which goes first alternating
+too), so a loaded shared machine slows both alike: each example's median and p99 for both,
+and their ratio. REV's package is unpacked into a temporary directory under another name.
+
+    python tools/bench/step.py [--json] [--reps 5] [--cpu] [--against REV]
 """
 
 from __future__ import annotations
 
 import argparse
 import dataclasses
+import importlib
+import io
 import itertools
 import json
+import re
+import subprocess
+import tarfile
+import tempfile
 import statistics
 import sys
 import time
@@ -130,20 +141,92 @@ def tricks() -> dict[str, dict[str, float]]:
     }
 
 
+def _package_at(rev: str, into: Path) -> str:
+    """rigloop as of git revision ``rev``, unpacked under ``into`` as the package
+    ``rigloop_at_rev`` (its absolute imports renamed), importable beside the working tree."""
+    try:
+        tar = subprocess.run(["git", "-C", str(ROOT), "archive", "--format=tar", rev, "rigloop"], check=True,
+                             capture_output=True).stdout
+    except (OSError, subprocess.CalledProcessError) as err:
+        detail = getattr(err, "stderr", b"") or b""
+        raise SystemExit(f"--against {rev}: git archive failed ({detail.decode(errors='replace').strip() or err}); "
+                         f"give a commit, branch or tag of this repository") from None
+    with tarfile.open(fileobj=io.BytesIO(tar)) as archive:
+        archive.extractall(into, filter="data")
+    (into / "rigloop").rename(into / "rigloop_at_rev")
+    pattern = re.compile(r"\b(from|import) rigloop(?=[. ])")
+    for path in (into / "rigloop_at_rev").rglob("*.py"):
+        text = path.read_text()
+        new = pattern.sub(r"\1 rigloop_at_rev", text)
+        if new != text:
+            path.write_text(new)
+    sys.path.insert(0, str(into))
+    return "rigloop_at_rev"
+
+
+def against(rev: str, clock) -> dict[str, dict[str, float]]:
+    """Median and p99 µs of ``step`` at ``rev`` and now, the same trials alternating in one process."""
+    import gc
+
+    with tempfile.TemporaryDirectory(prefix="rigloop-step-") as tmp:
+        old_pkg = _package_at(rev, Path(tmp))
+        sides = {}
+        for key, pkg in (("then", old_pkg), ("now", "rigloop")):
+            sides[key] = (importlib.import_module(pkg + ".core.step"), importlib.import_module(pkg + ".core.subject"),
+                          importlib.import_module(pkg + ".rules"), importlib.import_module(pkg + ".core.trial"))
+        out = {}
+        for name in EXAMPLES:
+            rules_now = load_example(name)
+            run = simulate_session(rules_now, animal_for(rules_now, "b1", 1), session="s1", max_trials=400)
+            times: dict[str, list[float]] = {"then": [], "now": []}
+            states, rules, events = {}, {}, {}
+            for key, (st, sub, rl, tr) in sides.items():
+                rules[key] = rl.load_example(name)
+                state = sub.new_subject("b1", rules[key])
+                states[key], _ = st.begin_session(state, rules[key], session="s1", rig="sim-rig", wall_time=1.8e9,
+                                                  seed=run.state.context.seed)
+                events[key] = [tr.TrialEvent.from_dict(e.to_dict()) for e in run.events]
+            gc.disable()
+            try:
+                for i in range(len(run.events)):
+                    for key in (("then", "now") if i % 2 else ("now", "then")):
+                        step = sides[key][0].step
+                        t0 = clock()
+                        states[key], _, _ = step(states[key], events[key][i], rules[key])
+                        times[key].append(clock() - t0)
+            finally:
+                gc.enable()
+            row = {}
+            for key, ts in times.items():
+                row[f"{key}_median_us"] = round(statistics.median(ts) * 1e6, 1)
+                row[f"{key}_p99_us"] = round(statistics.quantiles(ts, n=100)[98] * 1e6, 1)
+            row["ratio"] = round(row["then_median_us"] / row["now_median_us"], 2)
+            out[name] = row
+        sys.path.remove(tmp)
+        return out
+
+
 def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--json", action="store_true")
     ap.add_argument("--reps", type=int, default=5)
     ap.add_argument("--cpu", action="store_true",
                     help="time step by this thread's CPU time, not wall time (a busy shared machine)")
+    ap.add_argument("--against", metavar="REV",
+                    help="also step the same trials with rigloop at this git revision, alternating in one process")
     args = ap.parse_args()
     if args.reps < 1:
         ap.error(f"--reps must be at least 1, not {args.reps}")
+    if args.against and subprocess.run(["git", "-C", str(ROOT), "rev-parse", "--verify", "--quiet",
+                                        f"{args.against}^{{commit}}"], capture_output=True).returncode != 0:
+        ap.error(f"--against {args.against}: not a commit of this repository (give a commit, branch or tag)")
     p99: dict[str, float] = {}
     out = {"step_median_us": step_medians(args.reps, time.thread_time if args.cpu else time.perf_counter, p99),
            "step_p99_us": p99, "clock": "thread CPU time" if args.cpu else "wall time", "tricks": tricks(),
            "target_step_us": 60.0}
     out["pass"] = out["step_median_us"]["tone_reversal"] <= out["target_step_us"]
+    if args.against:
+        out["against"] = {"rev": args.against, **against(args.against, time.thread_time if args.cpu else time.perf_counter)}
     if args.json:
         print(json.dumps(out))
         return 0
@@ -157,6 +240,13 @@ def main() -> int:
     print(f"  {'':<40} {'trick µs':>9} {'reference µs':>13} {'ratio':>7}")
     for name, r in out["tricks"].items():
         print(f"  {name:<40} {r['trick_us']:9.3f} {r['reference_us']:13.3f} {r['ratio']:6.2f}x")
+    if args.against:
+        print(f"\nstep at {args.against} (then) and now, the same trials alternating in one process, µs ({out['clock']}):")
+        print(f"  {'':<22} {'then':>8} {'now':>8} {'ratio':>7} {'p99 then':>9} {'p99 now':>8}")
+        for name in EXAMPLES:
+            r = out["against"][name]
+            print(f"  {name:<22} {r['then_median_us']:8.1f} {r['now_median_us']:8.1f} {r['ratio']:6.2f}x"
+                  f" {r['then_p99_us']:9.1f} {r['now_p99_us']:8.1f}")
     return 0
 
 

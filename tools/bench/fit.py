@@ -8,7 +8,9 @@ parameters, so the fit has an answer to find.
 Printed:
   * one 2,000-trial fit, estimate and Hessian standard errors (4 starts), with the count
     of learner evaluations and of the kernel calls they ran in (a gradient's points are
-    one batch); target <= 2 s. The same fit with profile-likelihood
+    one batch), and where the last run's time went: the Kalman kernel, the link's
+    log-likelihood terms, and the rest (scipy's optimiser, the objective's bookkeeping);
+    target <= 2 s. The same fit with profile-likelihood
     intervals (the default of ``rigloop fit``) is timed too, for information.
   * the speed-up against the readable per-trial path measured in the same run: the
     seconds of one learner evaluation on each path (median of several) and their ratio,
@@ -51,6 +53,7 @@ from rigloop.fit import fast, likelihood  # noqa: E402
 from rigloop.fit.search import _scipy_optimize  # noqa: E402
 from rigloop.fit.cohort import fit_cohort  # noqa: E402
 from rigloop.offline import batch as batch_module  # noqa: E402
+from rigloop.offline import batch_kernels  # noqa: E402
 
 TONES = CueList(["tone_hi", "tone_lo"])
 REP = make_representation("serial_compound", TONES, dt=0.5, n_bins=4)
@@ -102,6 +105,34 @@ class Counter:
         fast.kalman_probes = self.inner
 
 
+class KernelClock:
+    """Wall seconds inside the compiled kernels during a fit: the Kalman probes, and the
+    go/no-go link's terms (one point or a batch of points per call)."""
+
+    PARTS = {"kalman_probes": "kalman", "respond_terms": "link", "respond_points": "link"}
+
+    def __init__(self):
+        self.seconds = {"kalman": 0.0, "link": 0.0}
+        self.inner = {}
+
+    def __enter__(self):
+        for name, part in self.PARTS.items():
+            inner = self.inner[name] = getattr(batch_kernels, name)
+
+            def timed(*a, _inner=inner, _part=part):
+                t0 = time.perf_counter()
+                try:
+                    return _inner(*a)
+                finally:
+                    self.seconds[_part] += time.perf_counter() - t0
+            setattr(batch_kernels, name, timed)
+        return self
+
+    def __exit__(self, *exc):
+        for name, inner in self.inner.items():
+            setattr(batch_kernels, name, inner)
+
+
 def per_evaluation(data, reference: bool, reps: int) -> float:
     """Median seconds of one onset-value evaluation at the true parameters."""
     old = os.environ.get("RIGLOOP_NO_NUMBA")
@@ -149,11 +180,12 @@ def main(argv=None) -> int:
     # others were slowed by someone else's work); each run is the same fit, bit for bit
     fit_runs = []
     for _ in range(args.repeats):
-        with Counter() as count:
+        with Counter() as count, KernelClock() as clock:
             t0, c0 = time.perf_counter(), time.process_time()
             point = fit.fit_subject(data, "kalman_td", starts=4, intervals=False)
             fit_runs.append(time.perf_counter() - t0)
             fit_cpu = time.process_time() - c0
+    split = {**clock.seconds, "rest": fit_runs[-1] - sum(clock.seconds.values())}
     fit_s = min(fit_runs)
     evals, calls = count.n, count.calls
     t0 = time.perf_counter()
@@ -187,6 +219,7 @@ def main(argv=None) -> int:
     report = {
         "trials": args.trials, "compile_s": compile_s, "scipy_import_s": scipy_s,
         "fit_s": fit_s, "fit_runs_s": fit_runs, "fit_last_cpu_s": fit_cpu, "fit_evaluations": evals, "fit_kernel_calls": calls,
+        "fit_last_split_s": split,
         "fit_with_intervals_s": full_s,
         "fit_with_intervals_converged": full.converged,
         "eval_fast_s": fast_eval, "eval_reference_s": ref_eval, "speedup": speedup,
@@ -207,6 +240,8 @@ def main(argv=None) -> int:
               f"the last used {fit_cpu:.2f} s of CPU), "
               f"{evals:,} learner evaluations in {calls:,} kernel calls   "
               f"target <= {TARGET_FIT_S:g} s  {ok(report['fit_pass'])}")
+        print(f"  the last run's {fit_runs[-1]:.2f} s: Kalman kernel {split['kalman']:.2f} s, link terms "
+              f"{split['link']:.2f} s, the rest (scipy, bookkeeping) {split['rest']:.2f} s")
         print(f"  the same fit with profile-likelihood 95% intervals: {full_s:.2f} s")
         print(f"one learner evaluation: {fast_eval * 1e3:.3f} ms compiled vs {ref_eval * 1e3:.1f} ms "
               f"per-trial: {speedup:.0f}x  (that fit on the per-trial path: about "

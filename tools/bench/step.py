@@ -23,11 +23,11 @@ import io
 import itertools
 import json
 import re
+import statistics
 import subprocess
+import sys
 import tarfile
 import tempfile
-import statistics
-import sys
 import time
 import timeit
 from pathlib import Path

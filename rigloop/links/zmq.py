@@ -36,6 +36,14 @@ from . import BoundedQueue
 
 ZAP_DOMAIN = "rigloop"
 POLLIN = zmq.POLLIN
+
+# plain ints for the per-message paths: pyzmq's constants are enum flags, and `&` or `|` on one
+# runs Python code in the enum module (`get(EVENTS) & POLLIN`: ~4.8 -> ~2.9 µs)
+_EVENTS = int(zmq.EVENTS)
+_POLLIN = int(zmq.POLLIN)
+_NOBLOCK = int(zmq.NOBLOCK)
+_MORE_NOW = int(zmq.SNDMORE | zmq.NOBLOCK)  # a frame of a reply with more to come, never blocking
+
 Again = zmq.Again
 ZMQError = zmq.ZMQError
 
@@ -97,13 +105,10 @@ class Poller:
 
     def poll(self, timeout_ms: float) -> set:
         """The registered things (sockets or fds) ready to read within ``timeout_ms``."""
-        return {s for s, ev in self._poller.poll(max(0, int(timeout_ms))) if ev & zmq.POLLIN}
+        return {s for s, ev in self._poller.poll(max(0, int(timeout_ms))) if ev & _POLLIN}
 
 
 # --------------------------------------------------------------------------- server side
-
-
-_MORE_NOW = zmq.SNDMORE | zmq.NOBLOCK  # a frame of a reply with more to come, never blocking
 
 
 @dataclass(frozen=True, slots=True)
@@ -184,13 +189,13 @@ class RouterLink:
         payload]`` with REQ_CORRELATE). Anything else comes back with ``payload=None``
         and the envelope to send an error on.
         """
-        if not self.socket.get(zmq.EVENTS) & zmq.POLLIN:  # cheaper than a receive that fails
+        if not self.socket.get(_EVENTS) & _POLLIN:  # cheaper than a receive that fails
             return None
         curve = self.curve
         try:
             # frames as bytes (cheaper than Frame objects for small messages); with CURVE as
             # Frames, which carry the User-Id
-            frames = self.socket.recv_multipart(zmq.NOBLOCK, copy=not curve)
+            frames = self.socket.recv_multipart(_NOBLOCK, copy=not curve)
         except zmq.Again:
             return None
         now = time.monotonic_ns()
@@ -216,7 +221,7 @@ class RouterLink:
 
     def waiting(self) -> bool:
         """Whether a message is waiting to be received (cheaper than a poll)."""
-        return bool(self.socket.get(zmq.EVENTS) & zmq.POLLIN)
+        return bool(self.socket.get(_EVENTS) & _POLLIN)
 
     # -- sending ----------------------------------------------------------------
 
@@ -241,7 +246,7 @@ class RouterLink:
             # refuses, with ROUTER_MANDATORY) on the first frame, so a refusal sends nothing
             for frame in frames[:-1]:
                 sock.send(frame, _MORE_NOW)
-            sock.send(frames[-1], zmq.NOBLOCK)
+            sock.send(frames[-1], _NOBLOCK)
         except zmq.Again:
             return "again"
         except zmq.ZMQError as err:
@@ -343,7 +348,7 @@ class PubLink:
 
     def _read_subscriptions(self) -> None:
         """Take in (un)subscriptions that arrived: b"\x01topic" adds, b"\x00topic" removes."""
-        while self.socket.get(zmq.EVENTS) & zmq.POLLIN:  # cheaper than a receive that fails
+        while self.socket.get(_EVENTS) & _POLLIN:  # cheaper than a receive that fails
             try:
                 msg = self.socket.recv(zmq.NOBLOCK)
             except zmq.Again:

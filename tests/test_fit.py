@@ -300,7 +300,8 @@ def test_cli_prints_a_table_and_a_ranking(store_path, capsys):
     assert set(doc) == {"subject", "fits", "ranking"}
     assert set(doc["fits"][0]) == {"learner", "link", "params", "se", "ci95", "fixed",
                                    "log_likelihood", "aic", "bic", "n_trials", "converged",
-                                   "warnings", "cv_log_likelihood"}
+                                   "warnings", "cv_log_likelihood", "calibration"}
+    assert doc["fits"][0]["calibration"] is None  # rigloop fit --calibrate B fills it
     assert doc["fits"][0]["link"] == "respond"
     assert set(doc["fits"][0]["ci95"]) == set(doc["fits"][0]["se"])
 

@@ -41,7 +41,12 @@ def add_fit(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--bootstrap", type=Count(20, 100000), default=0, metavar="N",
                    help="also N parametric-bootstrap refits for percentile intervals (go/no-go fits; "
                         "default: none, profile-likelihood intervals only)")
-    p.add_argument("--seed", type=Count(0), default=0, help="seed of the starts and the bootstrap (default 0)")
+    p.add_argument("--calibrate", type=Count(20, 100000), default=0, metavar="B",
+                   help="calibrate the 95%% profile intervals for small data: B data sets simulated from the "
+                        "fitted model on the animal's own trials scale each cutoff by its mean likelihood "
+                        "ratio (Bartlett); about B/5 s per learner; 100 is a good start (default: none)")
+    p.add_argument("--seed", type=Count(0), default=0,
+                   help="seed of the starts, the bootstrap and the calibration (default 0)")
     add_json(p, "print the fits as JSON (keys: subject, fits, ranking)")
     add_cohort_arguments(p)
     p.set_defaults(func=_run_fit)
@@ -93,6 +98,11 @@ def _mapping(option: str, pairs: Sequence[tuple[str, Any]]) -> dict[str, Any]:
 
 def _run_fit(args: argparse.Namespace) -> int:
     if getattr(args, "subjects", None):
+        if args.calibrate:
+            from ..errors import BadArgument
+
+            raise BadArgument("--calibrate", "a fit of one animal (--subject S): a cohort's "
+                              "intervals come from the population fit", args.calibrate)
         return run_cohort(args)
     if args.subject is None:
         import sys
@@ -103,14 +113,15 @@ def _run_fit(args: argparse.Namespace) -> int:
     return run_command(args.db, args.subject, args.learner, args.session, starts=args.starts,
                        as_json=args.json, link=args.link, fix=_mapping("--fix", args.fix),
                        bounds=_mapping("--bounds", args.bounds), start=_mapping("--start", args.start),
-                       bootstrap=args.bootstrap, seed=args.seed)
+                       bootstrap=args.bootstrap, seed=args.seed, calibrate=args.calibrate)
 
 
 def run_command(db: str, subject: str, learners: Sequence[str] | None = None,
                 session: str | None = None, *, starts: int = 4, as_json: bool = False,
                 out=None, link: str | None = None, fix: Mapping[str, float] | None = None,
                 bounds: Mapping[str, tuple[float, float]] | None = None,
-                start: Mapping[str, float] | None = None, bootstrap: int = 0, seed: int = 0) -> int:
+                start: Mapping[str, float] | None = None, bootstrap: int = 0, seed: int = 0,
+                calibrate: int = 0) -> int:
     """``rigloop fit``: fit the stored subject, print the table(s) (or JSON); exit status."""
     import json
     import sys
@@ -134,6 +145,9 @@ def run_command(db: str, subject: str, learners: Sequence[str] | None = None,
     with open_store(db) as store:
         stored_sessions(store, subject, session)
         if is_two_step(store, subject, session):
+            if calibrate:
+                raise BadArgument("--calibrate", "left out for two-step trials: w gets its profile-likelihood "
+                                  "interval", calibrate)
             return _run_two_step_fit(store, subject, names, session, starts=starts, as_json=as_json, out=out,
                                      link=link, fix=fix or {}, bounds=bounds or {}, start=start or {},
                                      bootstrap=bootstrap, seed=seed)
@@ -146,7 +160,7 @@ def run_command(db: str, subject: str, learners: Sequence[str] | None = None,
         got = fit_from_store(store, subject, learner=names if names and len(names) > 1 else
                              (names[0] if names else None), session=session, starts=starts,
                              progress=bar, link=link, fix=fix, bounds=bounds, start=start,
-                             bootstrap=bootstrap, seed=seed,
+                             bootstrap=bootstrap, seed=seed, calibrate=calibrate,
                              option_names=("--fix", "--bounds", "--start"))
         bar.close()
     results = got if isinstance(got, list) else [got]

@@ -5,7 +5,7 @@ subject's stored sessions with the models their rule files name.
 from __future__ import annotations
 
 from collections.abc import Callable, Iterable, Mapping, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
 from ..core.features import Representation
@@ -109,6 +109,7 @@ def compare_learners(
     crossval: bool = True,
     intervals: bool = True,
     bootstrap: int = 0,
+    calibrate: int = 0,
 ) -> list[FitResult]:
     """Fit each candidate in ``models`` to the same trials; the results ranked by AIC.
 
@@ -116,8 +117,12 @@ def compare_learners(
     Rows are computed once per distinct representation, reward unit and link. The
     likelihoods are of the same responses, so their AICs compare whatever the
     representations. With two or more sessions each result also carries the
-    cross-validated log-likelihood of held-out sessions (``crossval``).
-    progress(done, total) counts starts over all the models.
+    cross-validated log-likelihood of held-out sessions (``crossval``). calibrate: that
+    many simulated data sets per model calibrate its profile intervals (``calibrate.py``);
+    without it, a fit with few trials per free parameter is warned that its χ² intervals
+    undercover (``calibrate.small_data_warning``).
+    progress(done, total) counts starts over all the models (then each calibration's
+    data sets).
     """
     specs = [m if isinstance(m, ModelSpec) else spec_from_rules(m) for m in models]
     if not specs:
@@ -136,16 +141,34 @@ def compare_learners(
             def each(done: int, total: int, i: int = i) -> None:
                 progress(i * total + done, len(specs) * total)
         try:
-            results.append(fit_subject(prepared[key], spec.learner, fixed=spec.fixed,
-                                       start=spec.start, bounds=spec.bounds, starts=starts,
-                                       seed=seed, progress=each, crossval=crossval,
-                                       intervals=intervals, bootstrap=bootstrap))
+            result = fit_subject(prepared[key], spec.learner, fixed=spec.fixed,
+                                 start=spec.start, bounds=spec.bounds, starts=starts,
+                                 seed=seed, progress=each, crossval=crossval,
+                                 intervals=intervals, bootstrap=bootstrap)
+            results.append(_with_calibration(result, events, prepared[key], intervals,
+                                             calibrate, seed, progress))
         except BadArgument as err:
             hint = _other_link_hint(err, events, link)
             if hint is None:
                 raise
             raise BadArgument(err.argument, err.expected + hint, err.value) from None
     return sorted(results, key=lambda r: r.aic)
+
+
+def _with_calibration(result: FitResult, events: Sequence, data: FitData, intervals: bool,
+                      calibrate: int, seed: int, progress) -> FitResult:
+    """``result`` with calibrated intervals (``calibrate`` data sets), or with the warning
+    that its χ² intervals undercover at this many trials per free parameter."""
+    from .calibrate import calibrated_fit, small_data_warning
+
+    if not intervals:
+        return result
+    if calibrate:
+        return calibrated_fit(events, result, calibrate, seed=seed, data=data, progress=progress)
+    warning = small_data_warning(result.n_trials, result.k, result.link)
+    if warning is None:
+        return result
+    return replace(result, warnings=(*result.warnings, warning))
 
 
 def _other_link_hint(err: BadArgument, events: Sequence, link: str) -> str | None:
@@ -178,6 +201,7 @@ def fit_from_store(
     bootstrap: int = 0,
     crossval: bool = True,
     intervals: bool = True,
+    calibrate: int = 0,
     option_names: Sequence[str] = ("fix", "bounds", "start"),
 ) -> FitResult | list[FitResult]:
     """Fit a subject's stored trials (every session, or only ``session``).
@@ -189,7 +213,8 @@ def fit_from_store(
     link: None picks it from the trials' response kinds. fix, bounds, start: the caller's
     pins, search bounds and starts, applied to each learner that has the parameter
     (``ModelSpec.with_choices``). crossval: the held-out-session log-likelihood (two
-    sessions or more). A name in fix, bounds or start that no fitted model has is refused
+    sessions or more). calibrate: simulated data sets per learner for calibrated
+    intervals (``compare_learners``). A name in fix, bounds or start that no fitted model has is refused
     with the valid ones (``option_names``: what the three are called in the message).
     """
     infos = stored_sessions(store, subject, session)
@@ -201,7 +226,8 @@ def fit_from_store(
     _check_parameter_names(plain, link, option_names, fix, bounds, start)
     specs = [spec.with_choices(fix, bounds, start) for spec in plain]
     ranked = compare_learners(events, specs, starts=starts, seed=seed, progress=progress,
-                              crossval=crossval, intervals=intervals, bootstrap=bootstrap)
+                              crossval=crossval, intervals=intervals, bootstrap=bootstrap,
+                              calibrate=calibrate)
     return ranked[0] if learner is None or isinstance(learner, str) else ranked
 
 

@@ -68,7 +68,8 @@ class Interval:
 def profile_intervals(nll: Callable[[np.ndarray], float], s_hat: np.ndarray, nll_hat: float,
                       natural: Callable[[np.ndarray], np.ndarray], names: Sequence[str],
                       minimise: Minimiser, se_unit: Sequence[float | None] | None = None,
-                      progress: Callable[[], None] | None = None
+                      progress: Callable[[], None] | None = None,
+                      cutoffs: Sequence[float] | None = None
                       ) -> tuple[dict[str, Interval], float]:
     """The 95% profile interval of every free parameter, and the lowest −log L seen.
 
@@ -76,16 +77,19 @@ def profile_intervals(nll: Callable[[np.ndarray], float], s_hat: np.ndarray, nll
     natural values; minimise(f, s0) → (s, f(s)) a local minimiser on [0, 1]^m; se_unit:
     Wald standard errors on the unit box (a first guess of each end), None where unknown.
     The lowest −log L seen is below nll_hat when a profile found a better point than the
-    optimiser (the caller warns).
+    optimiser (the caller warns). cutoffs: the likelihood-ratio cutoff of each parameter's
+    interval (default 3.84, χ²(1)'s 95% quantile, for all); a calibrated interval
+    (``calibrate.py``) hands in 3.84 times its Bartlett factor.
     """
     out: dict[str, Interval] = {}
     best = [float(nll_hat)]
     for j, name in enumerate(names):
         guess = se_unit[j] if se_unit is not None else None
-        prof = _Profile(nll, s_hat, j, minimise, best)
+        drop = DROP if cutoffs is None else float(cutoffs[j]) / 2.0
+        prof = _Profile(nll, s_hat, j, minimise, best, drop)
         ends = []
         for direction in (-1.0, 1.0):
-            ends.append(_end(prof, s_hat[j], nll_hat, direction, guess))
+            ends.append(_end(prof, s_hat[j], nll_hat, direction, guess, drop))
         (s_lo, lo_end), (s_hi, hi_end) = ends
         lo_pt, hi_pt = np.array(s_hat, dtype=np.float64), np.array(s_hat, dtype=np.float64)
         lo_pt[j], hi_pt[j] = s_lo, s_hi
@@ -99,8 +103,8 @@ class _Profile:
     """The profile −log L of coordinate j: the others re-fitted from the estimate (and,
     where that lands above the 1.92 line, also from the last point solved)."""
 
-    def __init__(self, nll, s_hat, j, minimise, best):
-        self.nll, self.j, self.minimise, self.best = nll, j, minimise, best
+    def __init__(self, nll, s_hat, j, minimise, best, drop: float = DROP):
+        self.nll, self.j, self.minimise, self.best, self.drop = nll, j, minimise, best, drop
         self.s_hat = np.array(s_hat, dtype=np.float64)
         self.others = [i for i in range(len(s_hat)) if i != j]
         self.warm = self.s_hat[self.others]
@@ -118,7 +122,7 @@ class _Profile:
             # from the estimate's other coordinates: a warm start carried from a far probe
             # can sit in another basin and make the profile rise too soon
             z, value = self.minimise(inner, self.s_hat[self.others])
-            if value > self.best[0] + DROP and not np.array_equal(self.warm, self.s_hat[self.others]):
+            if value > self.best[0] + self.drop and not np.array_equal(self.warm, self.s_hat[self.others]):
                 z2, v2 = self.minimise(inner, self.warm)
                 if v2 < value:
                     z, value = z2, v2
@@ -131,10 +135,11 @@ class _Profile:
 
 
 def _end(prof: _Profile, sj_hat: float, nll_hat: float, direction: float,
-         guess: float | None) -> tuple[float, str]:
+         guess: float | None, drop: float = DROP) -> tuple[float, str]:
     """One end of the interval on the unit box, and how it was reached.
 
-    The end is the root of the signed likelihood root r(s) = √(2(ℓ_p(s) − ℓ̂)) − √3.84,
+    The end is the root of the signed likelihood root r(s) = √(2(ℓ_p(s) − ℓ̂)) − √(2·drop)
+    (√3.84 uncalibrated),
     which is close to linear in the parameter where the χ²(1) calibration holds (the
     statistic is a squared, nearly normal quantity; Barndorff-Nielsen & Cox 1994,
     *Inference and Asymptotics*, §3.4, from memory), so a secant step on it lands near
@@ -144,7 +149,7 @@ def _end(prof: _Profile, sj_hat: float, nll_hat: float, direction: float,
     prof.reset()
     if abs(sj_hat - bound) <= AT_BOUND:
         return bound, "estimate at bound"
-    root = math.sqrt(2.0 * DROP)
+    root = math.sqrt(2.0 * drop)
 
     def rise(sj: float) -> float:
         return math.sqrt(2.0 * max(prof(sj) - nll_hat, 0.0)) - root

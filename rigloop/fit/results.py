@@ -67,6 +67,9 @@ class FitResult:
     bootstrap: parametric-bootstrap 95% percentile interval per fitted parameter, if run.
     cv_log_likelihood: Σ over held-out sessions of their log-likelihood at the parameters
              fitted to the other sessions (``crossval.py``), if computed.
+    calibration: the Bartlett factors of calibrated intervals (``calibrate.Calibration``),
+             if calibrated; ``ci95`` then holds the calibrated intervals and
+             ``ci95_uncalibrated`` the χ² ones.
     """
 
     learner: str
@@ -91,6 +94,8 @@ class FitResult:
     bootstrap: dict[str, tuple[float, float]] | None = None
     cv_log_likelihood: float | None = None
     cv_sessions: int = 0
+    calibration: Any = None
+    ci95_uncalibrated: dict[str, Any] | None = None
 
     @property
     def k(self) -> int:
@@ -107,7 +112,9 @@ class FitResult:
     def record(self) -> dict[str, Any]:
         """The fixed JSON record of ``rigloop fit --json`` (scripts depend on its keys):
         learner, link, params, se, ci95, fixed, log_likelihood, aic, bic, n_trials,
-        converged, warnings; plus cv_log_likelihood (null without two sessions)."""
+        converged, warnings; plus cv_log_likelihood (null without two sessions) and
+        calibration (null unless calibrated: replicates, factor and mean_lr per parameter,
+        and the uncalibrated ci95)."""
         se = {n: (None if self.se is None else _plain_or_none(self.se.get(n))) for n in self.free}
         return {"learner": self.learner, "link": self.link,
                 "params": {n: _jsonable(v) for n, v in self.params.items()},
@@ -116,7 +123,17 @@ class FitResult:
                 "fixed": {n: _jsonable(v) for n, v in self.fixed.items()},
                 "log_likelihood": self.log_likelihood, "aic": self.aic, "bic": self.bic,
                 "n_trials": self.n_trials, "converged": self.converged,
-                "warnings": list(self.warnings), "cv_log_likelihood": self.cv_log_likelihood}
+                "warnings": list(self.warnings), "cv_log_likelihood": self.cv_log_likelihood,
+                "calibration": self._calibration_record()}
+
+    def _calibration_record(self) -> dict[str, Any] | None:
+        cal = self.calibration
+        if cal is None:
+            return None
+        return {"replicates": cal.replicates, "factor": dict(cal.factor),
+                "mean_lr": dict(cal.mean_lr), "se": dict(cal.se),
+                "ci95_uncalibrated": {n: [iv.lo, iv.hi]
+                                      for n, iv in (self.ci95_uncalibrated or {}).items()}}
 
     def to_dict(self) -> dict[str, Any]:
         """Plain data (no per-trial arrays) for JSON."""
@@ -131,7 +148,8 @@ class FitResult:
                 "bounds": {n: list(b) for n, b in self.bounds.items()},
                 "bootstrap": None if self.bootstrap is None else
                 {n: list(b) for n, b in self.bootstrap.items()},
-                "cv_log_likelihood": self.cv_log_likelihood}
+                "cv_log_likelihood": self.cv_log_likelihood,
+                "calibration": self._calibration_record()}
 
 
 def aic(log_likelihood: float, k: int) -> float:
@@ -173,6 +191,15 @@ def format_fit(result: FitResult) -> str:
         lines.append(f"  {name:<12}{value:>11.4g}{(f'{se:.3g}' if se is not None else '-'):>10}  "
                      f"{ci:<24}{f'[{lo:.4g}, {hi:.4g}]':<20}"
                      f"{(f'{start:.4g}' if start is not None else '-'):>8}")
+    if result.calibration is not None:
+        cal = result.calibration
+        lines.append(f"  95% intervals calibrated ({cal.replicates} simulated data sets at the "
+                     f"estimate; cutoff 3.84 x factor):")
+        for name in result.free:
+            iv = (result.ci95_uncalibrated or {}).get(name)
+            plain = f"[{iv.lo:.4g}, {iv.hi:.4g}]" if iv is not None else "-"
+            lines.append(f"    {name:<10} factor {cal.factor[name]:.2f} (mean LR "
+                         f"{cal.mean_lr[name]:.2f} ± {cal.se[name]:.2f}); uncalibrated {plain}")
     if result.bootstrap:
         for name, (lo, hi) in result.bootstrap.items():
             lines.append(f"  bootstrap 95% interval of {name}: [{lo:.4g}, {hi:.4g}]")

@@ -283,3 +283,27 @@ def test_points_scored_in_one_pass_equal_one_at_a_time_bit_for_bit():
         assert batched.values[p.tobytes()] == alone
         assert batched(p) == alone
     assert batched(points[-1]) == _FAR_WORSE
+
+
+def test_the_compiled_logaddexp_has_numpys_bits_at_every_gap():
+    """batch_kernels._logaddexp (numpy's steps; the larger term alone past a gap of 41
+    where the correction cannot round in) against np.logaddexp, every bit: gaps around
+    the cut, sizes around 0.1, powers of two (where the spacing below halves), zeros,
+    infinities and nan."""
+    from rigloop.offline import batch_kernels as bk
+
+    rng = np.random.default_rng(8)
+    big = np.concatenate([rng.normal(0, 30, 20000), -2.0 ** np.arange(-5, 8), 2.0 ** np.arange(-5, 8),
+                          np.nextafter(0.1, [0, 1]), -np.nextafter(0.1, [0, 1]), [0.0, -0.0]])
+    gaps = np.concatenate([rng.uniform(-60, 60, big.size // 2), rng.uniform(40.5, 41.5, big.size - big.size // 2)])
+    # just past the cut at the smallest sizes it applies to, both signs
+    edge = rng.choice([-1.0, 1.0], 20000) * rng.uniform(0.1, 0.13, 20000)
+    past = rng.uniform(41.0, 41.2, 20000)
+    x = np.concatenate([big, big + gaps, edge, edge - past,
+                        [math.inf, -math.inf, math.inf, 1.0, math.nan, -math.inf]])
+    y = np.concatenate([big + gaps, big, edge - past, edge, [1.0, 1.0, math.inf, -math.inf, 1.0, -math.inf]])
+    got = np.empty_like(x)
+    bk.logaddexp_many(x, y, got)
+    want = np.logaddexp(x, y)
+    assert np.array_equal(got.view(np.int64)[~np.isnan(want)], want.view(np.int64)[~np.isnan(want)])
+    assert np.array_equal(np.isnan(got), np.isnan(want))

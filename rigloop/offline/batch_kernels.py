@@ -614,20 +614,38 @@ def delta_probes(w, z, X, r, bounds, probes, has, alpha, g, gl, V, status):
 # --------------------------------------------------------------------------- go/no-go terms
 
 _LOGE2 = 0.693147180559945309417232121458176568  # log 2, as numpy's NPY_LOGE2
+# Beyond this gap the smaller term cannot move the larger one (when that is >= 0.1 in
+# size): log1p(e^(−41)) <= e^(−41) ≈ 1.6e-18, below half the spacing of doubles next to
+# any |x| >= 0.1 (0.1 · 2^−54 ≈ 5.5e-18), so x + log1p(e^(−gap)) rounds to x exactly
+_NEGLIGIBLE_GAP = 41.0
+_NEGLIGIBLE_FROM = 0.1
 
 
 @njit(cache=True, nogil=True)
 def _logaddexp(x, y):
     """log(eˣ + eʸ) by numpy's own steps (npy_logaddexp: the C library's exp and log1p),
-    so the same bits as ``np.logaddexp``."""
+    so the same bits as ``np.logaddexp``; where the gap makes the correction round away
+    (``_NEGLIGIBLE_GAP``) the larger term is returned without calling exp and log1p,
+    which is the number those steps give."""
     if x == y:
         return x + _LOGE2
     tmp = x - y
     if tmp > 0.0:
+        if tmp > _NEGLIGIBLE_GAP and abs(x) >= _NEGLIGIBLE_FROM:
+            return x
         return x + math.log1p(math.exp(-tmp))
     elif tmp <= 0.0:
+        if tmp < -_NEGLIGIBLE_GAP and abs(y) >= _NEGLIGIBLE_FROM:
+            return y
         return y + math.log1p(math.exp(tmp))
     return tmp
+
+
+@njit(cache=True, nogil=True)
+def logaddexp_many(x, y, out):
+    """``_logaddexp`` elementwise into out (tests hold it to ``np.logaddexp``'s bits)."""
+    for k in range(x.shape[0]):
+        out[k] = _logaddexp(x[k], y[k])
 
 
 @njit(cache=True, nogil=True)

@@ -70,3 +70,33 @@ def test_values_the_writers_were_not_made_for_fall_back_to_the_reference():
         quantities_text({"x": math.nan})
     with pytest.raises(ValueError):
         canonical_json({"x": math.nan})
+
+
+def test_the_up_front_tests_send_the_unusual_the_checked_way_with_the_same_text():
+    """event_text and decision_text test the usual values once up front; what fails that
+    (no cue or two, a sum of times that overflows, a numpy float set behind the
+    constructor's back) is written value by value or by the reference: the same characters."""
+    big = 1.7e308  # finite, but two of them add up to inf
+    one = (CuePresentation("a", 0.5, 1.0),)
+    events = [
+        TrialEvent("m", "r", "s", 1, (), Outcome(), Response()),
+        TrialEvent("m", "r", "s", 1, (CuePresentation("b", 0.1, 0.2), CuePresentation("a", 0.5, 1.0)), Outcome(),
+                   Response("licks", 3.0, "correct", 0.7)),
+        TrialEvent("m", "r", "s", 1, one, Outcome(), Response("choice", "left"), duration=big, wall_time=big),
+        TrialEvent("m", "r", "s", 1, one, Outcome(2.0, 0.8, "airpuff", 0.9, 1.5), Response("licks", -0.0, None, 0.0)),
+    ]
+    odd = TrialEvent("m", "r", "s", 1, one, Outcome(), Response("licks", 2.0))
+    object.__setattr__(odd.response, "value", np.float64(2.5))
+    events.append(odd)
+    for ev in events:
+        assert event_text(ev) == canonical_json(ev.to_dict())
+    decisions_ = [
+        Decision("m", "s", 2, None, 0.5, 1.0, True, "b", "st"),
+        Decision("m", "s", 2, "a", 1.0, big, False, "b", "st", end_session=True, difficulty=big, valve_ms=3.5),
+        Decision("m", "s", 2, "a", 0.25, 0.0, False, "b", "st", difficulty=-0.0, warnings=("w",)),
+    ]
+    odd_d = Decision("m", "s", 2, "a", 0.5, 1.0, True, "b", "st")
+    object.__setattr__(odd_d, "reward_ul", np.float64(1.5))
+    decisions_.append(odd_d)
+    for d in decisions_:
+        assert decision_text(d) == canonical_json(d.to_dict())

@@ -47,16 +47,6 @@ ENV_OFF = "RIGLOOP_NO_NUMBA"
 # (measured on 2 cores: a 6-subject learn_steps call)
 PARALLEL_MIN_STEPS = 2048
 
-# LLVM's SLP vectoriser packs independent scalar operations side by side into vector
-# instructions: the four parameter sets of ``_kalman_lanes``, written out lane by lane,
-# become one vector operation each (about a fifth off a fit's kernel time, measured in
-# tools/bench/fit.py). numba leaves that pass off by default; it only groups operations,
-# never reorders a sum or fuses a multiply-add, so every number stays the same bit for
-# bit (tests/test_fit_fast.py, tests/test_batch.py). Read when a kernel is compiled;
-# NUMBA_SLP_VECTORIZE in the environment still decides when it is set.
-if "NUMBA_SLP_VECTORIZE" not in os.environ:
-    numba.config.SLP_VECTORIZE = 1
-
 _parallel_lock = threading.Lock()
 _forked = [False]
 os.register_at_fork(after_in_child=lambda: _forked.__setitem__(0, True))
@@ -373,7 +363,7 @@ def _kalman_probes(A, X, r, bounds, probes, has, hptr, hidx, learns, g, tau2, no
 # set's numbers are ``_kalman_probes``'s bit for bit (the same operations in the same
 # order; the union of the sets' non-zero entries of u adds exact zeros to a set where
 # its own entry is zero). tests/test_fit_fast.py pins that. The hot loops are written
-# out for the four lanes (x0 .. x3), so that the SLP vectoriser (above) finds them.
+# out for the four lanes (x0 .. x3), so that the SLP vectoriser (below) finds them.
 
 LANES = 4  # _kalman_lanes writes its hot loops out for exactly four
 
@@ -504,9 +494,37 @@ def _kalman_lanes(A, X, r, bounds, probes, has, hptr, hidx, learns, g, tau2, noi
                 A[n, i, 3] += c3 * u3
 
 
-@njit(cache=True, nogil=True)
+# LLVM's SLP vectoriser packs independent scalar operations side by side into vector
+# instructions: the four parameter sets of ``_kalman_lanes``, written out lane by lane,
+# become one vector operation each (about a fifth off a fit's kernel time, measured in
+# tools/bench/fit.py). numba leaves that pass off by default; it only groups operations,
+# never reorders a sum or fuses a multiply-add, so every number stays the same bit for
+# bit (tests/test_fit_fast.py). It is on only while ``kalman_probes`` compiles (numba
+# reads the setting then): the one-subject kernels above measured a few per cent slower
+# with it (tools/bench/replay_batch.py). NUMBA_SLP_VECTORIZE in the environment decides
+# when it is set.
+_SLP_FOR_LANES = "NUMBA_SLP_VECTORIZE" not in os.environ
+
+
 def kalman_probes(A, X, r, bounds, probes, has, hptr, hidx, learns, g, tau2, noise, skip_empty,
                   V, var, status, lanes):
+    """``_kalman_probes_sets``, compiled (on its first call, or loaded from the disk cache)
+    with the SLP vectoriser on."""
+    if not _SLP_FOR_LANES:
+        return _kalman_probes_sets(A, X, r, bounds, probes, has, hptr, hidx, learns, g, tau2,
+                                   noise, skip_empty, V, var, status, lanes)
+    before = numba.config.SLP_VECTORIZE
+    numba.config.SLP_VECTORIZE = 1
+    try:
+        return _kalman_probes_sets(A, X, r, bounds, probes, has, hptr, hidx, learns, g, tau2,
+                                   noise, skip_empty, V, var, status, lanes)
+    finally:
+        numba.config.SLP_VECTORIZE = before
+
+
+@njit(cache=True, nogil=True)
+def _kalman_probes_sets(A, X, r, bounds, probes, has, hptr, hidx, learns, g, tau2, noise,
+                        skip_empty, V, var, status, lanes):
     """``_kalman_probes`` for P parameter sets: A (P, n + 1, n); g, tau2, noise (P,);
     V, var (P, N, Q); status (P,) int64 receives each set's status. lanes: run them
     LANES at a time side by side (``_kalman_lanes``; a last group of one runs alone,

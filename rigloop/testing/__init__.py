@@ -208,7 +208,7 @@ class DaemonProcess:
         self.cmd = cmd
         self.log_path = self.data / "serve.log"
         self._log = open(self.log_path, "ab")
-        root = str(Path(__file__).resolve().parent.parent)  # this rigloop, whatever the cwd
+        root = str(Path(__file__).resolve().parents[2])  # the folder holding this rigloop package, whatever the cwd
         path = os.pathsep.join([root, os.environ["PYTHONPATH"]]) if os.environ.get("PYTHONPATH") else root
         self.proc = subprocess.Popen(cmd, stdout=self._log, stderr=subprocess.STDOUT, stdin=subprocess.DEVNULL,
                                      env={**os.environ, "PYTHONPATH": path, **(env or {})})

@@ -39,7 +39,8 @@ def test_bartlett_scaling_restores_coverage_for_a_normal_mean_with_unknown_varia
 
     def exact(n: int) -> tuple[float, object]:
         t = stats.t(n - 1)
-        mean, _ = integrate.quad(lambda x: n * math.log1p(x * x / (n - 1)) * t.pdf(x), -np.inf, np.inf)
+        mean, _ = integrate.quad(lambda x: n * math.log1p(x * x / (n - 1)) * t.pdf(x),
+                                 -np.inf, np.inf)
         return mean, t
 
     def coverage(n: int, t, cutoff: float) -> float:
@@ -100,7 +101,8 @@ def test_calibrated_intervals_contain_the_plain_ones_and_say_so(gonogo_fit):
     assert c.ci95_uncalibrated == r.ci95 and set(c.ci95) == set(r.free)
     for name in r.free:
         assert c.calibration.factor[name] >= 1.0
-        assert c.ci95[name].lo <= r.ci95[name].lo + 1e-9 and c.ci95[name].hi >= r.ci95[name].hi - 1e-9
+        assert c.ci95[name].lo <= r.ci95[name].lo + 1e-9
+        assert c.ci95[name].hi >= r.ci95[name].hi - 1e-9
     assert any("calibrated from 40 simulated data sets" in w for w in c.warnings)
     rec = c.record()
     assert rec["calibration"]["replicates"] == 40
@@ -132,7 +134,7 @@ def test_choice_replicates_rerun_the_task_on_the_animals_trials():
         assert rep.sessions == data.sessions and rep.n_observed == data.n_observed
         assert not np.array_equal(rep.responded, data.responded)
         # the reward each replicate got follows its own choice and the trial's correct side
-        for k, (X, rew) in enumerate(rep.rows):
+        for k, (_, rew) in enumerate(rep.rows):
             correct = "right" if (events[k].cues[0].cue == "tone_hi") == (k < 60) else "left"
             chose_right = rep.responded[k] == 1.0
             assert (rew.sum() > 0) == ((correct == "right") == chose_right)
@@ -155,8 +157,8 @@ def test_cli_calibrate_and_its_wrong_input(tmp_path, capsys):
 
     path = tmp_path / "rig.db"
     rules = load_example("two_choice_staircase")
-    animal = SimulatedAnimal("r07", task="choice", sides={"light_left": "left", "light_right": "right"},
-                             seed=4)
+    sides = {"light_left": "left", "light_right": "right"}
+    animal = SimulatedAnimal("r07", task="choice", sides=sides, seed=4)
     with Store(path) as store:
         record_session(store, rules, animal, session="s1", start_time=1.8e9, max_trials=80)
     base = ["fit", "--db", str(path), "--subject", "r07", "--starts", "1", "--fix", "persev=0",

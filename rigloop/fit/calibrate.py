@@ -80,7 +80,7 @@ def bartlett_factors(data: FitData, result: FitResult, replicates: int, *, seed:
 
     replicates = _count(replicates)
     optimize = _scipy_optimize()
-    free, learner = result.free, result.learner
+    free = result.free
     box = _Box(free, result.bounds)
     s_hat = box.unit(np.array([result.params[n] for n in free], dtype=np.float64))
     lr = np.zeros((replicates, len(free)))
@@ -100,7 +100,8 @@ def factor_of(mean_lr: float) -> float:
     return max(1.0, float(mean_lr))
 
 
-def _ratios_at_generating(optimize, local, box, objective: NegLogLik, s_gen: np.ndarray) -> np.ndarray:
+def _ratios_at_generating(optimize, local, box, objective: NegLogLik,
+                          s_gen: np.ndarray) -> np.ndarray:
     """2·(ℓ̂_b − ℓ_b(θ_j = generating)) for each coordinate j of one replicate, every fit
     started from the generating values (the replicate's own maximum is near them)."""
     def nll(s: np.ndarray) -> float:

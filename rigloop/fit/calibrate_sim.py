@@ -28,7 +28,7 @@ from collections.abc import Iterator, Sequence
 import numpy as np
 
 from ..core.features import CueList, make_representation
-from ..core.trial import Outcome, Response
+from ..core.trial import Outcome
 from ..errors import BadArgument
 from ..offline.fitted_animals import SIDES, FittedModel, ModelRuns, split_params
 from .data import FitData, chose, prepare
@@ -60,8 +60,8 @@ def choice_replicates(events: Sequence, data: FitData, result, replicates: int,
     """``replicates`` two-choice data sets from the fitted model on ``events`` (see the
     module docstring), each prepared as the fit prepares the animal's trials."""
     lp, obs = split_params(result.learner, "choice", result.params)
-    model = FittedModel(result.learner, "choice", lp, obs, plain_representation(data.representation),
-                        data.reward_unit_ul)
+    model = FittedModel(result.learner, "choice", lp, obs,
+                        plain_representation(data.representation), data.reward_unit_ul)
     runs = ModelRuns(model, replicates, int(rng.integers(2**32)))
     rates = _reward_rates(events)
     volume = _typical_volume(events)
@@ -103,7 +103,8 @@ def choice_replicates(events: Sequence, data: FitData, result, replicates: int,
 def plain_representation(rep):
     """The representation over the plain cues of a ``cue:left``/``cue:right`` one."""
     cues = list(dict.fromkeys(c.rsplit(":", 1)[0] for c in rep.cues.cues))
-    return make_representation(rep.kind, CueList(cues), dt=rep.dt, n_bins=rep.n_bins, decay=rep.decay)
+    return make_representation(rep.kind, CueList(cues), dt=rep.dt, n_bins=rep.n_bins,
+                               decay=rep.decay)
 
 
 def _reward_rates(events: Sequence) -> dict[str, float]:
@@ -145,6 +146,6 @@ def _as_replicate(event, side: float, reward: float, t_reward: float):
     if result in ("correct", "incorrect") and chosen != own:
         result = "incorrect" if result == "correct" else "correct"
     response = dataclasses.replace(event.response, value=chosen, result=result)
-    outcome = (Outcome(reward_ul=float(reward), reward_time=t_reward) if reward > 0 and math.isfinite(reward)
-               else Outcome())
+    paid = reward > 0 and math.isfinite(reward)
+    outcome = Outcome(reward_ul=float(reward), reward_time=t_reward) if paid else Outcome()
     return dataclasses.replace(event, response=response, outcome=outcome)

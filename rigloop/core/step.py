@@ -146,6 +146,22 @@ def _decide(subject: str, ctx: SessionContext, rules, rep, learner, curves, sche
     return schedule, decision
 
 
+def _responses_seen(state: SubjectState, event: TrialEvent, plan: _Plan, did, scored_cue):
+    """The animal's behaviour estimates and choice history after this trial's response:
+    the scored cue's estimate updated with whether it responded (``did``; None: not scored)
+    and the choice-history kernel stepped on a left/right choice. Shared with the
+    decisions-only path (``offline/lockstep``), so both keep the same numbers."""
+    behaviour = state.behaviour
+    if did is not None:
+        behaviour = dict(behaviour)
+        behaviour[scored_cue] = B.updated(behaviour.get(scored_cue), did, plan.beh_sigma2, plan.beh_prior_var)
+    history = state.choice_history
+    side = event.response.value
+    if side == "left" or side == "right":
+        history = float(history_step(history, choice_code(side), plan.decay))
+    return behaviour, history
+
+
 def begin_session(
     state: SubjectState,
     rules,
@@ -293,15 +309,7 @@ def step(state: SubjectState, event: TrialEvent, rules) -> tuple[SubjectState, D
             summary = (all_curve.p(), *all_curve._band(_Z95))  # interval(0.95)
         quantities["p_correct"], quantities["p_lo95"], quantities["p_hi95"] = summary
 
-    behaviour = state.behaviour
-    if did is not None:
-        behaviour = dict(behaviour)
-        behaviour[scored_cue] = B.updated(behaviour.get(scored_cue), did, plan.beh_sigma2, plan.beh_prior_var)
-    history = state.choice_history
-    side = event.response.value
-    if side == "left" or side == "right":
-        history = float(history_step(history, choice_code(side), plan.decay))
-
+    behaviour, history = _responses_seen(state, event, plan, did, scored_cue)
     schedule = rules.observe(state.schedule, event)
     schedule, decision = _decide(state.subject, ctx, rules, rep, learner, curves, schedule, event.trial + 1,
                                  fresh_curves=fresh, finite=finite, behaviour=behaviour)

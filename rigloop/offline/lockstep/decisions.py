@@ -25,8 +25,7 @@ from ...core import behaviour as B
 from ...core.curve import LearningCurve, _updated_state
 from ...core.experience import _action_cues, _is_go, _punishments, _scored
 from ...core.quantities import _cue_ids
-from ...core.responses import choice_code, history_step
-from ...core.step import _decide, _plan_of
+from ...core.step import _decide, _plan_of, _responses_seen
 from ...core.subject import ALL, SubjectState
 
 
@@ -86,15 +85,7 @@ def decide_step(state: SubjectState, event, rules, *, learn: bool = True, curves
                 fresh[cond] = curve
             curves[cond] = new
 
-    behaviour = state.behaviour
-    if did is not None:
-        behaviour = dict(behaviour)
-        behaviour[scored_cue] = B.updated(behaviour.get(scored_cue), did, plan.beh_sigma2, plan.beh_prior_var)
-    history = state.choice_history
-    side = event.response.value
-    if side == "left" or side == "right":
-        history = float(history_step(history, choice_code(side), plan.decay))
-
+    behaviour, history = _responses_seen(state, event, plan, did, scored_cue)
     schedule = rules.observe(state.schedule, event)
     schedule, decision = _decide(state.subject, ctx, rules, rep, seen, curves, schedule, event.trial + 1,
                                  fresh_curves=fresh, finite=finite, behaviour=behaviour)

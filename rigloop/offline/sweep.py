@@ -127,8 +127,13 @@ def _judge(out: SubjectSummary, trials: list, spec) -> None:
 
 
 def _kind(message: str) -> str:
-    """A message with its numbers blanked, so like messages count together."""
-    return re.sub(r"\d+(\.\d+)?", "#", message.split(" -> ")[0])[:70]
+    """A message with its numbers blanked, so like messages count together; a long one
+    cut at a word before 70 characters and marked so (its numbers vary, its start says
+    what it is)."""
+    text = re.sub(r"\d+(\.\d+)?", "#", message.split(" -> ")[0])
+    if len(text) <= 70:
+        return text
+    return text[:70].rsplit(" ", 1)[0].rstrip(" ,;:(") + " …"
 
 
 def simulate_many(rules, subjects: Sequence[str], *, seed: int = 1, sessions: int = 3, max_trials: int = 500,

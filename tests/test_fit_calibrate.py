@@ -14,9 +14,11 @@ from rigloop.cli.main import main
 from rigloop.errors import BadArgument
 from rigloop.fit import synthetic as sy
 from rigloop.fit.calibrate import (
+    CALIBRATED_UNDERCOVER_BELOW,
     UNDERCOVER_BELOW,
     bartlett_factors,
     calibrated_fit,
+    calibrated_small_data_warning,
     factor_of,
     small_data_warning,
 )
@@ -146,6 +148,18 @@ def test_small_data_warning_names_the_option_and_thresholds():
     assert w is not None and "--calibrate" in w and "100 per parameter" in w
     assert small_data_warning(UNDERCOVER_BELOW["respond"] * 4, 4, "respond") is None
     assert small_data_warning(2000, 5, "choice") is None
+
+
+def test_calibrated_small_data_warning_where_calibration_was_measured_short():
+    """Below the measured thresholds a calibrated fit is told its intervals still undercover
+    (recovery.py --calibrate 30: two-choice 87–92% at 100 trials per parameter, 93–94% at
+    200); at and above them, nothing."""
+    w = calibrated_small_data_warning(500, 5, "choice")
+    assert w is not None and "even calibrated" in w and "--fix" in w and "100 per parameter" in w
+    assert calibrated_small_data_warning(CALIBRATED_UNDERCOVER_BELOW["choice"] * 5, 5, "choice") is None
+    assert calibrated_small_data_warning(1000, 4, "respond") is None
+    assert calibrated_small_data_warning(500, 4, "respond") is not None
+    assert calibrated_small_data_warning(10, 0, "choice") is None
 
 
 def test_cli_calibrate_and_its_wrong_input(tmp_path, capsys):

@@ -175,6 +175,9 @@ def calibrated_fit(events: Iterable | FitData, result: FitResult, replicates: in
                                    cutoffs=[cal.cutoff(n) for n in free])
     warnings = list(result.warnings)
     warnings.append(calibration_note(cal))
+    short = calibrated_small_data_warning(result.n_trials, result.k, result.link)
+    if short is not None:
+        warnings.append(short)
     for name in free:
         se = result.se.get(name) if result.se else None
         for w in interval_warnings(name, result.params[name], ci[name], result.bounds[name], se,
@@ -215,6 +218,29 @@ def small_data_warning(n_trials: int, n_free: int, link: str) -> str | None:
             f"measured to contain the truth less than 95% of the time (84–92% at 100–125 per "
             f"parameter); calibrate them (rigloop fit --calibrate 100; calibrated_fit in "
             f"Python) or fix parameters (--fix).")
+
+
+# trials per free parameter below which even calibrated intervals were measured to cover
+# the truth less than 93% of the time (tools/bench/recovery.py --lr-only --calibrate 30,
+# Rescorla–Wagner, 160 data sets per point): go/no-go 125/parameter 92.5–96.9% (lapse short),
+# 250/parameter 95–96% uncalibrated already; two-choice 100/parameter 87–92%, 200/parameter
+# 93.1–94.4%
+CALIBRATED_UNDERCOVER_BELOW = {"respond": 250, "choice": 200}
+
+
+def calibrated_small_data_warning(n_trials: int, n_free: int, link: str) -> str | None:
+    """The warning for a calibrated fit with so few trials per free parameter that even
+    its calibrated intervals were measured to undercover (``CALIBRATED_UNDERCOVER_BELOW``);
+    None with enough trials."""
+    need = CALIBRATED_UNDERCOVER_BELOW.get(link)
+    if need is None or n_free < 1 or n_trials >= need * n_free:
+        return None
+    kind, measured = (("two-choice", "87–92% at 100 per parameter") if link == "choice"
+                      else ("go/no-go", "92.5% for lapse at 125 per parameter"))
+    return (f"{n_trials} trials for {n_free} free parameters ({n_trials / n_free:.0f} per "
+            f"parameter): even calibrated, {kind} 95% intervals were measured to contain the "
+            f"truth less often than 93% of the time below {need} per parameter ({measured}); "
+            f"read them as approximate, fix parameters (--fix) or fit more trials.")
 
 
 def calibration_note(cal: Calibration) -> str:

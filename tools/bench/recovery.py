@@ -38,6 +38,10 @@ verdict as the profile interval, whose ends sit on that crossing, at a fraction 
     python tools/bench/recovery.py --lr-only --tasks gonogo --reps 10 --trials 500,1000,2000
     python tools/bench/recovery.py --lr-only --tasks choice --reps 5 --trials 500,1000,2000
     python tools/bench/recovery.py --lr-only --tasks gonogo --reps 10 --calibrate 30
+    python tools/bench/recovery.py --lr-only --tasks choice --reps 5 --calibrate 30
+    # the target (93-97% for every parameter) at 1,000 trials, calibrated: PASS for both tasks
+    python tools/bench/recovery.py --lr-only --tasks choice --reps 5 --calibrate 30 --trials 1000
+    python tools/bench/recovery.py --lr-only --tasks gonogo --reps 10 --calibrate 30 --trials 1000
 
 Default: 2 repetitions per grid point (a quick look; coverage too noisy to judge); the
 full grid with RIGLOOP_FULL=1 (25 repetitions: 400 fits per task).

@@ -465,3 +465,15 @@ def test_simulate_command_refuses_an_unknown_preset(capsys):
     assert main(["simulate", "tone_reversal", "--subjects", "1", "--animal", "sleepy"]) == 2
     err = capsys.readouterr().err
     assert "'--animal'" in err and "sleepy" in err and "slow_reverser" in err
+
+
+def test_warning_kinds_count_alike_and_cut_long_ones_at_a_word():
+    """simulate's warnings summary: numbers blanked so like messages count together; a long
+    message cut before 70 characters at a word and marked with …, never mid-word."""
+    from rigloop.offline.sweep import _kind
+
+    a = _kind("welfare: on track for 0.6 mL today (0.2 mL so far, 3.1 µL/min over the 30 planned minutes)")
+    b = _kind("welfare: on track for 0.9 mL today (0.4 mL so far, 2.5 µL/min over the 45 planned minutes)")
+    assert a == b and a.endswith(" …") and len(a) <= 72
+    assert a[:-2] == "welfare: on track for # mL today (# mL so far, # µL/min over the #"
+    assert _kind("session ended at trial 12") == "session ended at trial #"

@@ -209,12 +209,11 @@ def small_data_warning(n_trials: int, n_free: int, link: str) -> str | None:
     """The warning for a fit with so few trials per free parameter that its uncalibrated
     95% intervals are known to undercover (``UNDERCOVER_BELOW``), naming the option; None
     with enough trials."""
-    need = UNDERCOVER_BELOW.get(link)
-    if need is None or n_free < 1 or n_trials >= need * n_free:
+    need = _short_of(UNDERCOVER_BELOW, n_trials, n_free, link)
+    if need is None:
         return None
     kind = "two-choice" if link == "choice" else "go/no-go"
-    return (f"{n_trials} trials for {n_free} free parameters ({n_trials / n_free:.0f} per "
-            f"parameter): at fewer than {need} per parameter, {kind} 95% profile intervals were "
+    return (f"{_per_parameter(n_trials, n_free)}: at fewer than {need} per parameter, {kind} 95% profile intervals were "
             f"measured to contain the truth less than 95% of the time (84–92% at 100–125 per "
             f"parameter); calibrate them (rigloop fit --calibrate 100; calibrated_fit in "
             f"Python) or fix parameters (--fix).")
@@ -232,15 +231,28 @@ def calibrated_small_data_warning(n_trials: int, n_free: int, link: str) -> str 
     """The warning for a calibrated fit with so few trials per free parameter that even
     its calibrated intervals were measured to undercover (``CALIBRATED_UNDERCOVER_BELOW``);
     None with enough trials."""
-    need = CALIBRATED_UNDERCOVER_BELOW.get(link)
-    if need is None or n_free < 1 or n_trials >= need * n_free:
+    need = _short_of(CALIBRATED_UNDERCOVER_BELOW, n_trials, n_free, link)
+    if need is None:
         return None
     kind, measured = (("two-choice", "87–92% at 100 per parameter") if link == "choice"
                       else ("go/no-go", "92.5% for lapse at 125 per parameter"))
-    return (f"{n_trials} trials for {n_free} free parameters ({n_trials / n_free:.0f} per "
-            f"parameter): even calibrated, {kind} 95% intervals were measured to contain the "
+    return (f"{_per_parameter(n_trials, n_free)}: even calibrated, {kind} 95% intervals were measured to contain the "
             f"truth less often than 93% of the time below {need} per parameter ({measured}); "
             f"read them as approximate, fix parameters (--fix) or fit more trials.")
+
+
+def _short_of(table: dict[str, int], n_trials: int, n_free: int, link: str) -> int | None:
+    """The trials per free parameter ``table`` asks of ``link`` when this fit has fewer;
+    None when it has enough (or the table says nothing of the link)."""
+    need = table.get(link)
+    if need is None or n_free < 1 or n_trials >= need * n_free:
+        return None
+    return need
+
+
+def _per_parameter(n_trials: int, n_free: int) -> str:
+    return (f"{n_trials} trials for {n_free} free parameters ({n_trials / n_free:.0f} per "
+            f"parameter)")
 
 
 def calibration_note(cal: Calibration) -> str:

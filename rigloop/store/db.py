@@ -28,7 +28,7 @@ from typing import Any, TypeVar
 
 from ..errors import RigloopError, SchemaTooNew, StoreError
 from . import schema
-from .checkpoint import BACKSTOP_PAGES, Checkpointer
+from .checkpoint import BACKSTOP_PAGES, Checkpointer, presize_wal
 
 T = TypeVar("T")
 _SQLITE_MAGIC = b"SQLite format 3\x00"
@@ -37,7 +37,8 @@ _SQLITE_MAGIC = b"SQLite format 3\x00"
 class Database:
     """One checked, prepared SQLite connection to a store file; ``Database(path)`` opens
     or creates it. With ``background_checkpoint`` a second connection on its own thread
-    checkpoints the WAL, so no commit waits for one (``checkpoint.py``; the daemon's)."""
+    checkpoints the WAL, so no commit waits for one, and the WAL is pre-sized so commits
+    overwrite it rather than grow it (``checkpoint.py``; the daemon's)."""
 
     def __init__(self, path: str | os.PathLike, *, create: bool = True, background_checkpoint: bool = False):
         self.path = os.fspath(path)
@@ -62,6 +63,7 @@ class Database:
             if background_checkpoint:
                 try:
                     self.conn.execute(f"PRAGMA wal_autocheckpoint = {BACKSTOP_PAGES}")
+                    presize_wal(self.conn, self.path)
                     self.checkpointer = Checkpointer(self.path)
                 except sqlite3.Error as err:
                     raise StoreError(f"{self.path}: cannot start the checkpoint connection ({err})") from None

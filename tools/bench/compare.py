@@ -10,7 +10,9 @@ timed on the local process pool and the target run's time is projected from its 
   the CPU projection is that × the target's animal-days / the cores. Both simulation
   paths are timed, alternating A/B three times in one run: the per-subject ``step``
   (what ``--db`` runs), the decisions-only path (``offline/lockstep``, without a store) and
-  the per-subject ``step`` storing every trial (``--db``);
+  the per-subject ``step`` storing every trial (``--db``); then per rule file over the
+  animals the pool run draws (the cohort's presets differ in cost: this is the CPU the
+  pool's rate rests on);
 - the split of a trial's CPU time between the decision step and the loop around it
   (the simulated animal, the truth judge, bookkeeping);
 - where one animal-day's time goes: the top functions of a cProfile of the serial run.
@@ -108,6 +110,23 @@ def cpu_both(days: int, rounds: int = 3) -> dict[str, tuple[float, float]]:
     return {k: min(v) for k, v in got.items()}
 
 
+def cpu_by_rules(animals: int, days: int) -> dict[str, tuple[float, float]]:
+    """Per rule file, (CPU s per animal-day, trials per animal-day) of serial runs of the
+    pool run's animals and days (``timed_run``: the same population, count and seed). The
+    cohort's presets differ in cost, and so do the days (a later stage's criterion may need
+    the d' interval on every trial), so this is the sample the pool's rate rests on, where
+    ``cpu_both``'s two animals over two days only compare the paths."""
+    pop = load_population("spring_cohort")
+    draws = draw_animals(pop, animals, 7)
+    out = {}
+    for name, rules in _entries():
+        t0, trials = time.process_time(), 0
+        for d in draws:
+            trials += run_animal(AnimalTask(name, rules.text, rules.source, d, days)).trials
+        out[name] = ((time.process_time() - t0) / (len(draws) * days), trials / (len(draws) * days))
+    return out
+
+
 def step_share(days: int) -> tuple[float, float, int]:
     """(µs per trial inside the decision step, µs per trial outside it, trials) of serial runs on
     the path compare takes without a store: what the simulation loop (animal, truth,
@@ -200,6 +219,15 @@ def main(argv=None) -> int:
               f"{cpu / per_day * 1e6:.0f} µs per trial; {ref / cpu:.2f}x the per-subject step)")
         print(f"  target run projected from CPU time on {args.workers} cores: {cpu_proj:.0f} s "
               f"(goal <= {TARGET_S:.0f} s: {'PASS' if cpu_proj <= TARGET_S else 'FAIL'})")
+    by_rules = cpu_by_rules(args.animals, args.days)
+    mean_cpu = sum(cpu for cpu, _ in by_rules.values()) / len(by_rules)
+    cpu_proj = mean_cpu * target_days / args.workers
+    print(f"serial, the pool run's {args.animals} animals x {args.days} days, decisions only: " + ", ".join(
+        f"{name} {cpu / per_day * 1e6:.0f} µs per trial ({cpu * 1000:.0f} ms per animal-day)"
+        for name, (cpu, per_day) in by_rules.items()))
+    print(f"  target run projected from their CPU time on {args.workers} cores: {cpu_proj:.0f} s "
+          f"(goal <= {TARGET_S:.0f} s: {'PASS' if cpu_proj <= TARGET_S else 'FAIL'}; the pool's rate below rests "
+          "on these animals)")
     inside, outside, _ = step_share(days=2)
     print(f"  per trial without a store: {inside:.0f} µs in the decision step, {outside:.0f} µs outside it (the "
           f"simulated animal, the truth judge, bookkeeping): {100 * outside / (inside + outside):.0f}% outside")

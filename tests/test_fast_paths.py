@@ -197,6 +197,32 @@ def test_dprime_estimate_with_kept_cue_nodes_equals_computed_afresh():
                 assert [x.hex() for x in kept] == [x.hex() for x in fresh], args
 
 
+def test_kept_cue_nodes_stay_bounded_and_serve_interleaved_subjects(monkeypatch):
+    """The two tables of kept cue nodes drop their oldest entry when full, so a subject's
+    unmoved cue is still kept after other subjects' decisions came between (a daemon
+    interleaves them); results keep their bits whatever was dropped."""
+    import random
+
+    from rigloop.core import behaviour as B
+
+    monkeypatch.setattr(B, "_A_NODES_MAX", 6)
+    monkeypatch.setattr(B, "_G_NODES_MAX", 6)
+    B._A_NODES.clear()
+    B._G_NODES.clear()
+    rng = random.Random(4)
+    subjects = [(rng.uniform(-2, 2), rng.uniform(0.1, 1.0), rng.uniform(-2, 2), rng.uniform(0.1, 1.0))
+                for _ in range(5)]
+    first = [(B.p_difference_above(*s, 0.1), B.dprime_part(*s, 0.95, "lower")) for s in subjects]
+    assert len(B._A_NODES) == 5 and len(B._G_NODES) == 6  # 10 cue states: the 4 oldest dropped
+    assert next(iter(B._G_NODES)) == subjects[2][:2]
+    ma, va = subjects[0][:2]
+    assert (ma, va, 0.1) in B._A_NODES  # five subjects' cue a, all kept
+    again = [(B.p_difference_above(*s, 0.1), B.dprime_part(*s, 0.95, "lower")) for s in subjects]
+    assert [(p.hex(), d.hex()) for p, d in again] == [(p.hex(), d.hex()) for p, d in first]
+    B._A_NODES.clear()
+    B._G_NODES.clear()
+
+
 def test_behaviour_clip_equals_np_clip():
     """behaviour._clip (minimum of maximum) gives np.clip's array, bit for bit: NaN, infinities,
     signed zeros and values on and past either bound included."""

@@ -237,7 +237,7 @@ def p_difference_above(mean_a: float, var_a: float, mean_b: float, var_b: float,
     if nodes is None:
         nodes = _a_nodes(mean_a, var_a, margin)
         if len(_A_NODES) >= _A_NODES_MAX:
-            _A_NODES.clear()
+            del _A_NODES[next(iter(_A_NODES))]
         _A_NODES[key] = nodes
     if nodes is _NOTHING:
         return 0.0
@@ -254,7 +254,10 @@ def p_difference_above(mean_a: float, var_a: float, mean_b: float, var_b: float,
 
 
 _A_NODES: dict[tuple[float, float, float], object] = {}  # (mean_a, var_a, margin) -> _a_nodes(...)
-_A_NODES_MAX = 8
+# Bounded, oldest out first: a subject's unmoved cue a must still be there at that
+# subject's next decision, after every other subject's (a daemon interleaves them: with a
+# few entries cleared at once, 100 rigs would find none); ~3.5 kB an entry, ~1.8 MB at most.
+_A_NODES_MAX = 512
 _NOTHING = object()  # the integration range is empty: P = 0
 
 
@@ -404,7 +407,9 @@ def _dprime_parts(mean_a: float, var_a: float, mean_b: float, var_b: float, leve
 
 
 _G_NODES: dict[tuple[float, float], tuple[np.ndarray, float, float]] = {}  # (mean, var) -> _g_nodes(...)
-_G_NODES_MAX = 8
+# Bounded, oldest out first, as _A_NODES: each subject's unmoved cue must still be there at
+# that subject's next decision; ~0.4 kB an entry, ~0.4 MB at most.
+_G_NODES_MAX = 1024
 
 
 def _probit_nodes(mean: float, var: float) -> tuple[np.ndarray, float, float]:
@@ -417,7 +422,7 @@ def _probit_nodes(mean: float, var: float) -> tuple[np.ndarray, float, float]:
     if got is None:
         got = _g_nodes(mean, var)
         if len(_G_NODES) >= _G_NODES_MAX:
-            _G_NODES.clear()
+            del _G_NODES[next(iter(_G_NODES))]
         _G_NODES[key] = got
     return got
 

@@ -348,6 +348,43 @@ def test_kalman_td_update_equals_its_reference():
     assert "positive semi-definite" in str(fast.value) or "finite" in str(fast.value)
 
 
+def test_dprime_part_compared_answers_as_the_searched_value_does():
+    """behaviour.dprime_part_compared (one evaluation of D's distribution function when that
+    settles the comparison, else the search) answers ``dprime_part(...) <op> c`` for states
+    from very sure to very unsure, thresholds on the searched quantile, within the search's
+    tolerance of it, either side of the 0.001 margin, and far away."""
+    import operator
+    import random
+
+    from rigloop.core import behaviour as B
+
+    ops = {"<": operator.lt, "<=": operator.le, ">": operator.gt, ">=": operator.ge}
+    rng = random.Random(8)
+
+    def var():
+        return rng.choice([rng.uniform(1e-4, 0.01), rng.uniform(0.01, 1.0), rng.uniform(1.0, 8.0)])
+
+    settled = 0
+    for _ in range(250):
+        ma, va, mb, vb = rng.uniform(-6.0, 6.0), var(), rng.uniform(-6.0, 6.0), var()
+        level = rng.choice([0.8, 0.95, 0.99])
+        for which in ("lower", "upper"):
+            q = B.dprime_part(ma, va, mb, vb, level, which)
+            for off in (0.0, 1e-6, -1e-6, 1e-5, -1e-5, 9e-4, -9e-4, 1.1e-3, -1.1e-3, 0.5, -0.5, rng.uniform(-3, 3)):
+                for op, compare in ops.items():
+                    assert B.dprime_part_compared(ma, va, mb, vb, level, which, op, q + off) == compare(q, q + off), \
+                        (ma, va, mb, vb, level, which, op, off)
+                settled += abs(off) > 1e-3
+    assert settled > 1000
+    for c in (math.inf, -math.inf, math.nan):  # no margin around these: the value is compared
+        assert B.dprime_part_compared(0.5, 0.2, -0.5, 0.3, 0.95, "lower", "<", c) == (
+            B.dprime_part(0.5, 0.2, -0.5, 0.3, 0.95, "lower") < c)
+    with pytest.raises(Exception, match="which"):
+        B.dprime_part_compared(0.5, 0.2, -0.5, 0.3, 0.95, "d", ">=", 1.0)
+    with pytest.raises(Exception, match="which"):
+        B.dprime_part_compared(0.5, 0.2, -0.5, 0.3, 0.95, "lower", "==", 1.0)
+
+
 def test_dprime_part_equals_that_entry_of_the_triple():
     """behaviour.dprime_part (one quantile search, or none for d') gives the bits of that
     entry of dprime_estimate; the engine's dprime_lower/upper/of read it through the view."""

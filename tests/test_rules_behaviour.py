@@ -207,6 +207,42 @@ def test_each_function_returns_what_behaviour_computes(quantity):
             assert plan.reasons[0] == f"session ends (probe): {quantity} = {X.fmt(value)} >= {value + offset!r}"
 
 
+class _CountingView(StaticView):
+    """StaticView that counts what the engine asks of d' bounds."""
+
+    def __init__(self, **kw):
+        super().__init__(**kw)
+        self.asked = {"compared": 0, "value": 0}
+
+    def dprime_part_compared(self, *args):
+        self.asked["compared"] += 1
+        return super().dprime_part_compared(*args)
+
+    def dprime_part(self, *args):
+        self.asked["value"] += 1
+        return super().dprime_part(*args)
+
+
+@pytest.mark.parametrize("quantity, op", [("dprime_lower(tone_hi, tone_lo)", ">="),
+                                          ("dprime_upper(light_right, light_left, 0.8)", "<")])
+@pytest.mark.parametrize("offset", [-0.5, -2e-3, 2e-3, 0.5])
+def test_a_d_prime_bound_against_a_constant_is_asked_as_a_comparison(quantity, op, offset):
+    """The compiled test of ``dprime_lower(a, b) >= c`` asks the view for the comparison
+    (dprime_part_compared: one evaluation of D's distribution function when c is not within
+    0.001 of the bound), not for the bound itself; the answer is the bound's, and a criterion
+    that holds is explained with the searched bound, as before."""
+    value = EXPECTED[quantity]
+    view = _CountingView(behaviour=STATES, choice_cues=CHOICE)
+    c = value + offset
+    plan = decide(file_with(f"{quantity} {op} {c!r}"), view)
+    holds = value >= c if op == ">=" else value < c
+    assert plan.end_session is holds
+    assert view.asked["compared"] == 1
+    assert view.asked["value"] == (1 if holds else 0)  # only to explain the criterion that holds
+    if holds:
+        assert plan.reasons[0] == f"session ends (probe): {quantity} = {X.fmt(value)} {op} {c!r}"
+
+
 def test_a_reason_quotes_the_numbers():
     """Numbers by hand (scipy would agree): P(logistic(A) > logistic(B)) = Phi((1.4 + 0.9) / sqrt(0.6 + 0.4))
     = Phi(2.3) = 0.989; the lower 95% end for tone_hi is logistic(1.8 - 1.96 sqrt(0.3)) = 0.674;

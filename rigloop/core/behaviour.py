@@ -39,6 +39,7 @@ from __future__ import annotations
 
 import functools
 import math
+import operator
 from collections.abc import Mapping
 from statistics import NormalDist
 
@@ -57,6 +58,7 @@ DEFAULT_PRIOR_VAR = 2.0  # logit variance before a cue's first trial: a 95% band
 
 _NORMAL = NormalDist()
 _INF = math.inf
+_COMPARE_OPS = {"<": operator.lt, "<=": operator.le, ">": operator.gt, ">=": operator.ge}
 _GH_NODES = 24  # Gauss-Hermite nodes for d's distribution (exact for polynomials of degree < 48)
 _GL_NODES = 32  # Gauss-Legendre nodes for P(p_a - p_b > margin): error < 1e-5 against scipy quad (random states)
 
@@ -382,7 +384,20 @@ def _dprime_parts(mean_a: float, var_a: float, mean_b: float, var_b: float, leve
         _NORMAL.inv_cdf(min(max(logistic(mean_b), clip), 1 - clip))
     if not (lower or upper):
         return d, math.nan, math.nan
-    z, w = _hermite()
+    cdf, centre, spread = _difference_cdf(mean_a, var_a, mean_b, var_b)
+    # the normal approximation from D's moments (the same nodes) starts the search
+    alpha = (1.0 - level) / 2.0
+    zq = _z_two_sided(level)
+    lo = _solve(cdf, alpha, centre - zq * spread) if lower else math.nan
+    hi = _solve(cdf, 1.0 - alpha, centre + zq * spread) if upper else math.nan
+    return d, lo, hi
+
+
+def _difference_cdf(mean_a: float, var_a: float, mean_b: float, var_b: float):
+    """(cdf, centre, spread) for D = g(A) - g(B) of two checked states: ``cdf(t)`` gives
+    (F(t), F'(t)) by the quadrature of :func:`dprime_estimate`; ``centre`` and ``spread``
+    are D's mean and sd under the same nodes (the normal approximation)."""
+    w = _hermite()[1]
     sa, sb = math.sqrt(var_a), math.sqrt(var_b)
     (ga, ma, va), (gb, mb, vb) = _probit_nodes(mean_a, var_a), _probit_nodes(mean_b, var_b)
     # each returns (F(t), F'(t)); P = Phi(g + t) or Phi(g - t), and h = logit(P) has h' = +/- phi / (P (1 - P))
@@ -397,13 +412,45 @@ def _dprime_parts(mean_a: float, var_a: float, mean_b: float, var_b: float, leve
             u = (np.log(P / (1.0 - P)) - mean_b) / sb
             return float(w @ (1.0 - _phi(u))), float(w @ (_density(u) * dh)) / sb
 
-    # the normal approximation from D's moments (the same nodes) starts the search
-    spread = math.sqrt(va + vb)
-    alpha = (1.0 - level) / 2.0
-    zq = _z_two_sided(level)
-    lo = _solve(cdf, alpha, ma - mb - zq * spread) if lower else math.nan
-    hi = _solve(cdf, 1.0 - alpha, ma - mb + zq * spread) if upper else math.nan
-    return d, lo, hi
+    return cdf, ma - mb, math.sqrt(va + vb)
+
+
+# how far from c one evaluation of F must place a quantile before the comparison is taken
+# as settled: 100x the search's tolerance (1e-5 in d', _solve)
+_SETTLED_BY = 1e-3
+_BELOW = {"<": True, "<=": True, ">": False, ">=": False}  # op's answer for a value below c
+_ABOVE = {"<": False, "<=": False, ">": True, ">=": True}  # ... and above it
+
+
+def dprime_part_compared(mean_a: float, var_a: float, mean_b: float, var_b: float, level: float,
+                         which: str, op: str, c: float) -> bool:
+    """``dprime_part(...) <op> c`` for "lower" or "upper" and op one of < <= > >=: what a
+    criterion such as ``dprime_lower(a, b) >= 1.0`` asks, mostly without the quantile search.
+
+    F (D's distribution function) is increasing, and the quantile q = F^-1(p) is what the
+    search finds to within 1e-5. So if F(c - 0.001) > p, q lies below c by more than the
+    search's error, and the searched value compares with c as "below" does; if
+    F(c + 0.001) < p, as "above" does. One evaluation of F (sometimes two) instead of the
+    search's ~4.4 settles most trials: an animal far from its criterion. Within 0.001 of c
+    the search runs and its value is compared (tests/test_fast_paths.py: the same answer as
+    comparing dprime_part's value, on states and thresholds at and around the quantile).
+    """
+    if which not in ("lower", "upper") or op not in _BELOW:
+        raise BadArgument("which, op", '"lower" or "upper", and one of < <= > >=', (which, op))
+    _two_states(mean_a, var_a, mean_b, var_b, ("level", level, _open_unit))
+    if -_INF < c < _INF:
+        cdf = _difference_cdf(mean_a, var_a, mean_b, var_b)[0]
+        alpha = (1.0 - level) / 2.0
+        p = alpha if which == "lower" else 1.0 - alpha
+        # the side a criterion's answer is usually on first: below for > / >=, above for < / <=
+        for side in ((-1.0, 1.0) if op in (">", ">=") else (1.0, -1.0)):
+            f = cdf(c + side * _SETTLED_BY)[0]
+            if side < 0.0 and f > p:
+                return _BELOW[op]
+            if side > 0.0 and f < p:
+                return _ABOVE[op]
+    value = dprime_part(mean_a, var_a, mean_b, var_b, level, which)
+    return bool(_COMPARE_OPS[op](value, c))
 
 
 _G_NODES: dict[tuple[float, float], tuple[np.ndarray, float, float]] = {}  # (mean, var) -> _g_nodes(...)

@@ -14,6 +14,7 @@ from .behaviour import (
     band,
     dprime_estimate,
     dprime_part,
+    dprime_part_compared,
     logistic,
     p_difference_above,
 )
@@ -149,6 +150,11 @@ class ModelView:
     def dprime_part(self, a: str, b: str, level: float, which: str) -> float:
         """One entry of :meth:`dprime_between` ("d", "lower" or "upper"), computing only it."""
         return dprime_part(*self.behaviour_state(a), *self.behaviour_state(b), level, which)
+
+    def dprime_part_compared(self, a: str, b: str, level: float, which: str, op: str, c: float) -> bool:
+        """``dprime_part(a, b, level, which) <op> c``, mostly without the quantile search
+        (:func:`core.behaviour.dprime_part_compared`)."""
+        return dprime_part_compared(*self.behaviour_state(a), *self.behaviour_state(b), level, which, op, c)
 
     def p_model_based(self, x: float) -> float:
         """P(w > x): the posterior, from the animal's own first-stage choices, that it weighs

@@ -158,6 +158,20 @@ class ScheduleEnv(Env):
             return float(lo if func == "p_lower" else hi)
         return _behaviour_call(v, func, cue, args, self.cue)
 
+    def compare_call(self, func: str, args: list, op: str, c: float) -> bool | None:
+        """``dprime_lower/upper(a, b[, level]) <op> c`` from the view's
+        ``dprime_part_compared`` (the same answer as comparing ``call``'s value, mostly
+        without the quantile search), where the view offers it."""
+        compared = getattr(self.view, "dprime_part_compared", None)
+        if compared is None or func not in ("dprime_lower", "dprime_upper"):
+            return None
+        level = float(args[2]) if len(args) > 2 else 0.95
+        if not 0.0 < level < 1.0:
+            return False  # the value is NaN (see _behaviour_call), and NaN compares false
+        cue = self.cue if args[0] == "cue" else args[0]
+        other = self.cue if args[1] == "cue" else args[1]
+        return compared(cue, other, level, "lower" if func == "dprime_lower" else "upper", op, c)
+
 
 def _behaviour_call(v, func: str, cue: str, args, placeholder: str | None) -> float:
     """The behaviour functions (``p_respond``, ``p_discriminates``, ``dprime_of``, ...)."""

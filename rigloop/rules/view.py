@@ -45,7 +45,9 @@ class SubjectView(Protocol):
     def dprime_between(self, a: str, b: str, level: float) -> tuple[float, float, float]:
         """Behavioural d' of a against b from the estimates, and its credible interval.
         (A view may add ``dprime_part(a, b, level, which)``, one entry of these, "d", "lower"
-        or "upper": the engine then asks for only the entry a rule reads.)"""
+        or "upper": the engine then asks for only the entry a rule reads; and
+        ``dprime_part_compared(a, b, level, which, op, c)``, that entry compared with a
+        constant, which a criterion's test then asks instead.)"""
 
     def p_model_based(self, x: float) -> float:
         """P(w > x) of the two_step learner's posterior over its model-based weight w."""
@@ -98,6 +100,9 @@ class StaticView:
 
     def dprime_part(self, a: str, b: str, level: float, which: str) -> float:
         return B.dprime_part(*self._state(a), *self._state(b), level, which)
+
+    def dprime_part_compared(self, a: str, b: str, level: float, which: str, op: str, c: float) -> bool:
+        return B.dprime_part_compared(*self._state(a), *self._state(b), level, which, op, c)
 
     def p_model_based(self, x: float) -> float:
         return 1.0 - float(x)  # the uniform prior over w: nothing known yet

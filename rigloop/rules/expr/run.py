@@ -4,8 +4,10 @@
 phrase per comparison or condition. The engine tests every criterion on every trial but
 needs the words only for the one that holds, so each checked tree is also turned once
 into nested Python closures (still no eval/exec) that give the same value with the same
-env calls in the same order; :class:`_Eval` stays the readable reference of what they
-compute (``tests/test_rules_expr.py`` holds the two equal on random expressions).
+env calls in the same order -- except that a d' bound compared with a constant is asked
+of the env as a comparison (``Env.compare_call``), which it may answer without computing
+the bound; :class:`_Eval` stays the readable reference of what they compute
+(``tests/test_rules_expr.py`` holds the two equal on random expressions).
 
 Runtime arithmetic never raises: a division by zero gives NaN, an overflow gives
 infinity, and every comparison involving NaN is false.
@@ -35,6 +37,13 @@ class Env:
 
     def call(self, func: str, args: Sequence[float | str]) -> float:  # pragma: no cover - interface
         raise NotImplementedError
+
+    def compare_call(self, func: str, args: list, op: str, c: float) -> bool | None:
+        """``call(func, args) <op> c`` (NaN false) when the env can answer that more cheaply
+        than it can give the value, else None. Only the compiled test of a criterion asks
+        (for the functions in ``COMPARED_CALLS``, a constant ``c``, op one of < <= > >=); an
+        env answers only what comparing the value would answer."""
+        return None
 
 
 def evaluate(expr: Expr, env: Env, *, explain: bool = True) -> tuple[float | bool, list[str]]:
@@ -301,6 +310,15 @@ def _compile_compare(n: Compare) -> Callable[[Env], bool]:
         left, right, compare = _compile(n.operands[0]), n.operands[1], _COMPARE[n.ops[0]]
         if isinstance(right, Const):
             b = right.value  # a checked constant: finite
+            asked = _compared_call(n.operands[0], n.ops[0], b)
+            if asked is not None:
+                op, func, fixed = asked
+
+                def compare_asked(env) -> bool:
+                    got = env.compare_call(func, list(fixed), op, b)
+                    return bool(compare(left(env), b)) if got is None else got
+
+                return compare_asked
             if n.ops[0] != "!=":
                 # NaN compares false by itself under these operators
                 return lambda env: bool(compare(left(env), b))
@@ -330,6 +348,15 @@ def _compile_compare(n: Compare) -> Callable[[Env], bool]:
     return compare_chain
 
 
+def _compared_call(left: Node, op: str, b) -> tuple[str, str, tuple] | None:
+    """(op, func, fixed args) when ``left <op> b`` may be asked of the env as a comparison
+    (``Env.compare_call``): a call in ``COMPARED_CALLS`` of cue ids and constants only."""
+    if (op in ("<", "<=", ">", ">=") and isinstance(left, Call) and left.func in COMPARED_CALLS
+            and all(isinstance(a, CueRef | Const) for a in left.args)):
+        return op, left.func, tuple(a.cue if isinstance(a, CueRef) else float(a.value) for a in left.args)
+    return None
+
+
 def _arith(op: str, a: float, b: float) -> float:
     try:
         if op == "+":
@@ -352,6 +379,11 @@ def _arith(op: str, a: float, b: float) -> float:
         return math.inf
     raise ValueError(op)  # pragma: no cover
 
+
+# functions whose comparison with a constant an env may answer without the value (a
+# quantile settled by one evaluation of its distribution function: core.behaviour.
+# dprime_part_compared)
+COMPARED_CALLS = frozenset({"dprime_lower", "dprime_upper"})
 
 _COMPARE = {"==": operator.eq, "!=": operator.ne, "<": operator.lt, "<=": operator.le, ">": operator.gt,
             ">=": operator.ge}

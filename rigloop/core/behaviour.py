@@ -258,8 +258,10 @@ def p_difference_above(mean_a: float, var_a: float, mean_b: float, var_b: float,
 _A_NODES: dict[tuple[float, float, float], object] = {}  # (mean_a, var_a, margin) -> _a_nodes(...)
 # Bounded, oldest out first: a subject's unmoved cue a must still be there at that
 # subject's next decision, after every other subject's (a daemon interleaves them: with a
-# few entries cleared at once, 100 rigs would find none); ~3.5 kB an entry, ~1.8 MB at most.
-_A_NODES_MAX = 512
+# few entries cleared at once, 100 rigs would find none). About half the decisions add an
+# entry (those whose trial moved cue a), so 128 serve ~200 subjects; ~3.7 kB an entry,
+# 0.5 MB at most (reached within an animal's first day: memory stays flat over days).
+_A_NODES_MAX = 128
 _NOTHING = object()  # the integration range is empty: P = 0
 
 
@@ -455,8 +457,9 @@ def dprime_part_compared(mean_a: float, var_a: float, mean_b: float, var_b: floa
 
 _G_NODES: dict[tuple[float, float], tuple[np.ndarray, float, float]] = {}  # (mean, var) -> _g_nodes(...)
 # Bounded, oldest out first, as _A_NODES: each subject's unmoved cue must still be there at
-# that subject's next decision; ~0.4 kB an entry, ~0.4 MB at most.
-_G_NODES_MAX = 1024
+# that subject's next decision; each decision adds one entry, so 256 serve ~250 subjects;
+# ~0.4 kB an entry, 0.1 MB at most.
+_G_NODES_MAX = 256
 
 
 def _probit_nodes(mean: float, var: float) -> tuple[np.ndarray, float, float]:

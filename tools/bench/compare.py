@@ -17,7 +17,7 @@ timed on the local process pool and the target run's time is projected from its 
   (the simulated animal, the truth judge, bookkeeping);
 - where one animal-day's time goes: the top functions of a cProfile of the serial run.
 - peak Python memory (``tracemalloc``) of one animal run for more and more days: flat
-  when nothing grows with the days.
+  when nothing grows with the days (the behaviour estimates' bounded node tables held small).
 
     python tools/bench/compare.py [--animals 12] [--days 3] [--workers 2] [--full] [--profile]
 
@@ -180,17 +180,31 @@ def profile_top(days: int, limit: int = 12) -> None:
 
 
 def peak_memory(days_list) -> list[tuple[int, float]]:
-    """Peak traced MB of one animal's run for each number of days."""
+    """Peak traced MB of one animal's run for each number of days.
+
+    The behaviour estimates' node tables (core/behaviour.py) are process-wide and bounded,
+    oldest entry out when full (~0.6 MB at their caps, which one animal fills over weeks and
+    a daemon's many subjects at once); they hold the same numbers at any size, so they are
+    held at 8 entries here: what the figure follows is what grows with an animal's days."""
+    from rigloop.core import behaviour
+
     pop = load_population("spring_cohort")
     d = draw_animals(pop, 1, 5)[0]
     rules = load_any(RULES[0])
-    run_animal(AnimalTask(RULES[0], rules.text, rules.source, d, 1))  # warm caches outside the measurement
-    out = []
-    for days in days_list:
-        tracemalloc.start()
-        run_animal(AnimalTask(RULES[0], rules.text, rules.source, d, days))
-        out.append((days, tracemalloc.get_traced_memory()[1] / 1e6))
-        tracemalloc.stop()
+    caps = behaviour._A_NODES_MAX, behaviour._G_NODES_MAX
+    behaviour._A_NODES_MAX = behaviour._G_NODES_MAX = 8
+    behaviour._A_NODES.clear()
+    behaviour._G_NODES.clear()
+    try:
+        run_animal(AnimalTask(RULES[0], rules.text, rules.source, d, 1))  # warm caches outside the measurement
+        out = []
+        for days in days_list:
+            tracemalloc.start()
+            run_animal(AnimalTask(RULES[0], rules.text, rules.source, d, days))
+            out.append((days, tracemalloc.get_traced_memory()[1] / 1e6))
+            tracemalloc.stop()
+    finally:
+        behaviour._A_NODES_MAX, behaviour._G_NODES_MAX = caps
     return out
 
 

@@ -75,3 +75,29 @@ def test_the_wal_is_presized_and_its_rolled_back_frames_never_come_back(tmp_path
         assert again.last_trial("m1", "s1") == 40
         assert "_presize_wal" not in {r[0] for r in again._conn.execute("SELECT name FROM sqlite_master")}
         assert again._conn.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
+
+
+def test_a_wal_that_cannot_be_presized_leaves_the_connection_as_it_was(tmp_path):
+    """presize_wal says why it could not size the WAL (here: another connection holds the
+    write lock) and leaves the connection usable with its own page cache size; the daemon
+    then logs a warning and runs with a WAL that grows as commits need."""
+    from rigloop.store.checkpoint import presize_wal
+
+    path = str(tmp_path / "s.sqlite")
+    Store(path).close()
+    holder = sqlite3.connect(path, isolation_level=None)
+    holder.execute("BEGIN IMMEDIATE")
+    conn = sqlite3.connect(path, isolation_level=None)
+    conn.execute("PRAGMA busy_timeout = 0")
+    conn.execute("PRAGMA cache_size = -4000")
+    try:
+        why = presize_wal(conn, path)
+        assert why is not None and "locked" in why
+        assert conn.execute("PRAGMA cache_size").fetchone()[0] == -4000
+        assert not conn.in_transaction
+        holder.execute("ROLLBACK")
+        assert presize_wal(conn, path) is None  # once the lock is free
+        assert (tmp_path / "s.sqlite-wal").stat().st_size >= BACKSTOP_PAGES * 4096
+    finally:
+        conn.close()
+        holder.close()

@@ -203,6 +203,11 @@ class Daemon:
         self.ctx = zlink.new_context()
         # checkpoints on their own thread and connection: no trial's commit waits for one
         self.store = Store(self.data / STORE_FILE, background_checkpoint=True)
+        if self.store.presize_error is not None:
+            self.log.warning("wal_not_presized", error=self.store.presize_error,
+                             message="the store's write-ahead log could not be sized at open (16 MiB); commits "
+                                     "still work and grow it as they need, each fsync a little slower. Check the "
+                                     "free space on the data disk")
         self.subjects = Subjects(self.store)
         curve = self.curve.server_keys
         if curve is not None:

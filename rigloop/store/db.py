@@ -44,6 +44,7 @@ class Database:
         self.path = os.fspath(path)
         self.conn: sqlite3.Connection | None = None
         self.checkpointer: Checkpointer | None = None
+        self.presize_error: str | None = None  # why the WAL could not be pre-sized, if it could not
         self._lock = threading.RLock()
         self._broken: str | None = None
         exists = os.path.exists(self.path)
@@ -63,7 +64,7 @@ class Database:
             if background_checkpoint:
                 try:
                     self.conn.execute(f"PRAGMA wal_autocheckpoint = {BACKSTOP_PAGES}")
-                    presize_wal(self.conn, self.path)
+                    self.presize_error = presize_wal(self.conn, self.path)
                     self.checkpointer = Checkpointer(self.path)
                 except sqlite3.Error as err:
                     raise StoreError(f"{self.path}: cannot start the checkpoint connection ({err})") from None

@@ -53,6 +53,11 @@ class Store(Reader):
         self._known_sessions: set[tuple[str, str]] = set()
 
     @property
+    def presize_error(self) -> str | None:
+        """Why the daemon's store could not pre-size its WAL (``checkpoint.presize_wal``), or None."""
+        return self._database.presize_error
+
+    @property
     def _conn(self) -> sqlite3.Connection | None:
         """The open connection (None once closed), for tests that look at the file directly."""
         return self._database.conn

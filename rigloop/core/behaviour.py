@@ -395,15 +395,23 @@ def _dprime_parts(mean_a: float, var_a: float, mean_b: float, var_b: float, leve
     return d, lo, hi
 
 
-def _difference_cdf(mean_a: float, var_a: float, mean_b: float, var_b: float):
+def _difference_cdf(mean_a: float, var_a: float, mean_b: float, var_b: float, moments: bool = True):
     """(cdf, centre, spread) for D = g(A) - g(B) of two checked states: ``cdf(t)`` gives
     (F(t), F'(t)) by the quadrature of :func:`dprime_estimate`; ``centre`` and ``spread``
-    are D's mean and sd under the same nodes (the normal approximation)."""
+    are D's mean and sd under the same nodes (the normal approximation), or NaN without
+    ``moments``: then only the narrower cue's nodes are formed (the quadrature runs over
+    it), which spares the other's 24 inverse normal CDFs when that one has just moved."""
     w = _hermite()[1]
     sa, sb = math.sqrt(var_a), math.sqrt(var_b)
-    (ga, ma, va), (gb, mb, vb) = _probit_nodes(mean_a, var_a), _probit_nodes(mean_b, var_b)
+    narrow_b = sb <= sa
+    if moments:
+        (ga, ma, va), (gb, mb, vb) = _probit_nodes(mean_a, var_a), _probit_nodes(mean_b, var_b)
+    elif narrow_b:
+        gb = _probit_nodes(mean_b, var_b)[0]
+    else:
+        ga = _probit_nodes(mean_a, var_a)[0]
     # each returns (F(t), F'(t)); P = Phi(g + t) or Phi(g - t), and h = logit(P) has h' = +/- phi / (P (1 - P))
-    if sb <= sa:
+    if narrow_b:
         def cdf(t: float) -> tuple[float, float]:
             P, dh = _phi_and_slope(gb + t)
             u = (np.log(P / (1.0 - P)) - mean_a) / sa
@@ -414,6 +422,8 @@ def _difference_cdf(mean_a: float, var_a: float, mean_b: float, var_b: float):
             u = (np.log(P / (1.0 - P)) - mean_b) / sb
             return float(w @ (1.0 - _phi(u))), float(w @ (_density(u) * dh)) / sb
 
+    if not moments:
+        return cdf, math.nan, math.nan
     return cdf, ma - mb, math.sqrt(va + vb)
 
 
@@ -441,7 +451,7 @@ def dprime_part_compared(mean_a: float, var_a: float, mean_b: float, var_b: floa
         raise BadArgument("which, op", '"lower" or "upper", and one of < <= > >=', (which, op))
     _two_states(mean_a, var_a, mean_b, var_b, ("level", level, _open_unit))
     if -_INF < c < _INF:
-        cdf = _difference_cdf(mean_a, var_a, mean_b, var_b)[0]
+        cdf = _difference_cdf(mean_a, var_a, mean_b, var_b, moments=False)[0]
         alpha = (1.0 - level) / 2.0
         p = alpha if which == "lower" else 1.0 - alpha
         # the side a criterion's answer is usually on first: below for > / >=, above for < / <=

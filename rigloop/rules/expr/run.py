@@ -216,7 +216,8 @@ class _Eval:
 # Criteria are tested on every trial and explained only when one holds. For the test,
 # each checked tree is turned once into nested closures (plain Python functions, no
 # eval) that make the same env calls in the same order and return the same values as
-# _Eval without phrases; _Eval stays the one path that explains.
+# _Eval without phrases (a d' bound against a constant first offers the env the whole
+# comparison: Env.compare_call); _Eval stays the one path that explains.
 
 _COMPILED: dict[int, tuple[Expr, Callable]] = {}  # id(expr) -> (expr, its evaluator)
 _COMPILED_MAX = 1024

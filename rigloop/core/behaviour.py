@@ -430,8 +430,6 @@ def _difference_cdf(mean_a: float, var_a: float, mean_b: float, var_b: float, mo
 # how far from c one evaluation of F must place a quantile before the comparison is taken
 # as settled: 100x the search's tolerance (1e-5 in d', _solve)
 _SETTLED_BY = 1e-3
-_BELOW = {"<": True, "<=": True, ">": False, ">=": False}  # op's answer for a value below c
-_ABOVE = {"<": False, "<=": False, ">": True, ">=": True}  # ... and above it
 
 
 def dprime_part_compared(mean_a: float, var_a: float, mean_b: float, var_b: float, level: float,
@@ -447,9 +445,10 @@ def dprime_part_compared(mean_a: float, var_a: float, mean_b: float, var_b: floa
     the search runs and its value is compared (tests/test_fast_paths.py: the same answer as
     comparing dprime_part's value, on states and thresholds at and around the quantile).
     """
-    if which not in ("lower", "upper") or op not in _BELOW:
+    if which not in ("lower", "upper") or op not in _COMPARE_OPS:
         raise BadArgument("which, op", '"lower" or "upper", and one of < <= > >=', (which, op))
     _two_states(mean_a, var_a, mean_b, var_b, ("level", level, _open_unit))
+    compare = _COMPARE_OPS[op]
     if -_INF < c < _INF:
         cdf = _difference_cdf(mean_a, var_a, mean_b, var_b, moments=False)[0]
         alpha = (1.0 - level) / 2.0
@@ -458,11 +457,10 @@ def dprime_part_compared(mean_a: float, var_a: float, mean_b: float, var_b: floa
         for side in ((-1.0, 1.0) if op in (">", ">=") else (1.0, -1.0)):
             f = cdf(c + side * _SETTLED_BY)[0]
             if side < 0.0 and f > p:
-                return _BELOW[op]
+                return compare(-_INF, c)  # what op answers for a value below c (c is finite)
             if side > 0.0 and f < p:
-                return _ABOVE[op]
-    value = dprime_part(mean_a, var_a, mean_b, var_b, level, which)
-    return bool(_COMPARE_OPS[op](value, c))
+                return compare(_INF, c)  # ... and for one above it
+    return bool(compare(dprime_part(mean_a, var_a, mean_b, var_b, level, which), c))
 
 
 _G_NODES: dict[tuple[float, float], tuple[np.ndarray, float, float]] = {}  # (mean, var) -> _g_nodes(...)

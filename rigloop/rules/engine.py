@@ -151,8 +151,8 @@ class ScheduleEnv(Env):
             x = float(args[0])
             return float(v.p_model_based(x)) if 0.0 <= x < 1.0 else math.nan
         if func in ("p_lower", "p_upper"):
-            level = float(args[1]) if len(args) > 1 else 0.95
-            if not 0.0 < level < 1.0:
+            level = _level(args, 1)
+            if level is None:
                 return math.nan
             lo, hi = v.p_interval(cue, level)
             return float(lo if func == "p_lower" else hi)
@@ -165,12 +165,23 @@ class ScheduleEnv(Env):
         compared = getattr(self.view, "dprime_part_compared", None)
         if compared is None or func not in ("dprime_lower", "dprime_upper"):
             return None
-        level = float(args[2]) if len(args) > 2 else 0.95
-        if not 0.0 < level < 1.0:
+        level = _level(args, 2)
+        if level is None:
             return False  # the value is NaN (see _behaviour_call), and NaN compares false
         cue = self.cue if args[0] == "cue" else args[0]
         other = self.cue if args[1] == "cue" else args[1]
-        return compared(cue, other, level, "lower" if func == "dprime_lower" else "upper", op, c)
+        return compared(cue, other, level, _DPRIME_ENTRY[func], op, c)
+
+
+# which entry of d' and its interval each function reads
+_DPRIME_ENTRY = {"dprime_of": "d", "dprime_lower": "lower", "dprime_upper": "upper"}
+
+
+def _level(args, k: int) -> float | None:
+    """The credible level in ``args[k]`` (0.95 when left out), or None outside (0, 1):
+    the function's value is then NaN."""
+    level = float(args[k]) if len(args) > k else 0.95
+    return level if 0.0 < level < 1.0 else None
 
 
 def _behaviour_call(v, func: str, cue: str, args, placeholder: str | None) -> float:
@@ -178,8 +189,8 @@ def _behaviour_call(v, func: str, cue: str, args, placeholder: str | None) -> fl
     if func in ("p_respond", "p_right"):
         return float(v.p_behaviour(cue))
     if func in ("p_respond_lower", "p_respond_upper", "p_right_lower", "p_right_upper"):
-        level = float(args[1]) if len(args) > 1 else 0.95
-        if not 0.0 < level < 1.0:
+        level = _level(args, 1)
+        if level is None:
             return math.nan
         lo, hi = v.behaviour_interval(cue, level)
         return float(lo if func.endswith("_lower") else hi)
@@ -189,11 +200,11 @@ def _behaviour_call(v, func: str, cue: str, args, placeholder: str | None) -> fl
         if not 0.0 <= margin < 1.0:
             return math.nan
         return float(v.p_discriminates(cue, other, margin))
-    if func in ("dprime_of", "dprime_lower", "dprime_upper"):
-        level = float(args[2]) if len(args) > 2 else 0.95
-        if not 0.0 < level < 1.0:
+    if func in _DPRIME_ENTRY:
+        level = _level(args, 2)
+        if level is None:
             return math.nan
-        which = "d" if func == "dprime_of" else "lower" if func == "dprime_lower" else "upper"
+        which = _DPRIME_ENTRY[func]
         part = getattr(v, "dprime_part", None)
         if part is not None:  # only the entry asked for: one quantile search, not two
             return float(part(cue, other, level, which))

@@ -385,6 +385,25 @@ def test_dprime_part_compared_answers_as_the_searched_value_does():
         B.dprime_part_compared(0.5, 0.2, -0.5, 0.3, 0.95, "lower", "==", 1.0)
 
 
+def test_a_d_prime_comparison_far_from_its_threshold_is_settled_by_the_bounds(monkeypatch):
+    """An animal far from its criterion (a sure d' of about 2 against 0.5 and 1.0; no
+    discrimination against 0.5) is answered by F's closed-form bounds, without F's quadrature;
+    the answers are the searched bound's."""
+    from rigloop.core import behaviour as B
+
+    states = [(2.5, 0.05, -2.0, 0.05), (0.0, 0.01, 0.0, 0.01)]
+    expected = {s: {(w, op, c): (B.dprime_part(*s, 0.95, w) < c if op == "<" else B.dprime_part(*s, 0.95, w) >= c)
+                    for w in ("lower", "upper") for op in ("<", ">=") for c in (0.5, 1.0)} for s in states}
+
+    def no_quadrature(*args, **kwargs):
+        raise AssertionError("F's quadrature was formed")
+
+    monkeypatch.setattr(B, "_difference_cdf", no_quadrature)
+    for s in states:
+        for (w, op, c), answer in expected[s].items():
+            assert B.dprime_part_compared(*s, 0.95, w, op, c) == answer, (s, w, op, c)
+
+
 def test_dprime_part_equals_that_entry_of_the_triple():
     """behaviour.dprime_part (one quantile search, or none for d') gives the bits of that
     entry of dprime_estimate; the engine's dprime_lower/upper/of read it through the view."""

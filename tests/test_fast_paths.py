@@ -404,6 +404,50 @@ def test_a_d_prime_comparison_far_from_its_threshold_is_settled_by_the_bounds(mo
             assert B.dprime_part_compared(*s, 0.95, w, op, c) == answer, (s, w, op, c)
 
 
+def test_p_difference_compared_answers_as_the_value_does(monkeypatch):
+    """behaviour.p_difference_compared (closed-form floor and ceiling first, the quadrature
+    where they do not settle it) answers ``p_difference_above(...) <op> c`` for states from
+    very sure to very unsure, margins 0 to 0.6, thresholds on the value, near it, either side
+    of the 0.01 slack, and far away; a comparison far from the value is settled without the
+    quadrature."""
+    import operator
+    import random
+
+    from rigloop.core import behaviour as B
+
+    ops = {"<": operator.lt, "<=": operator.le, ">": operator.gt, ">=": operator.ge}
+    rng = random.Random(9)
+
+    def var():
+        return rng.choice([rng.uniform(1e-4, 0.01), rng.uniform(0.01, 1.0), rng.uniform(1.0, 8.0)])
+
+    settled = 0
+    for _ in range(300):
+        ma, va, mb, vb = rng.uniform(-6.0, 6.0), var(), rng.uniform(-6.0, 6.0), var()
+        margin = rng.choice([0.0, 0.1, 0.3, 0.6, rng.uniform(0.0, 0.9)])
+        v = B.p_difference_above(ma, va, mb, vb, margin)
+        floor, ceiling = B._difference_bounds(ma, va, mb, vb, margin)
+        assert floor <= v + 1e-5 and v <= ceiling + 1e-5 and ceiling - floor <= 1.0 / 8 + 1e-12
+        for off in (0.0, 1e-6, -1e-6, 9e-3, -9e-3, 1.1e-2, -1.1e-2, 0.5, -0.5, rng.uniform(-1, 1)):
+            for op, compare in ops.items():
+                assert B.p_difference_compared(ma, va, mb, vb, margin, op, v + off) == compare(v, v + off), \
+                    (ma, va, mb, vb, margin, op, off)
+            settled += margin > 0 and (ceiling < v + off - 0.01 or floor > v + off + 0.01)
+    assert settled > 500
+    with pytest.raises(Exception, match="op"):
+        B.p_difference_compared(0.5, 0.2, -0.5, 0.3, 0.3, "==", 0.9)
+
+    def no_quadrature(*args, **kwargs):
+        raise AssertionError("the quadrature ran")
+
+    # (a floor within 1/8 of the ceiling settles "above" for thresholds up to about 7/8)
+    far = {(s, c): B.p_difference_above(*s, 0.3) >= c
+           for s in ((0.0, 0.05, 0.0, 0.05), (3.0, 0.02, -3.0, 0.02)) for c in (0.5, 0.8)}
+    monkeypatch.setattr(B, "p_difference_above", no_quadrature)
+    for (s, c), answer in far.items():
+        assert B.p_difference_compared(*s, 0.3, ">=", c) == answer, (s, c)
+
+
 def test_dprime_part_equals_that_entry_of_the_triple():
     """behaviour.dprime_part (one quantile search, or none for d') gives the bits of that
     entry of dprime_estimate; the engine's dprime_lower/upper/of read it through the view."""

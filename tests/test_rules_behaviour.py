@@ -208,7 +208,7 @@ def test_each_function_returns_what_behaviour_computes(quantity):
 
 
 class _CountingView(StaticView):
-    """StaticView that counts what the engine asks of d' bounds."""
+    """StaticView that counts what the engine asks of d' bounds and of p_discriminates."""
 
     def __init__(self, **kw):
         super().__init__(**kw)
@@ -222,17 +222,30 @@ class _CountingView(StaticView):
         self.asked["value"] += 1
         return super().dprime_part(*args)
 
+    def p_discriminates_compared(self, *args):
+        self.asked["compared"] += 1
+        return super().p_discriminates_compared(*args)
+
+    def p_discriminates(self, *args):
+        self.asked["value"] += 1
+        return super().p_discriminates(*args)
+
 
 @pytest.mark.parametrize("quantity, op", [("dprime_lower(tone_hi, tone_lo)", ">="),
-                                          ("dprime_upper(light_right, light_left, 0.8)", "<")])
+                                          ("dprime_upper(light_right, light_left, 0.8)", "<"),
+                                          ("p_discriminates(tone_hi, tone_lo, 0.3)", ">="),
+                                          ("p_discriminates(light_right, light_left, 0.4)", "<")])
 @pytest.mark.parametrize("offset", [-0.5, -2e-3, 2e-3, 0.5])
-def test_a_d_prime_bound_against_a_constant_is_asked_as_a_comparison(quantity, op, offset):
-    """The compiled test of ``dprime_lower(a, b) >= c`` asks the view for the comparison
-    (dprime_part_compared: one evaluation of D's distribution function when c is not within
-    0.001 of the bound), not for the bound itself; the answer is the bound's, and a criterion
-    that holds is explained with the searched bound, as before."""
+def test_a_d_prime_bound_or_p_discriminates_against_a_constant_is_asked_as_a_comparison(quantity, op, offset):
+    """The compiled test of ``dprime_lower(a, b) >= c`` or ``p_discriminates(a, b, m) >= c``
+    asks the view for the comparison (dprime_part_compared, p_discriminates_compared: settled
+    by closed-form bounds or one evaluation of D's distribution function where c is not close
+    to the value), not for the value itself; the answer is the value's, and a criterion that
+    holds is explained with the value, as before."""
     value = EXPECTED[quantity]
     view = _CountingView(behaviour=STATES, choice_cues=CHOICE)
+    if quantity.startswith("p_"):
+        offset *= 0.05  # a probability's threshold stays inside [0, 1] (the checker refuses others)
     c = value + offset
     plan = decide(file_with(f"{quantity} {op} {c!r}"), view)
     holds = value >= c if op == ">=" else value < c

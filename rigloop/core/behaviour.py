@@ -220,20 +220,27 @@ def p_difference_above(mean_a: float, var_a: float, mean_b: float, var_b: float,
     zero where logistic(a) <= margin: Gauss-Legendre over a from lo = max(logit(margin),
     mean_a - 8 sd_a) to hi = mean_a + 8 sd_a in the variable s, a = lo + (hi - lo) s^2, which
     crowds the nodes near lo, where the integrand can rise from 0 almost at once (an animal
-    that never responds to b). Error < 1e-5 against scipy's adaptive quad on random states
-    (tests/test_behaviour.py). A loop over Python floats: a rule tests this on every trial,
-    and 32 nodes cost less as floats than as a dozen small numpy calls (~0.1x of the decision
-    round trip in tools/bench/latency.py).
+    that never responds to b). The integral runs over the narrower of the two cues (B's as
+    that of -B: P(logistic(A) - logistic(B) > m) = P(logistic(-B) - logistic(-A) > m)): over
+    the wider one, P(B < ...) is nearly a step that 32 nodes miss (errors to 0.03 where
+    var_a = 256 var_b); so the error against scipy's adaptive quad is < 1e-6 on states from
+    very sure to very unsure, 5e-4 at worst where both cues are as wide as their prior
+    (tests/test_behaviour.py). A loop over Python floats: a rule
+    tests this on every trial, and 32 nodes cost less as floats than as a dozen small numpy
+    calls (~0.1x of the decision round trip in tools/bench/latency.py).
 
-    What depends on cue a alone (each node's density weight and logit(logistic(a) - margin))
-    is kept for the last few (mean_a, var_a, margin): between two decisions only the cue of
-    the trial changes, so when that was b, only the 32 erfc terms are recomputed (such a call
-    costs 0.1-0.25x of the plain loop, tools/bench/step.py). :func:`_p_difference_above_reference` is the plain
-    loop; the tests hold the two to the same bits.
+    What depends on the integrated cue alone (each node's density weight and
+    logit(logistic(a) - margin)) is kept for the last few (mean, var, margin): between two
+    decisions only the cue of the trial changes, so when that was the other one, only the 32
+    erfc terms are recomputed (such a call costs 0.1-0.25x of the plain loop,
+    tools/bench/step.py). :func:`_p_difference_above_reference` is the plain loop; the tests
+    hold the two to the same bits.
     """
     _two_states(mean_a, var_a, mean_b, var_b, ("margin", margin, _margin))
     if margin == 0.0:
         return _NORMAL.cdf((mean_a - mean_b) / math.sqrt(var_a + var_b))
+    if var_b < var_a:  # over the narrower cue (see above): -B in A's place
+        mean_a, var_a, mean_b, var_b = -mean_b, var_b, -mean_a, var_a
     key = (mean_a, var_a, margin)
     nodes = _A_NODES.get(key)
     if nodes is None:
@@ -286,12 +293,97 @@ def _a_nodes(mean_a: float, var_a: float, margin: float):
     return span / (sa * math.sqrt(2.0 * math.pi)) * 0.5, tuple(terms)
 
 
+# how far a closed-form bound must clear a threshold before it settles a comparison in the
+# value's place: p_difference_above's quadrature and the distribution function of d' are within
+# 5e-4 and 5e-5 of the integrals they approximate, on states from very sure to very unsure
+# (against scipy's adaptive quad, tests/test_behaviour.py), 20x and 200x less than this
+_BOUND_SLACK = 1e-2
+_SLICES = 8  # equal-probability slices of cue a for p_difference_above's floor and ceiling
+
+
+@functools.lru_cache(maxsize=1)
+def _slice_edges() -> tuple[float, ...]:
+    """Phi^-1(k / 8), k = 1..7: the edges between 8 equal-probability slices of N(0, 1)."""
+    return tuple(_NORMAL.inv_cdf(k / _SLICES) for k in range(1, _SLICES))
+
+
+def _edge_logits(mean_a: float, var_a: float, margin: float) -> tuple[float | None, ...]:
+    """logit(logistic(a_k) - margin) at the upper edge a_k of each slice of cue a (the last
+    edge +inf: logit(1 - margin)), None where logistic(a_k) <= margin."""
+    sa = math.sqrt(var_a)
+    exp, log = math.exp, math.log
+    out = []
+    for z in _slice_edges():
+        a = mean_a + sa * z
+        t = (1.0 / (1.0 + exp(-a)) if a >= 0.0 else exp(a) / (1.0 + exp(a))) - margin
+        out.append(log(t / (1.0 - t)) if 0.0 < t < 1.0 else (None if t <= 0.0 else _INF))
+    out.append(log((1.0 - margin) / margin) if margin > 0.0 else _INF)
+    return tuple(out)
+
+
+def _difference_bounds(mean_a: float, var_a: float, mean_b: float, var_b: float,
+                       margin: float) -> tuple[float, float]:
+    """A floor and a ceiling of P(logistic(A) - logistic(B) > margin), in closed form: eight
+    erfc (with cue a's part kept as :func:`p_difference_above` keeps its nodes), where the value
+    is a 32-node quadrature.
+
+    G(a) = P(logistic(B) < logistic(a) - margin) rises with a. Over 8 slices of A of
+    probability 1/8 each, with edges a_1 < ... < a_7 (a_0 = -inf, a_8 = +inf),
+    P = sum_k E[G(A); A in slice k] lies between (1/8) sum_k G(a_{k-1}) and (1/8) sum_k G(a_k):
+    the ceiling minus the floor is G(+inf) / 8 <= 1/8. They settle a criterion's comparison
+    where the animal is far from it (83% of tone_reversal's in tools/bench/compare.py's cohort)."""
+    key = (mean_a, var_a, margin)
+    logits = _A_EDGES.get(key)
+    if logits is None:
+        logits = _edge_logits(mean_a, var_a, margin)
+        if len(_A_EDGES) >= _A_NODES_MAX:
+            del _A_EDGES[next(iter(_A_EDGES))]
+        _A_EDGES[key] = logits
+    erfc = math.erfc
+    scale_b = -1.0 / math.sqrt(2.0 * var_b)  # P(B < x) = erfc((x - mean_b) * scale_b) / 2
+    total = last = 0.0
+    for x in logits:
+        last = 0.0 if x is None else 2.0 if x == _INF else erfc((x - mean_b) * scale_b)
+        total += last
+    return (total - last) / (2.0 * _SLICES), total / (2.0 * _SLICES)
+
+
+_A_EDGES: dict[tuple[float, float, float], tuple] = {}  # (mean_a, var_a, margin) -> _edge_logits(...), as _A_NODES
+
+
+def p_difference_compared(mean_a: float, var_a: float, mean_b: float, var_b: float, margin: float,
+                          op: str, c: float) -> bool:
+    """``p_difference_above(...) <op> c`` for op one of < <= > >=: what a criterion such as
+    ``p_discriminates(tone_hi, tone_lo, 0.3) >= 0.95`` asks, mostly without the quadrature.
+
+    Where the closed-form floor or ceiling (:func:`_difference_bounds`) clears c by 0.01
+    (``_BOUND_SLACK``: far more than the quadrature's error),
+    the value lies on that side of c too, and compares as any value there does; otherwise the
+    value is computed and compared (tests/test_fast_paths.py: the same answers). About 1.5 µs
+    against the value's ~7 (tools/bench/step.py)."""
+    if op not in _COMPARE_OPS:
+        raise BadArgument("op", "one of < <= > >=", op)
+    _two_states(mean_a, var_a, mean_b, var_b, ("margin", margin, _margin))
+    compare = _COMPARE_OPS[op]
+    if margin != 0.0 and -_INF < c < _INF:
+        # sliced over the narrower cue, as p_difference_above integrates (the same P either way)
+        sliced = (-mean_b, var_b, -mean_a, var_a) if var_b < var_a else (mean_a, var_a, mean_b, var_b)
+        floor, ceiling = _difference_bounds(*sliced, margin)
+        if ceiling < c - _BOUND_SLACK:
+            return compare(-_INF, c)  # what op answers for a value below c (c is finite)
+        if floor > c + _BOUND_SLACK:
+            return compare(_INF, c)  # ... and for one above it
+    return bool(compare(p_difference_above(mean_a, var_a, mean_b, var_b, margin), c))
+
+
 def _p_difference_above_reference(mean_a: float, var_a: float, mean_b: float, var_b: float,
                                   margin: float = 0.0) -> float:
     """:func:`p_difference_above` as one plain loop, nothing kept between calls."""
     _two_states(mean_a, var_a, mean_b, var_b, ("margin", margin, _margin))
     if margin == 0.0:
         return _NORMAL.cdf((mean_a - mean_b) / math.sqrt(var_a + var_b))
+    if var_b < var_a:  # over the narrower cue, as p_difference_above
+        mean_a, var_a, mean_b, var_b = -mean_b, var_b, -mean_a, var_a
     sa = math.sqrt(var_a)
     lo, hi = max(math.log(margin / (1.0 - margin)), mean_a - 8.0 * sa), mean_a + 8.0 * sa
     if lo >= hi:
@@ -430,10 +522,6 @@ def _difference_cdf(mean_a: float, var_a: float, mean_b: float, var_b: float, mo
 # how far from c one evaluation of F must place a quantile before the comparison is taken
 # as settled: 100x the search's tolerance (1e-5 in d', _solve)
 _SETTLED_BY = 1e-3
-# how far a bound on F must clear p before it settles a comparison in F's place: the
-# quadrature's F is within 5e-5 of the integral it approximates on states from very sure
-# to very unsure (against scipy's adaptive quad, tests/test_behaviour.py), 200x less than this
-_BOUND_SLACK = 1e-2
 _PROBIT_SLOPE = 1.702  # logit(Phi(y)) ~ 1.702 y (the logistic's probit approximation): picks s below
 _LOGIT_PHI_RANGE = 30.0  # |y| beyond which logit(Phi(y)) is not formed from two erfc (the smaller underflows near 38)
 

@@ -17,6 +17,7 @@ from .behaviour import (
     dprime_part_compared,
     logistic,
     p_difference_above,
+    p_difference_compared,
 )
 from .curve import LearningCurve
 from .learner_setup import action_cue
@@ -143,6 +144,11 @@ class ModelView:
 
     def p_discriminates(self, a: str, b: str, margin: float) -> float:
         return p_difference_above(*self.behaviour_state(a), *self.behaviour_state(b), margin)
+
+    def p_discriminates_compared(self, a: str, b: str, margin: float, op: str, c: float) -> bool:
+        """``p_discriminates(a, b, margin) <op> c``, mostly without the quadrature
+        (:func:`core.behaviour.p_difference_compared`)."""
+        return p_difference_compared(*self.behaviour_state(a), *self.behaviour_state(b), margin, op, c)
 
     def dprime_between(self, a: str, b: str, level: float) -> tuple[float, float, float]:
         return dprime_estimate(*self.behaviour_state(a), *self.behaviour_state(b), level)

@@ -160,16 +160,28 @@ class ScheduleEnv(Env):
 
     def compare_call(self, func: str, args: list, op: str, c: float) -> bool | None:
         """``dprime_lower/upper(a, b[, level]) <op> c`` from the view's
-        ``dprime_part_compared`` (the same answer as comparing ``call``'s value, mostly
-        without the quantile search), where the view offers it."""
-        compared = getattr(self.view, "dprime_part_compared", None)
-        if compared is None or func not in ("dprime_lower", "dprime_upper"):
-            return None
-        level = _level(args, 2)
-        if level is None:
-            return False  # the value is NaN (see _behaviour_call), and NaN compares false
+        ``dprime_part_compared`` (mostly without the quantile search), and
+        ``p_discriminates(a, b[, margin]) <op> c`` from its ``p_discriminates_compared``
+        (mostly without the quadrature): the same answer as comparing ``call``'s value, where
+        the view offers them."""
+        if func == "p_discriminates":
+            compared = getattr(self.view, "p_discriminates_compared", None)
+            if compared is None:
+                return None
+            margin = float(args[2]) if len(args) > 2 else 0.0
+            if not 0.0 <= margin < 1.0:
+                return False  # the value is NaN (see _behaviour_call), and NaN compares false
+        else:
+            compared = getattr(self.view, "dprime_part_compared", None)
+            if compared is None or func not in ("dprime_lower", "dprime_upper"):
+                return None
+            level = _level(args, 2)
+            if level is None:
+                return False  # as above
         cue = self.cue if args[0] == "cue" else args[0]
         other = self.cue if args[1] == "cue" else args[1]
+        if func == "p_discriminates":
+            return compared(cue, other, margin, op, c)
         return compared(cue, other, level, _DPRIME_ENTRY[func], op, c)
 
 

@@ -40,7 +40,9 @@ class SubjectView(Protocol):
         """Two-sided credible interval of ``p_behaviour``."""
 
     def p_discriminates(self, a: str, b: str, margin: float) -> float:
-        """P(p_behaviour(a) - p_behaviour(b) > margin) under the estimates."""
+        """P(p_behaviour(a) - p_behaviour(b) > margin) under the estimates. (A view may add
+        ``p_discriminates_compared(a, b, margin, op, c)``, that compared with a constant,
+        which a criterion's test then asks instead.)"""
 
     def dprime_between(self, a: str, b: str, level: float) -> tuple[float, float, float]:
         """Behavioural d' of a against b from the estimates, and its credible interval.
@@ -94,6 +96,9 @@ class StaticView:
 
     def p_discriminates(self, a: str, b: str, margin: float) -> float:
         return B.p_difference_above(*self._state(a), *self._state(b), margin)
+
+    def p_discriminates_compared(self, a: str, b: str, margin: float, op: str, c: float) -> bool:
+        return B.p_difference_compared(*self._state(a), *self._state(b), margin, op, c)
 
     def dprime_between(self, a: str, b: str, level: float) -> tuple[float, float, float]:
         return B.dprime_estimate(*self._state(a), *self._state(b), level)

@@ -4,9 +4,9 @@
 phrase per comparison or condition. The engine tests every criterion on every trial but
 needs the words only for the one that holds, so each checked tree is also turned once
 into nested Python closures (still no eval/exec) that give the same value with the same
-env calls in the same order -- except that a d' bound compared with a constant is asked
-of the env as a comparison (``Env.compare_call``), which it may answer without computing
-the bound; :class:`_Eval` stays the readable reference of what they compute
+env calls in the same order -- except that a d' bound or ``p_discriminates`` compared
+with a constant is asked of the env as a comparison (``Env.compare_call``), which it may
+answer without computing the value; :class:`_Eval` stays the readable reference of what they compute
 (``tests/test_rules_expr.py`` holds the two equal on random expressions).
 
 Runtime arithmetic never raises: a division by zero gives NaN, an overflow gives
@@ -216,8 +216,8 @@ class _Eval:
 # Criteria are tested on every trial and explained only when one holds. For the test,
 # each checked tree is turned once into nested closures (plain Python functions, no
 # eval) that make the same env calls in the same order and return the same values as
-# _Eval without phrases (a d' bound against a constant first offers the env the whole
-# comparison: Env.compare_call); _Eval stays the one path that explains.
+# _Eval without phrases (a d' bound or p_discriminates against a constant first offers the
+# env the whole comparison: Env.compare_call); _Eval stays the one path that explains.
 
 _COMPILED: dict[int, tuple[Expr, Callable]] = {}  # id(expr) -> (expr, its evaluator)
 _COMPILED_MAX = 1024
@@ -381,10 +381,10 @@ def _arith(op: str, a: float, b: float) -> float:
     raise ValueError(op)  # pragma: no cover
 
 
-# functions whose comparison with a constant an env may answer without the value (a
-# quantile settled by one evaluation of its distribution function: core.behaviour.
-# dprime_part_compared)
-COMPARED_CALLS = frozenset({"dprime_lower", "dprime_upper"})
+# functions whose comparison with a constant an env may answer without the value (settled
+# by closed-form bounds, or a quantile by one evaluation of its distribution function:
+# core.behaviour.dprime_part_compared and p_difference_compared)
+COMPARED_CALLS = frozenset({"dprime_lower", "dprime_upper", "p_discriminates"})
 
 _COMPARE = {"==": operator.eq, "!=": operator.ne, "<": operator.lt, "<=": operator.le, ">": operator.gt,
             ">=": operator.ge}

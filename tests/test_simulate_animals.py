@@ -75,6 +75,25 @@ def test_each_preset_runs_a_session_of_each_example(rules, preset):
         assert getattr(animal, key) == value
 
 
+@pytest.mark.parametrize("rules", [TONES, SHAPING, CHOICE], ids=lambda r: r.name)
+@pytest.mark.parametrize("record_truth", [True, False])
+def test_every_simulated_event_is_the_checked_construction(rules, record_truth):
+    """The simulated animal assembles its events without TrialEvent's checks
+    (TrialEvent._assembled); every event of every preset, with and without its truth in
+    extra, equals TrialEvent(...) of the same fields: the same value, the same dict, the same
+    order of extra's keys."""
+    import dataclasses
+
+    for preset in PRESETS:
+        animal = preset_animal(preset, rules, "m1", 3)
+        animal.record_truth = record_truth
+        run = simulate.simulate_session(rules, animal, session="s1", max_trials=120)
+        for event in run.events:
+            checked = TrialEvent(**{f.name: getattr(event, f.name) for f in dataclasses.fields(event)})
+            assert event == checked and event.to_dict() == checked.to_dict(), (preset, event)
+            assert list(event.extra) == list(checked.extra)
+
+
 def test_typical_preset_is_what_animal_for_builds_and_varies_by_seed():
     for seed in (0, 7, 1003):
         assert preset_animal("typical", CHOICE, "m1", seed) == animal_for(CHOICE, "m1", seed)

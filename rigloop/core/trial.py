@@ -292,6 +292,30 @@ class TrialEvent:
                 raise BadEvent("duration", f"must cover every event in the trial (last at {latest:g} s)", duration)
             object.__setattr__(self, "duration", duration)
 
+    @classmethod
+    def _assembled(cls, subject: str, rig: str, session: str, trial: int, cues: tuple[CuePresentation, ...],
+                   outcome: Outcome, response: Response, duration: float, wall_time: float,
+                   extra: dict[str, Scalar]) -> TrialEvent:
+        """The event ``TrialEvent(...)`` makes of these, without its checks: for parts that are
+        already checked values, in order, with a duration that covers them (the simulated
+        animal's, built from a checked decision). Its checks are a third of a simulated trial's
+        own cost (tools/bench/compare.py); tests/test_simulate_animals.py holds every event of
+        every preset equal to the checked construction."""
+        new = object.__new__(cls)
+        put = object.__setattr__
+        put(new, "subject", subject)
+        put(new, "rig", rig)
+        put(new, "session", session)
+        put(new, "trial", trial)
+        put(new, "cues", cues)
+        put(new, "outcome", outcome)
+        put(new, "response", response)
+        put(new, "duration", duration)
+        put(new, "wall_time", wall_time)
+        put(new, "extra", dict(sorted(extra.items())) if extra else {})
+        put(new, "steps", ())
+        return new
+
     # -- derived views ------------------------------------------------------
 
     def event_times(self) -> list[float]:

@@ -335,18 +335,9 @@ class SimulatedAnimal:
             extra = self._extra_of(p)
             extra[TRUE_ENGAGED] = 1.0 if engaged else 0.0
         times = [offset + 1.0] + ([latency] if latency else []) + ([reward_time] if reward_time else [])
-        return TrialEvent(
-            subject=self.subject,
-            rig=rig,
-            session=decision.session,
-            trial=decision.trial,
-            cues=cues,
-            outcome=outcome,
-            response=response,
-            duration=max(times),
-            wall_time=wall_time,
-            extra=extra,
-        )
+        # TrialEvent(...) of these checked parts, without its checks (equal: tests/test_simulate_animals.py)
+        return TrialEvent._assembled(self.subject, rig, decision.session, decision.trial, cues, outcome, response,
+                                     max(times), float(wall_time), extra)
 
     def _shown(self, cue: str, onset: float, offset: float) -> tuple[CuePresentation, ...]:
         """The trial's one cue presentation (a frozen value, built once per cue and times)."""

@@ -469,3 +469,15 @@ def test_dprime_part_equals_that_entry_of_the_triple():
         assert _bits(_behaviour_call(view, func, "a", ["a", "b", 0.9], None)) == _bits(triple[k])
     with pytest.raises(Exception, match="which"):
         behaviour.dprime_part(0.0, 1.0, 0.0, 1.0, 0.95, "both")
+
+
+def test_step_builds_its_decision_in_the_field_order():
+    """core.step._decide passes Decision's fields by position: the order it writes them in is
+    Decision's own (a reordered field would otherwise land in another's place)."""
+    import dataclasses
+
+    from rigloop.core.trial import Decision
+
+    assert [f.name for f in dataclasses.fields(Decision)] == [
+        "subject", "session", "trial", "cue", "reward_prob", "reward_ul", "reward_armed", "block", "stage",
+        "end_session", "difficulty", "valve_ms", "reasons", "overrides", "warnings"]

@@ -421,6 +421,12 @@ def test_choice_discrimination_is_p_right_of_the_right_cue_minus_the_left_cue():
     assert truth.discrimination(p, direction) == pytest.approx(0.35)
     assert truth.block_direction(TONES.spec, "acquisition", "forward", "lick") == (("tone_hi",), ("tone_lo",))
     assert truth.block_direction(SHAPING.spec, "lever_shaping", "go_only", "lick") is None
+    # min over the positive cues minus max over the negative ones; None when one is missing
+    p3 = {"a": 0.9, "b": 0.7, "c": 0.2, "d": 0.4}
+    assert truth.discrimination(p3, (("a", "b"), ("c", "d"))) == 0.7 - 0.4
+    assert truth.discrimination(p3, (("a",), ("d",))) == 0.9 - 0.4
+    assert truth.discrimination(p3, (("a",), ("e",))) is None
+    assert truth.discrimination(p3, (("a", "e"), ("d",))) is None
 
 
 def test_first_held_and_median_iqr():

@@ -170,6 +170,9 @@ def block_direction(spec, stage: str, block: str, kind: str) -> tuple[tuple[str,
 def discrimination(p: Mapping[str, float], direction: tuple[tuple[str, ...], tuple[str, ...]]) -> float | None:
     """min p over the positive cues minus max p over the negative ones; None if a cue is missing."""
     pos, neg = direction
+    if len(pos) == 1 and len(neg) == 1:  # the usual pair, without the generators (the same value)
+        a, b = p.get(pos[0]), p.get(neg[0])
+        return None if a is None or b is None else a - b
     if any(c not in p for c in (*pos, *neg)):
         return None
     return min(p[c] for c in pos) - max(p[c] for c in neg)

@@ -35,21 +35,46 @@ def test_lazy_trial_generator_draws_what_trial_rng_draws(seed, trial):
 
 
 def test_trial_generator_has_trial_rngs_state():
-    """seeds._trial_generator (SeedSequence's output hash done in five array operations)
-    builds the generator trial_rng builds: the same PCG64 state, hence the same draws."""
+    """seeds._trial_generator (SeedSequence's hash run over a block of trials at once) and
+    _trial_generator_single (numpy's SeedSequence, its output hash in five array operations)
+    build the generator trial_rng builds: the same PCG64 state, hence the same draws."""
     rng = np.random.default_rng(11)
     cases = [(0, 0), (0, 1), (2**32 - 1, 2**32 - 1), (2**32, 2**32), (2**64 - 1, 5), (2**64 + 3, 7), (-1, 2),
              (-(2**70), 9), (12345, 2**40 + 1)]
     cases += [(int(rng.integers(0, 2**63)) * int(rng.integers(1, 3)), int(rng.integers(0, 100000)))
               for _ in range(300)]
     cases += [(int(rng.integers(0, 2**32)), int(rng.integers(0, 2**33))) for _ in range(100)]
+    # each block's edges, and trials well into a long session
+    cases += [(seed, t) for seed in (7, 2**40 + 9) for t in (126, 127, 128, 129, 255, 256, 1023, 2**31, 2**32 - 2)]
     for seed, trial in cases:
         fast, plain = seeds._trial_generator(seed, trial), seeds.trial_rng(seed, trial)
         assert fast.bit_generator.state == plain.bit_generator.state, (seed, trial)
+        if 0 <= trial < 2**32:
+            single = seeds._trial_generator_single(seed, trial)
+            assert single.bit_generator.state == plain.bit_generator.state, (seed, trial)
     fast, plain = seeds._trial_generator(2**63 + 5, 999), seeds.trial_rng(2**63 + 5, 999)
     assert fast.permutation(9).tolist() == plain.permutation(9).tolist() and fast.random() == plain.random()
     # anything but plain ints takes trial_rng itself
     assert seeds._trial_generator(4, np.int64(3)).bit_generator.state == seeds.trial_rng(4, 3).bit_generator.state
+
+
+def test_trial_generator_blocks_are_bounded_and_not_made_twice(monkeypatch):
+    """The blocks of state words are kept for the newest few (seed, block) pairs; a block that
+    was dropped is not made again (more subjects draw than are kept: each draw then takes the
+    single SeedSequence), and every generator still has trial_rng's state."""
+    monkeypatch.setattr(seeds, "_BLOCKS", {})
+    monkeypatch.setattr(seeds, "_DROPPED", {})
+    monkeypatch.setattr(seeds, "_BLOCKS_MAX", 4)
+    made = []
+    real = seeds._block_words
+    monkeypatch.setattr(seeds, "_block_words", lambda seed, first: made.append((seed, first)) or real(seed, first))
+    for trial in (1, 2, 3):
+        for seed in range(6):  # six subjects drawing in turn, four blocks kept
+            fast, plain = seeds._trial_generator(seed, trial), seeds.trial_rng(seed, trial)
+            assert fast.bit_generator.state == plain.bit_generator.state, (seed, trial)
+    assert len(seeds._BLOCKS) == 4
+    assert sorted(made) == [(seed, 0) for seed in range(6)]  # each made once, none again after it was dropped
+    assert set(seeds._DROPPED) == {(0, 0), (1, 0)}
 
 
 def test_surprise_equals_the_array_form():

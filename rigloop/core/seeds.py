@@ -19,16 +19,17 @@ def trial_rng(seed: int, trial: int) -> np.random.Generator:
     return np.random.default_rng([seed & 0xFFFFFFFFFFFFFFFF, trial])
 
 
-# trial_rng's generator, built for less (1.3x faster, tools/bench/step.py): numpy's
-# SeedSequence mixes the entropy words in C, but its generate_state runs the output hash
-# through numpy scalars under an errstate. _trial_generator hands the same entropy words
-# to SeedSequence as one uint32 array (what it makes of the list itself) and forms the
+# trial_rng's generator, built for less (tools/bench/step.py): numpy's SeedSequence mixes
+# the entropy words in C, but its generate_state runs the output hash through numpy
+# scalars under an errstate. _trial_generator_single hands the same entropy words to
+# SeedSequence as one uint32 array (what it makes of the list itself) and forms the
 # four 64-bit state words from its pool with five array operations, the hash of
 # SeedSequence.generate_state (O'Neill's seed_seq_fe output stage): word i is
 # pool[i mod 4] ^ c_i, times m_i, xor-shifted by 16, in uint32 arithmetic, where
 # c_0 = 0x8B51F9DD and m_i = c_i * 0x58F38DED mod 2^32, c_{i+1} = m_i. PCG64 then seeds
 # from those words exactly as from the SeedSequence (tests/test_fast_paths.py: the same
-# generator state for many seeds and trials).
+# generator state for many seeds and trials). _trial_generator takes the words from a
+# block of trials whose SeedSequence hash ran at once (_block_words, below).
 _M32 = 0xFFFFFFFF
 
 
@@ -71,17 +72,97 @@ class _StateWords(np.random.bit_generator.ISeedSequence):
 
 
 def _trial_generator(seed: int, trial: int) -> np.random.Generator:
-    """:func:`trial_rng(seed, trial) <trial_rng>` (the same generator state), built for less."""
-    if type(seed) is not int or type(trial) is not int or trial < 0:
+    """:func:`trial_rng(seed, trial) <trial_rng>` (the same generator state), built for less:
+    its state words from the block of trials :func:`_block_words` made at once."""
+    if type(seed) is not int or type(trial) is not int or not 0 <= trial < _M32:
         return trial_rng(seed, trial)
+    seed &= 0xFFFFFFFFFFFFFFFF
+    key = (seed, trial // _BLOCK)
+    block = _BLOCKS.get(key)
+    if block is None:
+        if key in _DROPPED:
+            # its block was made and dropped before its trials were done: more subjects are
+            # drawing than the blocks kept serve, and a block made again would be dropped again
+            return _trial_generator_single(seed, trial)
+        block = _block_words(seed, key[1] * _BLOCK)
+        if len(_BLOCKS) >= _BLOCKS_MAX:
+            oldest = next(iter(_BLOCKS))
+            del _BLOCKS[oldest]
+            _DROPPED[oldest] = None
+            if len(_DROPPED) > _DROPPED_MAX:
+                del _DROPPED[next(iter(_DROPPED))]
+        _BLOCKS[key] = block
+    return np.random.Generator(np.random.PCG64(_StateWords(block[trial % _BLOCK])))
+
+
+def _trial_generator_single(seed: int, trial: int) -> np.random.Generator:
+    """:func:`_trial_generator` for one trial alone: numpy's SeedSequence on its entropy words,
+    then generate_state's hash in arrays (the reference :func:`_block_words` is held to)."""
     entropy = np.array(_uint32_words(seed & 0xFFFFFFFFFFFFFFFF) + _uint32_words(trial), dtype=np.uint32)
-    v = np.random.SeedSequence(entropy).pool[_OUT_FROM]
+    return np.random.Generator(np.random.PCG64(_StateWords(_state_words(np.random.SeedSequence(entropy).pool))))
+
+
+def _state_words(pool: np.ndarray) -> np.ndarray:
+    """generate_state(4, uint64) of SeedSequence pools (..., 4) uint32: (..., 4) uint64."""
+    v = np.ascontiguousarray(pool[..., _OUT_FROM])  # (a fancy index of a 2-d pool comes out in column order)
     v ^= _OUT_XOR
     v *= _OUT_MULT  # modulo 2^32, as uint32 arrays multiply
     v ^= v >> _SHIFT
     # word pairs (low, high) as one uint64 each, as generate_state reads them on any byte order
-    words = v.astype("<u4", copy=False).view("<u8").astype(np.uint64, copy=False)
-    return np.random.Generator(np.random.PCG64(_StateWords(words)))
+    return v.astype("<u4", copy=False).view("<u8").astype(np.uint64, copy=False)
+
+
+# Trials whose state words one pass makes. SeedSequence's hash costs ~5 µs a call in
+# numpy's wrappers (~10 µs inside a decision), more than the rest of most draws; over an
+# array of 128 trial numbers, lanes in step, one pass costs ~60 µs, and each generator
+# then ~1 µs (tools/bench/step.py; a quarter to two thirds of a shipped file's trials draw).
+# Blocks are kept per (seed, block), the oldest dropped first: 512 of 4 kB serve 512
+# subjects drawing at once (a subject's session has one seed, and its draws move through
+# its blocks in order). A block dropped before its trials were done is not made again
+# (_DROPPED): beyond 512 such subjects each draw costs what a single SeedSequence does.
+_BLOCK = 128
+_BLOCKS: dict[tuple[int, int], np.ndarray] = {}
+_BLOCKS_MAX = 512
+_DROPPED: dict[tuple[int, int], None] = {}  # keys of dropped blocks, the newest 4096
+_DROPPED_MAX = 4096
+# SeedSequence's entropy hash (numpy/random/bit_generator.pyx, mix_entropy; O'Neill's seed_seq_fe)
+_INIT_A, _MULT_A = 0x43B0D7E5, 0x931E8875
+_MIX_L, _MIX_R = np.uint32(0xCA01F9DD), np.uint32(0x4973F715)
+_POOL = 4
+
+
+def _block_words(seed: int, first: int) -> np.ndarray:
+    """The PCG64 state words of trial_rng(seed, t) for t = first .. first + 127, a (128, 4)
+    uint64 array: SeedSequence's pool for entropy [seed's 32-bit words, t] (t < 2^32: one
+    word), mixed as mix_entropy mixes it, on arrays of trials at once; then
+    :func:`_state_words` (tests/test_fast_paths.py: numpy's own SeedSequence and PCG64 state
+    for seeds of one and two words, trials 0 to past 2^31)."""
+    trials = np.arange(first, first + _BLOCK, dtype=np.uint32)
+    entropy = [np.full(_BLOCK, w, dtype=np.uint32) for w in _uint32_words(seed)] + [trials]
+    hash_const = _INIT_A
+
+    def hashmix(value: np.ndarray) -> np.ndarray:
+        nonlocal hash_const
+        value = value ^ np.uint32(hash_const)
+        hash_const = (hash_const * _MULT_A) & _M32
+        value *= np.uint32(hash_const)
+        value ^= value >> _SHIFT
+        return value
+
+    mixer = [hashmix(entropy[i] if i < len(entropy) else np.zeros(_BLOCK, dtype=np.uint32)) for i in range(_POOL)]
+    for i_src in range(_POOL):
+        for i_dst in range(_POOL):
+            if i_src != i_dst:
+                # mix(x, y) = (L x - R y) xor-shifted by 16, in uint32 arithmetic
+                out = _MIX_L * mixer[i_dst] - _MIX_R * hashmix(mixer[i_src])
+                out ^= out >> _SHIFT
+                mixer[i_dst] = out
+    for i_src in range(_POOL, len(entropy)):  # entropy past the pool (none for these seeds)
+        for i_dst in range(_POOL):
+            out = _MIX_L * mixer[i_dst] - _MIX_R * hashmix(entropy[i_src])
+            out ^= out >> _SHIFT
+            mixer[i_dst] = out
+    return _state_words(np.stack(mixer, axis=1))
 
 
 class _LazyTrialRng:

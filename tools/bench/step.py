@@ -108,7 +108,7 @@ def tricks() -> dict[str, dict[str, float]]:
     return {
         "lazy trial generator vs trial_rng": _pair(lambda: seeds._LazyTrialRng(7, 3),
                                                     lambda: seeds.trial_rng(7, 3), 20000),
-        "trial generator, pool hashed in arrays": _pair(lambda: seeds._trial_generator(7, 3),
+        "trial generator from its block vs trial_rng": _pair(lambda: seeds._trial_generator(7, 3),
                                                         lambda: seeds.trial_rng(7, 3), 5000),
         "_surprise vs array form": _pair(lambda: quantities._surprise(errors, variances, 0.2),
                                          lambda: quantities._surprise_reference(errors, variances, 0.2), 20000),

@@ -10,6 +10,8 @@ from __future__ import annotations
 
 import dataclasses
 import math
+import operator
+import random
 from types import MappingProxyType
 
 import numpy as np
@@ -373,30 +375,33 @@ def test_kalman_td_update_equals_its_reference():
     assert "positive semi-definite" in str(fast.value) or "finite" in str(fast.value)
 
 
+_OPS = {"<": operator.lt, "<=": operator.le, ">": operator.gt, ">=": operator.ge}
+
+
+def _two_cue_states(rng: random.Random) -> tuple[float, float, float, float]:
+    """Two cues' logit states (mean, var) from very sure (var 1e-4) to very unsure (var 8)."""
+    def var():
+        return rng.choice([rng.uniform(1e-4, 0.01), rng.uniform(0.01, 1.0), rng.uniform(1.0, 8.0)])
+
+    return rng.uniform(-6.0, 6.0), var(), rng.uniform(-6.0, 6.0), var()
+
+
 def test_dprime_part_compared_answers_as_the_searched_value_does():
     """behaviour.dprime_part_compared (one evaluation of D's distribution function when that
     settles the comparison, else the search) answers ``dprime_part(...) <op> c`` for states
     from very sure to very unsure, thresholds on the searched quantile, within the search's
     tolerance of it, either side of the 0.001 margin, and far away."""
-    import operator
-    import random
-
     from rigloop.core import behaviour as B
 
-    ops = {"<": operator.lt, "<=": operator.le, ">": operator.gt, ">=": operator.ge}
     rng = random.Random(8)
-
-    def var():
-        return rng.choice([rng.uniform(1e-4, 0.01), rng.uniform(0.01, 1.0), rng.uniform(1.0, 8.0)])
-
     settled = 0
     for _ in range(250):
-        ma, va, mb, vb = rng.uniform(-6.0, 6.0), var(), rng.uniform(-6.0, 6.0), var()
+        ma, va, mb, vb = _two_cue_states(rng)
         level = rng.choice([0.8, 0.95, 0.99])
         for which in ("lower", "upper"):
             q = B.dprime_part(ma, va, mb, vb, level, which)
             for off in (0.0, 1e-6, -1e-6, 1e-5, -1e-5, 9e-4, -9e-4, 1.1e-3, -1.1e-3, 0.5, -0.5, rng.uniform(-3, 3)):
-                for op, compare in ops.items():
+                for op, compare in _OPS.items():
                     assert B.dprime_part_compared(ma, va, mb, vb, level, which, op, q + off) == compare(q, q + off), \
                         (ma, va, mb, vb, level, which, op, off)
                 settled += abs(off) > 1e-3
@@ -435,26 +440,18 @@ def test_p_difference_compared_answers_as_the_value_does(monkeypatch):
     very sure to very unsure, margins 0 to 0.6, thresholds on the value, near it, either side
     of the 0.01 slack, and far away; a comparison far from the value is settled without the
     quadrature."""
-    import operator
-    import random
-
     from rigloop.core import behaviour as B
 
-    ops = {"<": operator.lt, "<=": operator.le, ">": operator.gt, ">=": operator.ge}
     rng = random.Random(9)
-
-    def var():
-        return rng.choice([rng.uniform(1e-4, 0.01), rng.uniform(0.01, 1.0), rng.uniform(1.0, 8.0)])
-
     settled = 0
     for _ in range(300):
-        ma, va, mb, vb = rng.uniform(-6.0, 6.0), var(), rng.uniform(-6.0, 6.0), var()
+        ma, va, mb, vb = _two_cue_states(rng)
         margin = rng.choice([0.0, 0.1, 0.3, 0.6, rng.uniform(0.0, 0.9)])
         v = B.p_difference_above(ma, va, mb, vb, margin)
         floor, ceiling = B._difference_bounds(ma, va, mb, vb, margin)
         assert floor <= v + 1e-5 and v <= ceiling + 1e-5 and ceiling - floor <= 1.0 / 8 + 1e-12
         for off in (0.0, 1e-6, -1e-6, 9e-3, -9e-3, 1.1e-2, -1.1e-2, 0.5, -0.5, rng.uniform(-1, 1)):
-            for op, compare in ops.items():
+            for op, compare in _OPS.items():
                 assert B.p_difference_compared(ma, va, mb, vb, margin, op, v + off) == compare(v, v + off), \
                     (ma, va, mb, vb, margin, op, off)
             settled += margin > 0 and (ceiling < v + off - 0.01 or floor > v + off + 0.01)

@@ -241,13 +241,7 @@ def p_difference_above(mean_a: float, var_a: float, mean_b: float, var_b: float,
         return _NORMAL.cdf((mean_a - mean_b) / math.sqrt(var_a + var_b))
     if var_b < var_a:  # over the narrower cue (see above): -B in A's place
         mean_a, var_a, mean_b, var_b = -mean_b, var_b, -mean_a, var_a
-    key = (mean_a, var_a, margin)
-    nodes = _A_NODES.get(key)
-    if nodes is None:
-        nodes = _a_nodes(mean_a, var_a, margin)
-        if len(_A_NODES) >= _A_NODES_MAX:
-            del _A_NODES[next(iter(_A_NODES))]
-        _A_NODES[key] = nodes
+    nodes = _kept(_A_NODES, _A_NODES_MAX, (mean_a, var_a, margin), lambda: _a_nodes(mean_a, var_a, margin))
     if nodes is _NOTHING:
         return 0.0
     factor, terms = nodes
@@ -332,13 +326,7 @@ def _difference_bounds(mean_a: float, var_a: float, mean_b: float, var_b: float,
     P = sum_k E[G(A); A in slice k] lies between (1/8) sum_k G(a_{k-1}) and (1/8) sum_k G(a_k):
     the ceiling minus the floor is G(+inf) / 8 <= 1/8. They settle a criterion's comparison
     where the animal is far from it (83% of tone_reversal's in tools/bench/compare.py's cohort)."""
-    key = (mean_a, var_a, margin)
-    logits = _A_EDGES.get(key)
-    if logits is None:
-        logits = _edge_logits(mean_a, var_a, margin)
-        if len(_A_EDGES) >= _A_NODES_MAX:
-            del _A_EDGES[next(iter(_A_EDGES))]
-        _A_EDGES[key] = logits
+    logits = _kept(_A_EDGES, _A_NODES_MAX, (mean_a, var_a, margin), lambda: _edge_logits(mean_a, var_a, margin))
     erfc = math.erfc
     scale_b = -1.0 / math.sqrt(2.0 * var_b)  # P(B < x) = erfc((x - mean_b) * scale_b) / 2
     total = last = 0.0
@@ -405,6 +393,19 @@ def _p_difference_above_reference(mean_a: float, var_a: float, mean_b: float, va
     # ws folds in ds/dt = 1/2 and the s of da = 2 (hi - lo) s ds; the density's 1/(sd sqrt(2 pi)); Phi's 1/2
     total *= span / (sa * math.sqrt(2.0 * math.pi)) * 0.5
     return min(1.0, max(0.0, total))
+
+
+def _kept(table: dict, cap: int, key, make):
+    """``table[key]``, made by ``make()`` when missing; when the table is full its oldest entry
+    goes first (the node tables: each subject's unmoved cue must still be there at its next
+    decision, after every other subject's)."""
+    got = table.get(key)
+    if got is None:
+        got = make()
+        if len(table) >= cap:
+            del table[next(iter(table))]
+        table[key] = got
+    return got
 
 
 def _two_states(mean_a: float, var_a: float, mean_b: float, var_b: float, last: tuple) -> None:
@@ -611,14 +612,7 @@ def _probit_nodes(mean: float, var: float) -> tuple[np.ndarray, float, float]:
     the trial's cue moves, so the other cue's 24 inverse normal CDFs are not redone (each
     call of dprime_estimate then does half of them: ~1.1x the call, tools/bench/step.py; same
     numbers, tests/test_fast_paths.py)."""
-    key = (mean, var)
-    got = _G_NODES.get(key)
-    if got is None:
-        got = _g_nodes(mean, var)
-        if len(_G_NODES) >= _G_NODES_MAX:
-            del _G_NODES[next(iter(_G_NODES))]
-        _G_NODES[key] = got
-    return got
+    return _kept(_G_NODES, _G_NODES_MAX, (mean, var), lambda: _g_nodes(mean, var))
 
 
 def _g_nodes(mean: float, var: float) -> tuple[np.ndarray, float, float]:

@@ -7,7 +7,9 @@ per-time-step values and errors, and each subject's state bytes at the end of ea
 session: 4 simulated subjects x 3 sessions of each example rule file.
 
 A change that is meant to alter results (a model fix, a new rule) changes the digest
-too; say so in the commit.
+too; say so in the commit. The digest also depends on the environment: the same tree
+gave 7832435f488f1caa in one venv and b65057098f82c6b4 in another (numpy's build and
+its BLAS sum in their own order), so compare two trees in one environment.
 
     python tools/step_digest.py            # prints {"all": ..., "<example>": ..., "steps": N}
 """

@@ -112,23 +112,26 @@ def _plan_of(rules) -> _Plan:
     return derived(rules, "step_plan", _Plan)
 
 
-def view_of(rules, rep, learner, curves, behaviour, finite=None, fresh_curves=None) -> ModelView:
-    """What the rules read: the learner, the learning curves and the behaviour estimates."""
-    plan = _plan_of(rules)
+def view_of(rules, rep, learner, curves, behaviour, finite=None, fresh_curves=None, plan=None) -> ModelView:
+    """What the rules read: the learner, the learning curves and the behaviour estimates
+    (``plan``: the rule file's :class:`_Plan`, when the caller holds it)."""
+    if plan is None:
+        plan = _plan_of(rules)
     return ModelView(learner, rep, curves, plan.chance, plan.sigma2, finite, fresh_curves, behaviour, plan.beh_sigma2,
                      plan.beh_prior_var, plan.actions, plan.choice_cues)
 
 
 def _decide(subject: str, ctx: SessionContext, rules, rep, learner, curves, schedule, next_trial: int,
-            extra_warnings=(), fresh_curves=None, finite=None, behaviour=None):
+            extra_warnings=(), fresh_curves=None, finite=None, behaviour=None, step_plan=None):
     """The rules' decision about ``next_trial``, as a Decision (valve time included).
 
     ``fresh_curves`` (a dict the view takes over) are LearningCurve objects this step
     already holds for some conditions (equal to ``curves``' entries), so the view need
     not rebuild them; ``finite``: whether the learner's state is known to be finite;
-    ``behaviour``: the behaviour estimates after this trial.
+    ``behaviour``: the behaviour estimates after this trial; ``step_plan``: the rule file's
+    :class:`_Plan`, when the caller holds it.
     """
-    view = view_of(rules, rep, learner, curves, behaviour, finite, fresh_curves)
+    view = view_of(rules, rep, learner, curves, behaviour, finite, fresh_curves, step_plan)
     schedule, plan = rules.decide(schedule, view, next_trial, _LazyTrialRng(ctx.seed, next_trial))
     warnings = plan.warnings
     if extra_warnings:
@@ -311,7 +314,7 @@ def step(state: SubjectState, event: TrialEvent, rules) -> tuple[SubjectState, D
     behaviour, history = _responses_seen(state, event, plan, did, scored_cue)
     schedule = rules.observe(state.schedule, event)
     schedule, decision = _decide(state.subject, ctx, rules, rep, learner, curves, schedule, event.trial + 1,
-                                 fresh_curves=fresh, finite=finite, behaviour=behaviour)
+                                 fresh_curves=fresh, finite=finite, behaviour=behaviour, step_plan=plan)
     next_state = SubjectState(state.subject, learner, state.learner_key, curves, schedule, ctx, event.trial,
                              state.trials_total + 1, state.notes, behaviour, history)
     update = Update(state.subject, ctx.session, event.trial, quantities, values, errors)

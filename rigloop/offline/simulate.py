@@ -303,7 +303,7 @@ class SimulatedAnimal:
                 side = self._choose_side(cue, decision.difficulty)
                 latency = float(offset + 0.2 + self._rng.gamma(2.0, 0.15))
                 ok = side == correct_side
-                response = Response(kind="choice", value=side, result="correct" if ok else "incorrect", latency=latency)
+                response = Response("choice", side, "correct" if ok else "incorrect", latency)
                 if ok and decision.reward_armed:
                     reward_ul, reward_time = decision.reward_ul, latency
                 punished = not ok and self.false_alarm_timeout_s is not None
@@ -320,8 +320,7 @@ class SimulatedAnimal:
                 result = "omitted"
             else:
                 result = "correct" if licked == go else "incorrect"
-            response = self._no_lick(result) if latency is None else Response(
-                kind="licks", value=float(licks), result=result, latency=latency)
+            response = self._no_lick(result) if latency is None else Response("licks", float(licks), result, latency)
             if go and licked and decision.reward_armed:
                 reward_ul, reward_time = decision.reward_ul, offset
             punished = licked and not go and self.false_alarm_timeout_s is not None

@@ -308,13 +308,13 @@ def observe(spec: Spec, sched: ScheduleState, event) -> ScheduleState:
         role = "go" if block is not None and cue in block.contingency and block.contingency[cue].rewarded else "nogo"
     result = event.response.result
     correct, incorrect = result == "correct", result == "incorrect"
-    ch: dict[str, Any] = {
-        "trials_total": sched.trials_total + 1,
-        "trials_in_session": sched.trials_in_session + 1,
-        "trials_in_stage": sched.trials_in_stage + 1,
-        "trials_in_block": sched.trials_in_block + 1,
-        "correct_in_block": sched.correct_in_block + int(correct),
-    }
+    # the new state's fields, written into a copy of this one's (ScheduleState._evolved's dict)
+    ch: dict[str, Any] = sched.__dict__.copy()
+    ch["trials_total"] = sched.trials_total + 1
+    ch["trials_in_session"] = sched.trials_in_session + 1
+    ch["trials_in_stage"] = sched.trials_in_stage + 1
+    ch["trials_in_block"] = sched.trials_in_block + 1
+    ch["correct_in_block"] = sched.correct_in_block + int(correct)
     # go/no-go counts, and the no-response run (a correct no-go trial leaves it as it was)
     misses_in_row = sched.misses_in_row
     if role == "go":
@@ -354,7 +354,7 @@ def observe(spec: Spec, sched: ScheduleState, event) -> ScheduleState:
         # b <- b + (x - b) / window, x = 1 for a right choice
         ch["right_bias"] = sched.right_bias + ((1.0 if side == "right" else 0.0) - sched.right_bias) / window
         ch["n_choices"] = sched.n_choices + 1
-    return sched._evolved(ch)
+    return ScheduleState._of_fields(ch)
 
 
 # --------------------------------------------------------------------------- decide

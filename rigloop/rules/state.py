@@ -82,6 +82,14 @@ class ScheduleState:
         object.__setattr__(new, "__dict__", fields_)
         return new
 
+    @staticmethod
+    def _of_fields(fields_: dict[str, Any]) -> ScheduleState:
+        """The state whose instance dict is ``fields_`` (every field, taken over as it is): for
+        the engine, which writes a trial's changes into a copy of the old state's dict."""
+        new = object.__new__(ScheduleState)
+        object.__setattr__(new, "__dict__", fields_)
+        return new
+
     def to_dict(self) -> dict[str, Any]:
         out: dict[str, Any] = {}
         for f in fields(self):

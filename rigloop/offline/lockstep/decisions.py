@@ -88,7 +88,7 @@ def decide_step(state: SubjectState, event, rules, *, learn: bool = True, curves
     behaviour, history = _responses_seen(state, event, plan, did, scored_cue)
     schedule = rules.observe(state.schedule, event)
     schedule, decision = _decide(state.subject, ctx, rules, rep, seen, curves, schedule, event.trial + 1,
-                                 fresh_curves=fresh, finite=finite, behaviour=behaviour)
+                                 fresh_curves=fresh, finite=finite, behaviour=behaviour, step_plan=plan)
     next_state = SubjectState(state.subject, learner, state.learner_key, curves, schedule, ctx, event.trial,
                               state.trials_total + 1, state.notes, behaviour, history)
     return next_state, decision

@@ -647,7 +647,10 @@ class Decision:
         if self.valve_ms is not None and not _fine(self.valve_ms):
             object.__setattr__(self, "valve_ms", _number("valve_ms", self.valve_ms, optional=True))
         for name in ("reasons", "overrides", "warnings"):
-            object.__setattr__(self, name, tuple(map(str, getattr(self, name))))
+            texts = getattr(self, name)
+            # a tuple of str (what step passes) stays as it is; anything else becomes one
+            if type(texts) is not tuple or (texts and not all(type(t) is str for t in texts)):
+                object.__setattr__(self, name, tuple(map(str, texts)))
         if type(self.reward_armed) is not bool:
             object.__setattr__(self, "reward_armed", bool(self.reward_armed))
         if type(self.end_session) is not bool:

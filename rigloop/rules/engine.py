@@ -376,7 +376,8 @@ def decide(spec: Spec, sched: ScheduleState, view, next_trial: int,
 
     end = False
     env = ScheduleEnv(sched, view, spec.stages[sched.stage].blocks[sched.block])
-    for crit, holds in _session_end_tests(spec):
+    end_tests, rescue_ul = _per_file(spec)
+    for crit, holds in end_tests:
         if holds(env):  # explain_if, its test made ready
             hit, seen = evaluate(crit.when, env)
             if hit:
@@ -404,7 +405,7 @@ def decide(spec: Spec, sched: ScheduleState, view, next_trial: int,
     ended = end
     cue, p, ul, armed, end, overrides, wwarn = limit_values(
         spec.welfare, cue, p, ul, end, _uniform_below(rng), session_minutes(sched), sched.unrewarded_in_row,
-        sched.ul_session, sched.ul_today, _rewarded(block), spec.welfare.rescue_ul or _largest_ul(spec),
+        sched.ul_session, sched.ul_today, _rewarded(block), rescue_ul,
     )
     warnings.extend(wwarn)
     if end and not ended and session_minutes(sched) >= spec.welfare.max_session_min:
@@ -471,6 +472,12 @@ def _moves(spec: Spec, sched: ScheduleState, env: ScheduleEnv, reasons: list[str
     reasons.append(f"{why} -> block '{end.then}'")
     sched = enter_block(spec, sched, stage, end.then)
     return sched.evolve(blocks_in_stage=sched.blocks_in_stage + 1)
+
+
+def _per_file(spec: Spec) -> tuple[tuple, float]:
+    """(the session-end tests, the rescue volume): what ``decide`` reads of the file itself on
+    every trial, in one lookup."""
+    return derived(spec, "decide_parts", lambda sp: (_session_end_tests(sp), sp.welfare.rescue_ul or _largest_ul(sp)))
 
 
 def _session_end_tests(spec: Spec) -> tuple:

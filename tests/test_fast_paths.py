@@ -503,3 +503,23 @@ def test_step_builds_its_decision_in_the_field_order():
     assert [f.name for f in dataclasses.fields(Decision)] == [
         "subject", "session", "trial", "cue", "reward_prob", "reward_ul", "reward_armed", "block", "stage",
         "end_session", "difficulty", "valve_ms", "reasons", "overrides", "warnings"]
+
+
+def test_identifiers_passed_once_are_known_and_the_table_is_bounded(monkeypatch):
+    """trial._ident keeps the identifiers it passed (they repeat on every trial) in a bounded
+    set; what it refuses is never kept, and is refused every time."""
+    from rigloop.core import trial
+    from rigloop.errors import BadEvent
+
+    monkeypatch.setattr(trial, "_GOOD_IDS", set())
+    monkeypatch.setattr(trial, "_GOOD_IDS_MAX", 3)
+    for bad in (" m1", "", "a\nb", "x" * 65):
+        for _ in range(2):
+            with pytest.raises(BadEvent):
+                trial._ident("subject", bad)
+    assert trial._GOOD_IDS == set()
+    for good in ("m1", "m2", "m3", "m1", "m4"):
+        assert trial._ident("subject", good) == good
+    assert trial._GOOD_IDS == {"m4"}  # cleared when full, then the newest kept
+    with pytest.raises(BadEvent):
+        trial._ident("subject", ["m1"])

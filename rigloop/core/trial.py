@@ -24,14 +24,22 @@ _EXTRA_MAX = 32
 _INF = math.inf
 
 Scalar = bool | int | float | str | None
+_GOOD_IDS: set[str] = set()  # identifiers _ident has passed (cleared when full: any text may come in)
+_GOOD_IDS_MAX = 4096
 
 
 # --------------------------------------------------------------------------- checks
 
 
 def _ident(name: str, value: Any) -> str:
-    if type(value) is str and 0 < len(value) <= _ID_MAX and value.isprintable() and value == value.strip():
-        return value  # the common case in one line; the checks below say what is wrong
+    if type(value) is str:
+        if value in _GOOD_IDS:
+            return value  # subjects, rigs, sessions and cues repeat on every trial
+        if 0 < len(value) <= _ID_MAX and value.isprintable() and value == value.strip():
+            if len(_GOOD_IDS) >= _GOOD_IDS_MAX:
+                _GOOD_IDS.clear()
+            _GOOD_IDS.add(value)
+            return value  # the checks below say what is wrong
     if not isinstance(value, str) or not value:
         raise BadEvent(name, "must be a non-empty string", value)
     if len(value) > _ID_MAX or not value.isprintable() or value != value.strip():

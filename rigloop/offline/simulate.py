@@ -261,9 +261,10 @@ class SimulatedAnimal:
             if self._rng.random() >= self.fixed_p_respond:
                 return 0
             return 1 + int(self._rng.poisson(self._lick_rate(cue) - 1.0))
-        if not self._rng.random() < self._p_lick_drawn(cue):
+        _, drawn, rate, _ = self._lick_terms(cue)  # _p_lick_drawn(cue), _lick_rate(cue) in one lookup
+        if not self._rng.random() < drawn:
             return 0
-        return int(self._rng.poisson(self._lick_rate(cue)))
+        return int(self._rng.poisson(rate))
 
     def _choose_side(self, cue: str, difficulty: float | None) -> str:
         q, other = self._perception(cue, difficulty)

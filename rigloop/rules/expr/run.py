@@ -322,6 +322,9 @@ def _compile_compare(n: Compare) -> Callable[[Env], bool]:
                 return compare_asked
             if n.ops[0] != "!=":
                 # NaN compares false by itself under these operators
+                if isinstance(n.operands[0], Name):  # a counter or clock against a constant: one call fewer
+                    name = n.operands[0].name
+                    return lambda env: bool(compare(env.name(name), b))
                 return lambda env: bool(compare(left(env), b))
 
             def compare_const(env) -> bool:

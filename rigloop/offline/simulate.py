@@ -231,7 +231,10 @@ class SimulatedAnimal:
         cues = self.task_cues(decision.cue)
         if self.task == "choice":
             return {c: self.p_right(c, decision.difficulty) for c in cues}
-        return {c: self.p_respond(c) for c in cues}
+        if self.fixed_p_respond is not None:
+            return {c: self.p_respond(c) for c in cues}
+        terms = self._lick_terms  # p_respond(c) without its call: the terms' last entry
+        return {c: terms(c)[3] for c in cues}
 
     def _extra_of(self, p: Mapping[str, float]) -> dict[str, float]:
         """The truth as an event's extra keys (``true_p_respond[CUE]`` / ``true_p_right[CUE]``)."""

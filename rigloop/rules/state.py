@@ -78,9 +78,7 @@ class ScheduleState:
         twice as fast as inserting its fields one by one) with the changes written in."""
         fields_ = self.__dict__.copy()
         fields_.update(changes)
-        new = object.__new__(ScheduleState)
-        object.__setattr__(new, "__dict__", fields_)
-        return new
+        return ScheduleState._of_fields(fields_)
 
     @staticmethod
     def _of_fields(fields_: dict[str, Any]) -> ScheduleState:

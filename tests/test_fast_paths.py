@@ -79,6 +79,25 @@ def test_trial_generator_blocks_are_bounded_and_not_made_twice(monkeypatch):
     assert set(seeds._DROPPED) == {(0, 0), (1, 0)}
 
 
+
+def test_a_new_session_releases_the_blocks_of_the_one_before(monkeypatch):
+    """begin_session forgets the last session's generator blocks (memory flat in days for a
+    simulated cohort), keeps other subjects', and a released seed asked again draws trial_rng's state."""
+    from rigloop.core.step import begin_session
+    from rigloop.core.subject import new_subject
+
+    monkeypatch.setattr(seeds, "_BLOCKS", {})
+    monkeypatch.setattr(seeds, "_DROPPED", {})
+    rules = load_example("tone_reversal")
+    state, _ = begin_session(new_subject("m1", rules), rules, session="d1", rig="r", wall_time=0.0, seed=11)
+    seeds._trial_generator(11, 5)
+    seeds._trial_generator(12, 5)  # another subject's session
+    assert set(seeds._BLOCKS) == {(11, 0), (12, 0)}
+    begin_session(state, rules, session="d2", rig="r", wall_time=9.0, seed=13)
+    assert (11, 0) not in seeds._BLOCKS and (12, 0) in seeds._BLOCKS and not seeds._DROPPED
+    assert seeds._trial_generator(11, 5).bit_generator.state == seeds.trial_rng(11, 5).bit_generator.state
+    seeds.release(2**64 + 12)  # the same 64-bit seed as 12
+    assert (12, 0) not in seeds._BLOCKS
 def test_surprise_equals_the_array_form():
     """step._surprise (a loop over floats) gives the array form's bits, zeros and infinities included."""
     rng = np.random.default_rng(9)

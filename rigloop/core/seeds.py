@@ -95,6 +95,17 @@ def _trial_generator(seed: int, trial: int) -> np.random.Generator:
     return np.random.Generator(np.random.PCG64(_StateWords(block[trial % _BLOCK])))
 
 
+def release(seed: int) -> None:
+    """Forget the blocks of ``seed`` (a session that has ended draws no more): without it a
+    simulated cohort keeps a block of every session it ran until the bound, memory growing
+    with days (tools/bench/compare.py). Harmless when they are asked again: made again."""
+    if type(seed) is not int or not _BLOCKS:
+        return
+    seed &= 0xFFFFFFFFFFFFFFFF
+    for key in [key for key in _BLOCKS if key[0] == seed]:
+        del _BLOCKS[key]
+
+
 def _trial_generator_single(seed: int, trial: int) -> np.random.Generator:
     """:func:`_trial_generator` for one trial alone: numpy's SeedSequence on its entropy words,
     then generate_state's hash in arrays (the reference :func:`_block_words` is held to)."""

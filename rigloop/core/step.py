@@ -35,7 +35,7 @@ from .quantities import (
     _surprise,
 )
 from .responses import choice_code, history_step
-from .seeds import _LazyTrialRng, session_seed, trial_rng  # noqa: F401  (trial_rng: rigloop.step exports it)
+from .seeds import _LazyTrialRng, release, session_seed, trial_rng  # noqa: F401  (trial_rng: rigloop.step exports it)
 from .subject import ALL, SessionContext, SubjectState
 from .trial import Decision, TrialEvent
 from .view import ModelView
@@ -192,6 +192,8 @@ def begin_session(
             "this rule file's learner or cue features differ from the ones this animal's model was "
             "built with: the model starts from its prior"
         )
+    if state.context is not None and state.context.seed != int(seed):
+        release(state.context.seed)  # the session before draws no more: its generator blocks go
     ctx = SessionContext(session=session, rig=rig, seed=int(seed), rules_sha256=rules.sha256, valve=valve)
     schedule = rules.open_session(state.schedule, session, float(wall_time))
     state = replace(state, learner=learner, learner_key=key, curves=curves, context=ctx, last_trial=0)

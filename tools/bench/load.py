@@ -123,6 +123,26 @@ TARGET_FLAT_RATE = 1500.0  # --interval 0
 TARGET_FLAT_P99_MS = 50.0
 
 
+WINDOW_S = 10.0
+DAY_S = 86400.0
+MORNING_S = 8 * 3600.0  # each session after the first starts at 08:00 UTC of the next day
+
+
+def by_window(stamps: list[float], latencies: list[float], width: float) -> list[float]:
+    """The p99 (ms) of the latencies seen in each ``width``-second window of the run, in
+    order: whether a tail comes from the whole run or from moments of it."""
+    bins: dict[int, list[float]] = {}
+    for t, ms in zip(stamps, latencies):
+        bins.setdefault(int(t // width), []).append(ms)
+    out = []
+    for k in sorted(bins):
+        lat = sorted(bins[k])
+        if len(lat) < 100:  # the run's last moments: too few for a p99
+            continue
+        out.append(round(lat[min(len(lat) - 1, int(0.99 * len(lat)))], 1))
+    return out
+
+
 def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--seconds", type=float, default=60.0)
@@ -160,8 +180,13 @@ def main(argv: list[str] | None = None) -> int:
             r.link.send(r.frame)
 
         def open_next(r: Rig) -> None:
+            if r.session:
+                # the next session is the animal's next day, as a lab runs them: on the same day an
+                # animal that has earned its day's water has every session end at once, and the
+                # rig would measure opening sessions instead of trials
+                r.wall = (r.wall // DAY_S + 1) * DAY_S + MORNING_S
             r.session += 1
-            send(r, wire.OpenSession(next(ids), r.animal.subject, r.name, f"s{r.session}", RULES))
+            send(r, wire.OpenSession(next(ids), r.animal.subject, r.name, f"s{r.session}", RULES, wall_time=r.wall))
 
         def next_trial(r: Rig) -> None:
             event = r.animal.trial(r.decision, r.name, r.wall)
@@ -178,6 +203,7 @@ def main(argv: list[str] | None = None) -> int:
             else:
                 open_next(r)
         latencies: list[float] = []
+        stamps: list[float] = []  # when each latency was seen (s from the start), for the windows
         abandoned = 0
         acked = 0
         start = time.perf_counter()
@@ -210,6 +236,7 @@ def main(argv: list[str] | None = None) -> int:
                         r.acked.append((f"s{r.session}", r.decision.trial - 1))
                         if t >= measuring_from:
                             latencies.append((t - r.first_sent) * 1e3)
+                            stamps.append(t - start)
                     r.rid = 0
                     r.due = r.first_sent + interval(r)
                     break
@@ -282,6 +309,7 @@ def main(argv: list[str] | None = None) -> int:
         "daemon_ms_per_request": round(1e3 * status["busy_s"] / max(1, status["counts"]["requests"]), 3),
         "daemon_cpu_ms_per_trial": round(cpu_ms_per_trial, 3),
         "daemon_cpu_ms_by_thread": threads_ms,
+        "p99_ms_by_window": by_window(stamps, latencies, WINDOW_S),
     }
     if args.interval > 0:  # paced: the rigs offer rigs / interval trials/s; all of it must be served
         target = {"trials_per_s": round(TARGET_PACED_SHARE * args.rigs / args.interval, 1),
@@ -297,6 +325,9 @@ def main(argv: list[str] | None = None) -> int:
         print(f"{args.rigs} rigs for {args.seconds:.0f} s: {rate:.0f} trials/s, p50 {result['p50_ms']} ms, "
               f"p99 {result['p99_ms']} ms, lost {lost} (acked {acked_total}, stored {stored}), "
               f"largest batch {result['batch_peak']}, daemon CPU {result['daemon_cpu_ms_per_trial']} ms a trial")
+        windows = result["p99_ms_by_window"]
+        if len(windows) > 1:
+            print(f"p99 by {WINDOW_S:g} s window (ms): " + ", ".join(f"{w:g}" for w in windows))
         if threads_ms:
             print("daemon CPU by thread (ms a trial): " + ", ".join(f"{k} {v}" for k, v in threads_ms.items()))
         mode = "paced" if args.interval > 0 else "flat out"

@@ -542,3 +542,93 @@ def test_identifiers_passed_once_are_known_and_the_table_is_bounded(monkeypatch)
     assert trial._GOOD_IDS == {"m4"}  # cleared when full, then the newest kept
     with pytest.raises(BadEvent):
         trial._ident("subject", ["m1"])
+
+
+def _quick_classes():
+    from rigloop.core import subject, trial
+    from rigloop.rules import engine
+
+    return [trial.CuePresentation, trial.Outcome, trial.Response, trial.TrialStep, trial.TrialEvent,
+            trial.Decision, subject.SessionContext, subject.SubjectState, engine.Plan]
+
+
+def _built(init, cls, args, kwargs):
+    """(the object, or the error's type and text) of ``init`` on a new ``cls`` object."""
+    new = object.__new__(cls)
+    try:
+        init(new, *args, **kwargs)
+    except Exception as err:  # noqa: BLE001  (the two inits must fail alike)
+        return type(err), str(err)
+    return new
+
+
+def test_quick_init_builds_what_the_dataclass_init_builds():
+    """quick_init's __init__ (each slot set through its descriptor) and the dataclass's own
+    give equal objects, field by field and type by type, on the values step and the
+    simulated animal pass, on defaults and keywords, on values __post_init__ converts, and
+    fail with the same error on values it refuses."""
+    from rigloop.core.quick_init import quick_init
+    from rigloop.core.trial import CuePresentation, Decision, Outcome, Response, TrialEvent
+
+    cases = {
+        Decision: [
+            (("m1", "d001", 5, "tone", 0.8, 4.0, True, "A", "acq", False, None, None, ("a", "b"), (), ()), {}),
+            (("m1", "d001", 1, None, 0.0, 0.0, False, "A", "acq"), {}),
+            (("m1", "d001", 2, "tone", 1, 3, 1, "A", "acq"), {"reasons": ["x"], "difficulty": 2, "end_session": 0}),
+            (("m1", "d001", 0, "tone", 0.5, 1.0, True, "A", "acq"), {}),  # trial 0: refused
+            (("m1", "d001", 3, "tone", 1.5, 1.0, True, "A", "acq"), {}),  # p > 1: refused
+            (("m 1", "d001", 3, "tone", 0.5, 1.0, True, "A", "acq"), {}),  # a bad identifier
+            (("m1",), {}),  # too few arguments
+            (("m1", "d001", 3, "tone", 0.5, 1.0, True, "A", "acq"), {"colour": 1}),  # not a field
+        ],
+        CuePresentation: [(("tone", 0.0, 1.0), {}), (("tone", 1, 2), {}), (("tone", 2.0, 1.0), {}), (("tone",), {})],
+        Outcome: [((), {}), ((), {"reward_ul": 4, "reward_time": 1.0}), ((), {"reward_ul": -1.0})],
+        Response: [((), {}), (("licks", 3.0, "correct", 0.4), {}), (("licks", 3.0, "maybe", 0.4), {})],
+        TrialEvent: [
+            (("m1", "rig1", "d001", 1), {}),
+            (("m1", "rig1", "d001", 2, (CuePresentation("tone", 0.0, 1.0),), Outcome(4.0, 1.0),
+              Response("licks", 2.0, "correct", 0.5), 2.0, 1.8e9, {"x": 1.0}), {}),
+            (("m1", "rig1", "d001", 3), {"extra": {"bad key": object()}}),
+        ],
+    }
+    rules = load_example("tone_reversal")
+    from rigloop.core.step import begin_session
+    from rigloop.core.subject import new_subject
+
+    state, _ = begin_session(new_subject("m1", rules), rules, session="d1", rig="r", wall_time=0.0, seed=3)
+    for cls in _quick_classes():
+        assert cls.__init__ is not cls._dataclass_init, cls
+        examples = cases.get(cls, [])
+        if cls.__name__ in ("SubjectState", "SessionContext", "Plan", "TrialStep"):
+            # fields from a real object, by position and by keyword, and with defaults left out
+            obj = {"SubjectState": state, "SessionContext": state.context}.get(cls.__name__)
+            if obj is None:
+                obj = cls(*[getattr(_sample(cls), f.name) for f in dataclasses.fields(cls)])
+            values = [getattr(obj, f.name) for f in dataclasses.fields(cls)]
+            required = [f for f in dataclasses.fields(cls)
+                        if f.default is dataclasses.MISSING and f.default_factory is dataclasses.MISSING]
+            examples = [(tuple(values), {}), ((), {f.name: v for f, v in zip(dataclasses.fields(cls), values)}),
+                        (tuple(values[:len(required)]), {})]
+        assert examples, cls
+        for args, kwargs in examples:
+            quick = _built(cls.__init__, cls, args, kwargs)
+            plain = _built(cls._dataclass_init, cls, args, kwargs)
+            if isinstance(plain, tuple):
+                assert quick == plain, (cls, args, kwargs)
+                continue
+            assert quick == plain, (cls, args, kwargs)
+            for f in dataclasses.fields(cls):
+                assert type(getattr(quick, f.name)) is type(getattr(plain, f.name)), (cls, f.name)
+    first, second = TrialEvent("m1", "rig1", "d001", 1), TrialEvent("m1", "rig1", "d001", 2)
+    assert first.extra == {} and first.extra is not second.extra  # a default factory: a new value per object
+    with pytest.raises(TypeError):
+        quick_init(dataclasses.dataclass(type("Loose", (), {"__annotations__": {"x": int}})))  # not frozen
+
+
+def _sample(cls):
+    """A valid object of the small internal value types, for their field values."""
+    from rigloop.core.trial import TrialStep
+    from rigloop.rules.engine import Plan
+
+    return {"Plan": Plan("tone", 0.5, 4.0, True, "A", "acq", False, None, ("why",), (), ()),
+            "TrialStep": TrialStep("port_left", "poke", 1.5, 4.0)}[cls.__name__]

@@ -22,11 +22,13 @@ import numpy as np
 
 from ..errors import BadArgument, StoreError
 from .learners import LEARNERS
+from .quick_init import quick_init
 
 STATE_FORMAT = 2  # 2: behaviour estimates and the choice kernel (a format-1 snapshot is replayed past)
 ALL = "all"  # the condition that pools every scored trial
 
 
+@quick_init
 @dataclass(frozen=True, slots=True)
 class SessionContext:
     """The session a subject is in: its id, rig, seed and the rule file's hash."""
@@ -39,6 +41,7 @@ class SessionContext:
     first_decision: Mapping[str, Any] | None = None
 
 
+@quick_init
 @dataclass(frozen=True, slots=True)
 class SubjectState:
     """One animal's whole state between trials.

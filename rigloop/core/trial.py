@@ -16,6 +16,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from ..errors import BadEvent
+from .quick_init import quick_init
 
 RESPONSE_RESULTS = ("correct", "incorrect", "omitted")
 PUNISHMENTS = ("timeout", "airpuff", "noise")
@@ -96,6 +97,7 @@ def _extra(name: str, value: Any) -> dict[str, Scalar]:
 # --------------------------------------------------------------------------- parts
 
 
+@quick_init
 @dataclass(frozen=True, slots=True)
 class CuePresentation:
     """One cue shown during a trial, from ``onset`` to ``offset`` (s from trial start)."""
@@ -114,6 +116,7 @@ class CuePresentation:
             raise BadEvent(f"cues[{self.cue}].offset", f"must not be before its onset {self.onset:g} s", self.offset)
 
 
+@quick_init
 @dataclass(frozen=True, slots=True)
 class Outcome:
     """What the rig delivered: reward volume and time, and any punishment."""
@@ -144,6 +147,7 @@ class Outcome:
         return self.reward_ul > 0
 
 
+@quick_init
 @dataclass(frozen=True, slots=True)
 class Response:
     """What the animal did: ``kind`` (e.g. ``licks``, ``choice``, ``lever``), its ``value``
@@ -172,6 +176,7 @@ class Response:
             object.__setattr__(self, "latency", _number("response.latency", self.latency, optional=True))
 
 
+@quick_init
 @dataclass(frozen=True, slots=True)
 class TrialStep:
     """One step of a multi-step trial: the ``state`` shown (a cue or a task state), the
@@ -240,6 +245,7 @@ def _steps(value: Any) -> tuple[TrialStep, ...]:
 # --------------------------------------------------------------------------- event
 
 
+@quick_init
 @dataclass(frozen=True, slots=True)
 class TrialEvent:
     """One finished trial, as reported by a rig.
@@ -604,6 +610,7 @@ def _sub(name: str, value: Any, fields: Mapping[str, Any]) -> dict[str, Any]:
 # --------------------------------------------------------------------------- decision
 
 
+@quick_init
 @dataclass(frozen=True, slots=True)
 class Decision:
     """What the rig should do on trial ``trial`` (the next one) of a session.

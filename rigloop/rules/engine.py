@@ -23,6 +23,7 @@ from typing import Any
 import numpy as np
 
 from ..core.derived import derived
+from ..core.quick_init import quick_init
 from ..core.performance import dprime as _dprime
 from ..core.performance import sequential_bounds, sequential_step
 from .expr import Env, cheap_first, evaluate, fmt
@@ -32,6 +33,7 @@ from .state import ScheduleState
 from .welfare import lab_day, limit_values
 
 
+@quick_init
 @dataclass(frozen=True, slots=True)
 class Plan:
     """A decision without its address: the ``rigloop.trial.Decision`` fields other than

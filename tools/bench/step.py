@@ -43,6 +43,7 @@ from rigloop.core import curve, features, quantities, seeds  # noqa: E402
 from rigloop.core import step as core_step  # noqa: E402
 from rigloop.core.learners._shared import Learner  # noqa: E402
 from rigloop.core.subject import new_subject  # noqa: E402
+from rigloop.core.trial import Decision  # noqa: E402
 from rigloop.offline.simulate import simulate_session  # noqa: E402
 from rigloop.offline.sweep import animal_for  # noqa: E402
 from rigloop.rules import load_example  # noqa: E402
@@ -84,6 +85,13 @@ def _pair(trick, reference, number: int) -> dict[str, float]:
     return {"trick_us": round(t, 3), "reference_us": round(r, 3), "ratio": round(r / t, 2)}
 
 
+def _dataclass_built(cls, args):
+    """``cls(*args)`` by the dataclass's own generated ``__init__`` (quick_init's reference)."""
+    new = object.__new__(cls)
+    cls._dataclass_init(new, *args)
+    return new
+
+
 def tricks() -> dict[str, dict[str, float]]:
     rules = load_example("tone_reversal")
     state = new_subject("b1", rules)
@@ -104,6 +112,8 @@ def tricks() -> dict[str, dict[str, float]]:
     trial_rows = rep._event_rows(event, 4.0)
     kept_rows = _rows_of(trial_rows.X, learner.gamma)
     probs = rng.uniform(0.0, 1.0, 24)  # the Gauss-Hermite nodes' probabilities d' clips
+    decision_args = ("b1", "s1", 5, "tone_hi", 0.8, 4.0, True, "acquisition", "training", False, None, None,
+                     ("a reason",), (), ())
     b_means = itertools.cycle(np.linspace(-1.0, 0.5, 97).tolist())  # cue b moves, cue a stays (as between trials)
     return {
         "lazy trial generator vs trial_rng": _pair(lambda: seeds._LazyTrialRng(7, 3),
@@ -135,6 +145,8 @@ def tricks() -> dict[str, dict[str, float]]:
         "Kalman TD trial, corrections inline vs _observe": _pair(
             lambda: learner.copy()._trial(kept_rows, trial_rows.r, True),
             lambda: learner.copy()._trial_reference(kept_rows, trial_rows.r, True), 5000),
+        "Decision, quick_init vs the dataclass's __init__": _pair(
+            lambda: Decision(*decision_args), lambda: _dataclass_built(Decision, decision_args), 20000),
         "behaviour quantities vs reference": _pair(
             lambda: quantities._behaviour_quantities({}, rules.spec, behaviour),
             lambda: quantities._behaviour_quantities_reference({}, rules.spec, behaviour), 20000),

@@ -632,3 +632,18 @@ def _sample(cls):
 
     return {"Plan": Plan("tone", 0.5, 4.0, True, "A", "acq", False, None, ("why",), (), ()),
             "TrialStep": TrialStep("port_left", "poke", 1.5, 4.0)}[cls.__name__]
+
+
+def test_fmt_gives_the_reference_text():
+    """rules.expr.show.fmt (a finite float's short path) writes what _fmt_reference writes:
+    integers, boundaries of its branches, signs, non-finite values, bools, ints and numpy floats."""
+    from rigloop.rules.expr.show import _fmt_reference, fmt
+
+    rng = np.random.default_rng(5)
+    values = [0.0, -0.0, 1.0, -3.0, 0.001, -0.001, 0.0009999, 1e12, -1e12, 1e12 - 1, 999999999999.5, 1e300,
+              5e-324, math.inf, -math.inf, math.nan, True, False, 7, -2, np.float64(0.25), np.float32(0.1),
+              0.0005, 0.12345, 2.5, 1234.5678]
+    values += rng.normal(0, 10, 500).tolist() + (10.0 ** rng.uniform(-8, 14, 500)).tolist()
+    values += rng.integers(-1000, 1000, 100).astype(float).tolist()
+    for v in values:
+        assert fmt(v) == _fmt_reference(v), v

@@ -6,7 +6,7 @@ per field. The ``__init__`` here does the same assignments through each slot's o
 descriptor (``Cls.field.__set__``, bound once), which skips the class's refusing
 ``__setattr__`` just as ``object.__setattr__`` does, and then calls ``__post_init__`` as
 the generated one does: the same object, the same checks and errors, for ~2/3 of the
-time (a Decision 2.4 -> 1.6 µs, tools/bench/step.py). The generated ``__init__`` stays on
+time (a Decision 2.3-2.7 -> 1.4-1.6 µs, tools/bench/step.py). The generated ``__init__`` stays on
 the class as ``_dataclass_init``, the reference tests/test_fast_paths.py holds it to.
 """
 
